@@ -1,0 +1,67 @@
+// point-triangle and point-surface distances.
+// closest point on a triangle: Ericson, "Real-Time Collision Detection" (2005), section 5.1.5.
+#include "distance.hpp"
+
+#include <cmath>
+
+namespace gm {
+
+Vec3 closest_on_triangle(Vec3 p, Vec3 a, Vec3 b, Vec3 c) {
+    Vec3 ab = b - a, ac = c - a, ap = p - a;
+    double d1 = dot(ab, ap), d2 = dot(ac, ap);
+    if (d1 <= 0 && d2 <= 0) return a;
+    Vec3 bp = p - b;
+    double d3 = dot(ab, bp), d4 = dot(ac, bp);
+    if (d3 >= 0 && d4 <= d3) return b;
+    double vc = d1 * d4 - d3 * d2;
+    if (vc <= 0 && d1 >= 0 && d3 <= 0) return a + (d1 / (d1 - d3)) * ab;
+    Vec3 cp = p - c;
+    double d5 = dot(ab, cp), d6 = dot(ac, cp);
+    if (d6 >= 0 && d5 <= d6) return c;
+    double vb = d5 * d2 - d1 * d6;
+    if (vb <= 0 && d2 >= 0 && d6 <= 0) return a + (d2 / (d2 - d6)) * ac;
+    double va = d3 * d6 - d5 * d4;
+    if (va <= 0 && (d4 - d3) >= 0 && (d5 - d6) >= 0)
+        return b + ((d4 - d3) / ((d4 - d3) + (d5 - d6))) * (c - b);
+    double denom = 1.0 / (va + vb + vc);
+    double v = vb * denom, w = vc * denom;
+    return a + v * ab + w * ac;
+}
+
+double project_distance(const Field& field, Vec3 p, const std::uint32_t* list, std::size_t count,
+                        int iterations) {
+    const double R = field.radius();
+    Vec3 u = normalize(p);
+    double best = INFINITY;
+    for (int it = 0; it <= iterations; ++it) {
+        Vec3 g;
+        double H = list ? field.eval(u, list, count, &g) : field.eval(u, &g);
+        double r = R + H;
+        Vec3 res = r * u - p;
+        double d = norm(res);
+        if (d < best) best = d;
+        if (it == iterations || d == 0) break;
+        // tangent basis at u
+        Vec3 a = std::fabs(u.x) < 0.9 ? Vec3{1, 0, 0} : Vec3{0, 1, 0};
+        Vec3 e1 = normalize(a - dot(a, u) * u);
+        Vec3 e2 = cross(u, e1);
+        Vec3 j1 = r * e1 + dot(g, e1) * u;
+        Vec3 j2 = r * e2 + dot(g, e2) * u;
+        double a11 = dot(j1, j1), a12 = dot(j1, j2), a22 = dot(j2, j2);
+        double b1 = -dot(j1, res), b2 = -dot(j2, res);
+        double det = a11 * a22 - a12 * a12;
+        if (!(std::fabs(det) > 0)) break;
+        double s1 = (b1 * a22 - b2 * a12) / det;
+        double s2 = (a11 * b2 - a12 * b1) / det;
+        // keep steps small: the linear model is only local
+        double step = std::sqrt(s1 * s1 + s2 * s2);
+        if (step > 0.25) {
+            s1 *= 0.25 / step;
+            s2 *= 0.25 / step;
+        }
+        u = normalize(u + s1 * e1 + s2 * e2);
+    }
+    return best;
+}
+
+}  // namespace gm

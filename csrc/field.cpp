@@ -1,0 +1,635 @@
+// the terrain field of docs/terrain.md: features, blends, analytic gradients, footprint index.
+// gradient noise: Perlin 2002 "Improving Noise"; permutation seeded with SplitMix64
+// (Steele, Lea & Flood 2014) and shuffled by Fisher-Yates.
+#include "field.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <numeric>
+
+namespace gm {
+namespace {
+
+constexpr double kPi = 3.14159265358979323846;
+const double kE4 = std::exp(-8.0);  // truncated Gaussian offset, G(4 sigma) = 0
+
+double clamp01(double t) { return t < 0 ? 0 : (t > 1 ? 1 : t); }
+
+// falloff F(t) = 1 - 3t^2 + 2t^3 on [0,1], 1 before, 0 after; and its derivative
+void falloff(double t, double& f, double& df) {
+    if (t <= 0) {
+        f = 1;
+        df = 0;
+    } else if (t >= 1) {
+        f = 0;
+        df = 0;
+    } else {
+        f = 1 - t * t * (3 - 2 * t);
+        df = 6 * t * (t - 1);
+    }
+}
+
+// gradient of the angle theta(u, c) with respect to u (tangent, per radian)
+Vec3 angle_grad(Vec3 u, Vec3 c, double theta) {
+    double s = std::sin(theta);
+    if (s <= 0) return {};
+    return (1.0 / s) * (std::cos(theta) * u - c);
+}
+
+std::uint64_t splitmix64(std::uint64_t& state) {
+    state += 0x9E3779B97F4A7C15ull;
+    std::uint64_t z = state;
+    z = (z ^ (z >> 30)) * 0xBF58476D1CE4E5B9ull;
+    z = (z ^ (z >> 27)) * 0x94D049BB133111EBull;
+    return z ^ (z >> 31);
+}
+
+double fade(double t) { return t * t * t * (t * (t * 6 - 15) + 10); }
+double dfade(double t) { return 30 * t * t * (t * (t - 2) + 1); }
+
+// Perlin's corner gradients as a table: grad(h, x, y, z) = G[h & 15] . (x, y, z), the same
+// values as the reference implementation's branches (h < 8 ? x : y, h < 4 ? y : h in {12,14} ? x : z)
+struct Grad {
+    double x, y, z;
+};
+constexpr Grad kGrad[16] = {
+    {1, 1, 0}, {-1, 1, 0}, {1, -1, 0}, {-1, -1, 0}, {1, 0, 1}, {-1, 0, 1}, {1, 0, -1}, {-1, 0, -1},
+    {0, 1, 1}, {0, -1, 1}, {0, 1, -1}, {0, -1, -1}, {1, 1, 0}, {0, -1, 1}, {-1, 1, 0}, {0, -1, -1},
+};
+
+template <bool WithGrad>
+double perlin(const std::uint8_t* P, Vec3 q, Vec3* grad) {
+    double fx = std::floor(q.x), fy = std::floor(q.y), fz = std::floor(q.z);
+    int X = static_cast<int>(static_cast<long long>(fx) & 255);
+    int Y = static_cast<int>(static_cast<long long>(fy) & 255);
+    int Z = static_cast<int>(static_cast<long long>(fz) & 255);
+    double x = q.x - fx, y = q.y - fy, z = q.z - fz;
+    double u = fade(x), v = fade(y), w = fade(z);
+    int A = P[X] + Y, B = P[X + 1] + Y;
+    int AA = P[A] + Z, AB = P[A + 1] + Z, BA = P[B] + Z, BB = P[B + 1] + Z;
+    const Grad& g000 = kGrad[P[AA] & 15];
+    const Grad& g100 = kGrad[P[BA] & 15];
+    const Grad& g010 = kGrad[P[AB] & 15];
+    const Grad& g110 = kGrad[P[BB] & 15];
+    const Grad& g001 = kGrad[P[AA + 1] & 15];
+    const Grad& g101 = kGrad[P[BA + 1] & 15];
+    const Grad& g011 = kGrad[P[AB + 1] & 15];
+    const Grad& g111 = kGrad[P[BB + 1] & 15];
+    double x1 = x - 1, y1 = y - 1, z1 = z - 1;
+    double n000 = g000.x * x + g000.y * y + g000.z * z;
+    double n100 = g100.x * x1 + g100.y * y + g100.z * z;
+    double n010 = g010.x * x + g010.y * y1 + g010.z * z;
+    double n110 = g110.x * x1 + g110.y * y1 + g110.z * z;
+    double n001 = g001.x * x + g001.y * y + g001.z * z1;
+    double n101 = g101.x * x1 + g101.y * y + g101.z * z1;
+    double n011 = g011.x * x + g011.y * y1 + g011.z * z1;
+    double n111 = g111.x * x1 + g111.y * y1 + g111.z * z1;
+    // trilinear interpolation in the reference implementation's order
+    double a0 = n000 + u * (n100 - n000), a1 = n010 + u * (n110 - n010);
+    double a2 = n001 + u * (n101 - n001), a3 = n011 + u * (n111 - n011);
+    double b0 = a0 + v * (a1 - a0), b1 = a2 + v * (a3 - a2);
+    double value = b0 + w * (b1 - b0);
+    if constexpr (WithGrad) {
+        double du = dfade(x), dv = dfade(y), dw = dfade(z);
+        double wx[2] = {1 - u, u}, wy[2] = {1 - v, v}, wz[2] = {1 - w, w};
+        double dx[2] = {-du, du}, dy[2] = {-dv, dv}, dz[2] = {-dw, dw};
+        const Grad* G[2][2][2] = {{{&g000, &g001}, {&g010, &g011}}, {{&g100, &g101}, {&g110, &g111}}};
+        double N[2][2][2] = {{{n000, n001}, {n010, n011}}, {{n100, n101}, {n110, n111}}};
+        Vec3 g{};
+        for (int i = 0; i < 2; ++i)
+            for (int j = 0; j < 2; ++j)
+                for (int k = 0; k < 2; ++k) {
+                    double wt = wx[i] * wy[j] * wz[k], n = N[i][j][k];
+                    const Grad& c = *G[i][j][k];
+                    g.x += wt * c.x + dx[i] * wy[j] * wz[k] * n;
+                    g.y += wt * c.y + wx[i] * dy[j] * wz[k] * n;
+                    g.z += wt * c.z + wx[i] * wy[j] * dz[k] * n;
+                }
+        *grad = g;
+    }
+    return value;
+}
+
+// block local coordinate r*atan2(u.a, u.c) and its gradient
+double local_coord(Vec3 u, Vec3 axis, Vec3 c, double r, Vec3& g) {
+    double a = dot(u, axis), b = dot(u, c);
+    double d = a * a + b * b;
+    g = d > 0 ? (r / d) * (b * axis - a * c) : Vec3{};
+    return r * std::atan2(a, b);
+}
+
+// polynomial smooth minimum with width k and gradient
+double smin(double a, Vec3 ga, double b, Vec3 gb, double k, Vec3& g) {
+    double h = clamp01(0.5 + 0.5 * (b - a) / k);
+    double v = b * (1 - h) + a * h - k * h * (1 - h);
+    Vec3 dh{};
+    if (h > 0 && h < 1) dh = (0.5 / k) * (gb - ga);
+    g = (1 - h) * gb + h * ga + (a - b) * dh - (k * (1 - 2 * h)) * dh;
+    return v;
+}
+
+}  // namespace
+
+Status Field::init(double radius_m, const double* rows, std::size_t n, std::string& error) {
+    if (!(radius_m > 0) || !std::isfinite(radius_m)) {
+        error = "radius_m must be a finite number > 0";
+        return Status::InvalidArgument;
+    }
+    radius_ = radius_m;
+    features_.clear();
+    perms_.clear();
+    has_steps_ = false;
+    const double R = radius_m;
+    for (std::size_t i = 0; i < n; ++i) {
+        const double* r = rows + i * kFeatureColumns;
+        for (int j = 0; j < kFeatureColumns; ++j) {
+            if (!std::isfinite(r[j])) {
+                error = "features[" + std::to_string(i) + "] has a non-finite value in column " +
+                        std::to_string(j);
+                return Status::NonFinite;
+            }
+        }
+        Feature f;
+        int kind = static_cast<int>(r[0]);
+        int blend = static_cast<int>(r[1]);
+        if (kind < 0 || kind > 5 || kind != r[0]) {
+            error = "features[" + std::to_string(i) + "].kind code must be an integer in 0..5";
+            return Status::InvalidArgument;
+        }
+        if (blend < 0 || blend > 5 || blend != r[1]) {
+            error = "features[" + std::to_string(i) + "].blend code must be an integer in 0..5";
+            return Status::InvalidArgument;
+        }
+        f.kind = static_cast<Kind>(kind);
+        f.blend = static_cast<Blend>(blend);
+        f.k = r[2];
+        if ((f.blend == Blend::SmoothMax || f.blend == Blend::SmoothMin) && !(f.k > 0)) {
+            error = "features[" + std::to_string(i) + "].blend_width_m must be > 0";
+            return Status::InvalidArgument;
+        }
+        f.c = normalize({r[3], r[4], r[5]});
+        f.c1 = normalize({r[6], r[7], r[8]});
+        for (int j = 0; j < 7; ++j) f.prm[j] = r[9 + j];
+        auto bad = [&](const char* what) {
+            error = "features[" + std::to_string(i) + "]." + what;
+            return Status::InvalidArgument;
+        };
+        if (f.kind != Kind::Noise && std::fabs(norm(f.c) - 1) > 1e-9) return bad("centre must be a unit vector");
+        double* p = f.prm;
+        f.cap_c = f.c;
+        switch (f.kind) {
+            case Kind::Hill:
+                if (!(p[1] > 0)) return bad("sigma_m must be > 0");
+                f.cap_angle = std::min(kPi, 4 * p[1] / R);
+                f.scale_m = p[1];
+                f.amp_m = std::fabs(p[0]);
+                break;
+            case Kind::Mesa:
+                if (!(p[1] > 0)) return bad("radius_m must be > 0");
+                if (!(p[2] >= 0)) return bad("wall_m must be >= 0");
+                f.cap_angle = std::min(kPi, (p[1] + p[2]) / R);
+                f.scale_m = p[1];
+                f.amp_m = std::fabs(p[0]);
+                f.step = p[2] == 0;
+                break;
+            case Kind::Block: {
+                if (!(p[1] > 0) || !(p[2] > 0)) return bad("half_x_m and half_y_m must be > 0");
+                if (!(p[3] >= 0) || p[3] > std::min(p[1], p[2])) return bad("corner_m must be in [0, min(half_x_m, half_y_m)]");
+                if (!(p[4] >= 0)) return bad("wall_m must be >= 0");
+                double ex = (p[1] + p[4]) / R, ey = (p[2] + p[4]) / R;
+                if (ex >= kPi / 3 || ey >= kPi / 3) return bad("footprint must stay within 60 degrees of its centre");
+                Vec3 up{0, 1, 0};
+                if (std::fabs(f.c.y) > 1 - 1e-9) up = {0, 0, 1};
+                Vec3 north = normalize(up - dot(up, f.c) * f.c);
+                Vec3 east = cross(north, f.c);
+                double hd = p[5];
+                f.ax = std::cos(hd) * east + std::sin(hd) * north;
+                f.ay = -std::sin(hd) * east + std::cos(hd) * north;
+                double tx = std::tan(ex), ty = std::tan(ey);
+                f.cap_angle = std::atan(std::sqrt(tx * tx + ty * ty));
+                f.scale_m = std::min(p[1], p[2]);
+                f.amp_m = std::fabs(p[0]);
+                f.step = p[4] == 0;
+                break;
+            }
+            case Kind::Crater:
+                if (!(p[1] > 0)) return bad("radius_m must be > 0");
+                if (!(p[3] > 0)) return bad("rim_width_m must be > 0");
+                if (!(p[0] >= 0) || !(p[2] >= 0)) return bad("depth_m and rim_height_m must be >= 0");
+                f.cap_angle = std::min(kPi, (p[1] + p[3]) / R);
+                f.scale_m = std::min(p[1], p[3]);
+                f.amp_m = p[0] + p[2];
+                break;
+            case Kind::Ridge: {
+                if (!(p[1] > 0)) return bad("half_width_m must be > 0");
+                if (std::fabs(norm(f.c1) - 1) > 1e-9) return bad("end point must be a unit vector");
+                double arc = angle(f.c, f.c1);
+                if (!(arc > 1e-12) || arc > kPi * 179.0 / 180.0) return bad("arc angle must be in (0, 179] degrees");
+                f.ax = normalize(cross(f.c, f.c1));
+                f.cap_c = normalize(f.c + f.c1);
+                f.cap_angle = std::min(kPi, 0.5 * arc + p[1] / R);
+                f.scale_m = p[1];
+                f.amp_m = std::fabs(p[0]);
+                break;
+            }
+            case Kind::Noise: {
+                if (!(p[1] > 0)) return bad("frequency_per_m must be > 0");
+                if (!(p[2] >= 1 && p[2] <= 12) || p[2] != std::floor(p[2])) return bad("octaves must be an integer in 1..12");
+                if (!(p[3] > 0 && p[3] <= 1)) return bad("gain must be in (0, 1]");
+                if (!(p[4] >= 0 && p[4] <= 4294967295.0) || p[4] != std::floor(p[4])) return bad("seed must be an integer in 0..2^32-1");
+                f.cap_angle = 4;  // everywhere
+                std::array<std::uint8_t, 512> P{};
+                std::array<int, 256> perm{};
+                std::iota(perm.begin(), perm.end(), 0);
+                std::uint64_t state = static_cast<std::uint64_t>(p[4]);
+                for (int a = 255; a >= 1; --a) {
+                    std::uint64_t j = splitmix64(state) % static_cast<std::uint64_t>(a + 1);
+                    std::swap(perm[a], perm[j]);
+                }
+                for (int a = 0; a < 512; ++a) P[a] = static_cast<std::uint8_t>(perm[a & 255]);
+                f.noise_table = static_cast<int>(perms_.size());
+                perms_.push_back(P);
+                // finest octave: wavelength 1 / (f 2^(n-1)); amplitude bound A * sum g^k
+                int oct = static_cast<int>(p[2]);
+                double amp = 0, g = 1;
+                for (int o = 0; o < oct; ++o, g *= p[3]) amp += g;
+                f.amp_m = std::fabs(p[0]) * amp;
+                f.scale_m = 1.0 / (p[1] * std::ldexp(1.0, oct - 1));
+                break;
+            }
+        }
+        has_steps_ = has_steps_ || f.step;
+        features_.push_back(f);
+    }
+    build_index();
+    return Status::Ok;
+}
+
+void Field::contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& o) const {
+    const double R = radius_;
+    const double* p = f.prm;
+    o = Contribution{};
+    switch (f.kind) {
+        case Kind::Hill: {
+            double th = angle(u, f.c), d = R * th, s = p[1];
+            if (d >= 4 * s) return;
+            double e = std::exp(-d * d / (2 * s * s));
+            o.p = p[0];
+            o.m = (e - kE4) / (1 - kE4);
+            if (want_grad) o.gm = (-d / (s * s) * e / (1 - kE4) * R) * angle_grad(u, f.c, th);
+            return;
+        }
+        case Kind::Mesa: {
+            double th = angle(u, f.c), d = R * th, a = p[1], w = p[2];
+            if (w == 0) {
+                o.p = p[0];
+                o.m = d <= a ? 1 : 0;
+                return;
+            }
+            if (d >= a + w) return;
+            double fv, df;
+            falloff((d - a) / w, fv, df);
+            o.p = p[0];
+            o.m = fv;
+            if (want_grad && df != 0) o.gm = (df / w * R) * angle_grad(u, f.c, th);
+            return;
+        }
+        case Kind::Block: {
+            Vec3 gx, gy;
+            double x = local_coord(u, f.ax, f.c, R, gx);
+            double y = local_coord(u, f.ay, f.c, R, gy);
+            if (dot(u, f.c) <= 0) return;
+            double hx = p[1], hy = p[2], r = p[3], w = p[4];
+            double sx = x < 0 ? -1.0 : 1.0, sy = y < 0 ? -1.0 : 1.0;
+            double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
+            double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
+            double out = std::sqrt(mx * mx + my * my);
+            double s = out + std::min(std::max(qx, qy), 0.0) - r;
+            Vec3 gs{};
+            if (want_grad) {
+                if (out > 0)
+                    gs = (mx * sx / out) * gx + (my * sy / out) * gy;
+                else
+                    gs = qx > qy ? sx * gx : sy * gy;
+            }
+            o.p = p[0];
+            if (w == 0) {
+                o.m = s <= 0 ? 1 : 0;
+                return;
+            }
+            if (s >= w) {
+                o.p = 0;
+                return;
+            }
+            double fv, df;
+            falloff(s / w, fv, df);
+            o.m = fv;
+            if (want_grad && df != 0) o.gm = (df / w) * gs;
+            return;
+        }
+        case Kind::Crater: {
+            double th = angle(u, f.c), d = R * th;
+            double D = p[0], a = p[1], hr = p[2], wr = p[3];
+            if (d >= a + wr) return;
+            if (d <= a) {
+                o.p = -D + (D + hr) * (d / a) * (d / a);
+                o.m = 1;
+                if (want_grad) o.gp = (2 * (D + hr) * d / (a * a) * R) * angle_grad(u, f.c, th);
+                return;
+            }
+            double fv, df;
+            falloff((d - a) / wr, fv, df);
+            o.p = hr;
+            o.m = fv;
+            if (want_grad && df != 0) o.gm = (df / wr * R) * angle_grad(u, f.c, th);
+            return;
+        }
+        case Kind::Ridge: {
+            Vec3 n = f.ax;
+            double un = dot(u, n);
+            Vec3 q = u - un * n;
+            double delta;
+            Vec3 gd{};
+            if (dot(cross(f.c, q), n) >= 0 && dot(cross(q, f.c1), n) >= 0) {
+                double a = std::min(1.0, std::fabs(un));
+                delta = R * std::asin(a);
+                if (want_grad && a < 1) gd = ((un < 0 ? -R : R) / std::sqrt(1 - a * a)) * n;
+            } else {
+                double t0 = angle(u, f.c), t1 = angle(u, f.c1);
+                if (t0 <= t1) {
+                    delta = R * t0;
+                    if (want_grad) gd = R * angle_grad(u, f.c, t0);
+                } else {
+                    delta = R * t1;
+                    if (want_grad) gd = R * angle_grad(u, f.c1, t1);
+                }
+            }
+            double b = p[1], s = delta / b;
+            if (s >= 1) return;
+            double k, dk;
+            if (p[2] == 0) {
+                k = (1 - s * s) * (1 - s * s);
+                dk = -4 * s * (1 - s * s);
+            } else {
+                k = 1 - s;
+                dk = -1;
+            }
+            o.p = p[0];
+            o.m = k;
+            if (want_grad) o.gm = (dk / b) * gd;
+            return;
+        }
+        case Kind::Noise: {
+            o.m = 1;
+            o.p = noise(f, u, want_grad ? &o.gp : nullptr);
+            return;
+        }
+    }
+}
+
+double Field::noise(const Feature& f, Vec3 u, Vec3* grad) const {
+    const std::uint8_t* P = perms_[static_cast<std::size_t>(f.noise_table)].data();
+    const double* p = f.prm;
+    int oct = static_cast<int>(p[2]);
+    double scale = p[1] * radius_, amp = 1, sum = 0;
+    Vec3 g{};
+    for (int k = 0; k < oct; ++k) {
+        Vec3 off{19.19 * k, 47.11 * k, 73.37 * k};
+        Vec3 gk;
+        sum += amp * (grad ? perlin<true>(P, scale * u + off, &gk) : perlin<false>(P, scale * u + off, nullptr));
+        if (grad) g += (amp * scale) * gk;
+        amp *= p[3];
+        scale *= 2;
+    }
+    if (grad) *grad = p[0] * g;
+    return p[0] * sum;
+}
+
+double Field::eval(Vec3 u, const std::uint32_t* list, std::size_t count, Vec3* grad, int force,
+                   double force_m) const {
+    double H = 0;
+    Vec3 G{};
+    const bool wg = grad != nullptr;
+    for (std::size_t i = 0; i < count; ++i) {
+        const Feature& f = features_[list[i]];
+        Contribution c;
+        contribution(f, u, wg, c);
+        if (static_cast<int>(list[i]) == force) {
+            if (c.m == 0 && force_m != 0) {
+                // step feature evaluated just outside its rim: its profile value is constant
+                c.p = f.prm[0];
+            }
+            c.m = force_m;
+            c.gm = {};
+        }
+        if (c.m == 0) continue;  // outside the footprint: exactly no change
+        if (f.blend == Blend::Add) {
+            H += c.m * c.p;
+            if (wg) G += c.m * c.gp + c.p * c.gm;
+            continue;
+        }
+        double X;
+        Vec3 gX{};
+        switch (f.blend) {
+            case Blend::Max:
+                if (c.p > H) {
+                    X = c.p;
+                    gX = c.gp;
+                } else {
+                    X = H;
+                    gX = G;
+                }
+                break;
+            case Blend::Min:
+                if (c.p < H) {
+                    X = c.p;
+                    gX = c.gp;
+                } else {
+                    X = H;
+                    gX = G;
+                }
+                break;
+            case Blend::Set:
+                X = c.p;
+                gX = c.gp;
+                break;
+            case Blend::SmoothMin:
+                X = smin(H, G, c.p, c.gp, f.k, gX);
+                break;
+            case Blend::SmoothMax:
+            default:
+                X = -smin(-H, -G, -c.p, -c.gp, f.k, gX);
+                gX = -gX;
+                break;
+        }
+        double diff = X - H;
+        if (wg) G = G + diff * c.gm + c.m * (gX - G);
+        H = H + c.m * diff;
+    }
+    if (wg) *grad = tangent(G, u);
+    return H;
+}
+
+int Field::cell_of(Vec3 u) const {
+    double ax = std::fabs(u.x), ay = std::fabs(u.y), az = std::fabs(u.z);
+    int face;
+    double s, t;
+    if (ax >= ay && ax >= az) {
+        face = u.x > 0 ? 0 : 1;
+        s = u.y / ax;
+        t = u.z / ax;
+    } else if (ay >= az) {
+        face = u.y > 0 ? 2 : 3;
+        s = u.x / ay;
+        t = u.z / ay;
+    } else {
+        face = u.z > 0 ? 4 : 5;
+        s = u.x / az;
+        t = u.y / az;
+    }
+    auto idx = [&](double v) {
+        int k = static_cast<int>(std::floor((v + 1) * 0.5 * n_));
+        return std::min(std::max(k, 0), n_ - 1);
+    };
+    if (!(ax + ay + az > 0)) return 0;
+    return (face * n_ + idx(s)) * n_ + idx(t);
+}
+
+void Field::build_index() {
+    // cells roughly the size of a typical footprint, bounded so building stays cheap
+    std::vector<double> angles;
+    for (const auto& f : features_)
+        if (f.cap_angle < kPi) angles.push_back(f.cap_angle);
+    int n = 1;
+    if (!angles.empty()) {
+        std::nth_element(angles.begin(), angles.begin() + angles.size() / 2, angles.end());
+        double med = std::max(angles[angles.size() / 2], 1e-6);
+        n = static_cast<int>(std::ceil((kPi / 2) / med));
+        int cap = static_cast<int>(std::sqrt(4.0e6 / (6.0 * static_cast<double>(features_.size()))));
+        n = std::max(1, std::min({n, 64, std::max(cap, 1)}));
+    }
+    n_ = n;
+    const int cells = 6 * n * n;
+    std::vector<Vec3> centre(static_cast<std::size_t>(cells));
+    std::vector<double> cos_r(static_cast<std::size_t>(cells)), sin_r(static_cast<std::size_t>(cells));
+    std::vector<double> rad(static_cast<std::size_t>(cells));
+    for (int face = 0; face < 6; ++face) {
+        for (int i = 0; i < n; ++i) {
+            for (int j = 0; j < n; ++j) {
+                auto dir = [&](double s, double t) {
+                    double sg = (face % 2 == 0) ? 1.0 : -1.0;
+                    if (face < 2) return normalize({sg, s, t});
+                    if (face < 4) return normalize({s, sg, t});
+                    return normalize({s, t, sg});
+                };
+                double s0 = -1 + 2.0 * i / n, s1 = -1 + 2.0 * (i + 1) / n;
+                double t0 = -1 + 2.0 * j / n, t1 = -1 + 2.0 * (j + 1) / n;
+                Vec3 cc = dir(0.5 * (s0 + s1), 0.5 * (t0 + t1));
+                double r = 0;
+                for (Vec3 corner_dir : {dir(s0, t0), dir(s0, t1), dir(s1, t0), dir(s1, t1)})
+                    r = std::max(r, angle(cc, corner_dir));
+                r += 1e-9;
+                std::size_t id = static_cast<std::size_t>((face * n + i) * n + j);
+                centre[id] = cc;
+                rad[id] = r;
+                cos_r[id] = std::cos(r);
+                sin_r[id] = std::sin(r);
+            }
+        }
+    }
+    cell_start_.assign(static_cast<std::size_t>(cells) + 1, 0);
+    cell_items_.clear();
+    for (int id = 0; id < cells; ++id) {
+        std::size_t sid = static_cast<std::size_t>(id);
+        cell_start_[sid] = static_cast<std::uint32_t>(cell_items_.size());
+        for (std::size_t f = 0; f < features_.size(); ++f) {
+            const Feature& ft = features_[f];
+            bool hit;
+            if (ft.cap_angle + rad[sid] >= kPi) {
+                hit = true;
+            } else {
+                // angle(cell, cap) <= r_cell + r_cap  <=>  dot >= cos(r_cell + r_cap)
+                double ca = std::cos(ft.cap_angle), sa = std::sin(ft.cap_angle);
+                double lim = cos_r[sid] * ca - sin_r[sid] * sa;
+                hit = dot(centre[sid], ft.cap_c) >= lim - 1e-12;
+            }
+            if (hit) cell_items_.push_back(static_cast<std::uint32_t>(f));
+        }
+    }
+    cell_start_[static_cast<std::size_t>(cells)] = static_cast<std::uint32_t>(cell_items_.size());
+}
+
+void Field::candidates(Vec3 u, const std::uint32_t*& list, std::size_t& count) const {
+    std::size_t id = static_cast<std::size_t>(cell_of(u));
+    list = cell_items_.data() + cell_start_[id];
+    count = cell_start_[id + 1] - cell_start_[id];
+}
+
+double Field::eval(Vec3 u, Vec3* grad) const {
+    const std::uint32_t* list;
+    std::size_t count;
+    candidates(u, list, count);
+    return eval(u, list, count, grad);
+}
+
+bool Field::touches(std::size_t fi, const Cap& cap) const {
+    const Feature& f = features_[fi];
+    if (f.cap_angle >= kPi) return true;
+    double sum = f.cap_angle + cap.angle;
+    if (sum >= kPi) return true;
+    return dot(f.cap_c, cap.c) >= std::cos(sum) - 1e-12;
+}
+
+double Field::wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count) const {
+    double best = std::numeric_limits<double>::infinity();
+    const double R = radius_;
+    Vec3 u = normalize(p);
+    for (std::size_t i = 0; i < count; ++i) {
+        const Feature& f = features_[list[i]];
+        if (!f.step) continue;
+        Vec3 w;  // direction of the closest rim point
+        if (f.kind == Kind::Mesa) {
+            Vec3 t = u - dot(u, f.c) * f.c;
+            double tn = norm(t);
+            if (tn < 1e-15) continue;  // at the very centre the rim is far
+            double a = f.prm[1] / R;
+            w = std::cos(a) * f.c + (std::sin(a) / tn) * t;
+        } else {
+            if (dot(u, f.c) <= 0) continue;
+            Vec3 gx, gy;
+            double x = local_coord(u, f.ax, f.c, R, gx);
+            double y = local_coord(u, f.ay, f.c, R, gy);
+            double hx = f.prm[1], hy = f.prm[2], r = f.prm[3];
+            double sx = x < 0 ? -1.0 : 1.0, sy = y < 0 ? -1.0 : 1.0;
+            double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
+            double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
+            double out = std::sqrt(mx * mx + my * my);
+            double xs, ys;
+            if (out > 0) {
+                // closest point on the corner arc or straight side
+                double s = out - r;
+                xs = x - sx * s * mx / out;
+                ys = y - sy * s * my / out;
+            } else if (qx > qy) {
+                xs = sx * hx;
+                ys = y;
+            } else {
+                xs = x;
+                ys = sy * hy;
+            }
+            w = normalize(f.c + std::tan(xs / R) * f.ax + std::tan(ys / R) * f.ay);
+        }
+        const std::uint32_t* cl;
+        std::size_t cc;
+        candidates(w, cl, cc);
+        double h_in = eval(w, cl, cc, nullptr, static_cast<int>(list[i]), 1.0);
+        double h_out = eval(w, cl, cc, nullptr, static_cast<int>(list[i]), 0.0);
+        double lo = R + std::min(h_in, h_out), hi = R + std::max(h_in, h_out);
+        double t = std::min(std::max(dot(p, w), lo), hi);
+        best = std::min(best, norm(p - t * w));
+    }
+    return best;
+}
+
+}  // namespace gm

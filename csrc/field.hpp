@@ -1,0 +1,98 @@
+// the terrain field: height H(u) and its gradient over unit directions, exactly as docs/terrain.md
+// writes it, with a spatial index over feature footprints.
+#pragma once
+
+#include <array>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "vec.hpp"
+
+namespace gm {
+
+enum class Kind : int { Hill = 0, Mesa = 1, Block = 2, Crater = 3, Ridge = 4, Noise = 5 };
+enum class Blend : int { Add = 0, Max = 1, Min = 2, Set = 3, SmoothMax = 4, SmoothMin = 5 };
+
+constexpr int kFeatureColumns = 16;
+
+struct Feature {
+    Kind kind = Kind::Hill;
+    Blend blend = Blend::Add;
+    double k = 0;          // smooth blend width (m)
+    Vec3 c, c1;            // centre (ridge: first end point), ridge second end point
+    double prm[7] = {};    // kind parameters, columns 9..15 of the feature array
+    // derived at construction
+    Vec3 ax, ay;           // block local axes; ridge: ax = great-circle pole
+    Vec3 cap_c;            // footprint cap centre
+    double cap_angle = 0;  // footprint cap angular radius (rad); >= pi means everywhere
+    double scale_m = 0;    // smallest length a probe grid must resolve to see the feature
+    double amp_m = 0;      // largest change of H the feature can make (m)
+    bool step = false;     // wall of width zero: H jumps across the rim
+    int noise_table = -1;  // index into Field::perms_
+};
+
+// per-point result of one feature: profile value p and weight m with their gradients
+struct Contribution {
+    double p = 0, m = 0;
+    Vec3 gp, gm;
+};
+
+// a spherical cap, used to bound triangles and footprints
+struct Cap {
+    Vec3 c;
+    double angle = 0;
+};
+
+enum class Status : int {
+    Ok = 0,
+    InvalidArgument = 1,
+    BudgetExceeded = 2,
+    NonFinite = 3,
+    Internal = 4,
+};
+
+class Field {
+public:
+    // features: n rows of kFeatureColumns doubles (layout in docs/terrain.md / spec.py)
+    Status init(double radius_m, const double* features, std::size_t n, std::string& error);
+
+    double radius() const { return radius_; }
+    std::size_t size() const { return features_.size(); }
+    const Feature& feature(std::size_t i) const { return features_[i]; }
+
+    // evaluate H (and the tangent gradient when grad != nullptr) at unit direction u using only
+    // the features listed (ascending indices). features not listed must not reach u.
+    // force >= 0 evaluates as if feature `force` had weight force_m (used for wall limits).
+    double eval(Vec3 u, const std::uint32_t* list, std::size_t count, Vec3* grad,
+                int force = -1, double force_m = 0) const;
+    // the same using the spatial index to find candidate features
+    double eval(Vec3 u, Vec3* grad) const;
+
+    // candidate features for a point (ascending indices)
+    void candidates(Vec3 u, const std::uint32_t*& list, std::size_t& count) const;
+    bool touches(std::size_t f, const Cap& cap) const;
+
+    // vertical walls: an upper bound on the distance from point p to the surface through the
+    // walls of step features in the list (infinity when none applies)
+    double wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count) const;
+
+    bool has_steps() const { return has_steps_; }
+
+private:
+    void contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& out) const;
+    double noise(const Feature& f, Vec3 u, Vec3* grad) const;
+    void build_index();
+    int cell_of(Vec3 u) const;
+
+    double radius_ = 1;
+    bool has_steps_ = false;
+    std::vector<Feature> features_;
+    std::vector<std::array<std::uint8_t, 512>> perms_;
+    // cube-map grid: 6 * n_ * n_ cells, each with a list of features that may reach it
+    int n_ = 1;
+    std::vector<std::uint32_t> cell_start_;  // size cells + 1
+    std::vector<std::uint32_t> cell_items_;
+};
+
+}  // namespace gm

@@ -1,0 +1,77 @@
+// a posteriori deviation between a mesh and the true surface (Hausdorff distance in both
+// directions, sampled): the measured number the report quotes, never the mesher's own estimate.
+#include "measure.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <mutex>
+
+#include "distance.hpp"
+#include "refine.hpp"
+
+namespace gm {
+
+double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
+                          double& mesh_to_surface, double& surface_to_mesh) {
+    const double R = field.radius();
+    double worst = 0, m2s_max = 0, s2m_max = 0;
+    for (int i = 0; i <= order; ++i) {
+        for (int j = 0; j <= order - i; ++j) {
+            double b1 = static_cast<double>(i) / order, b2 = static_cast<double>(j) / order;
+            Vec3 p = (1 - b1 - b2) * V0 + b1 * V1 + b2 * V2;
+            double pn = norm(p);
+            if (!(pn > 0)) continue;
+            Vec3 u = (1.0 / pn) * p;
+            const std::uint32_t* list;
+            std::size_t cnt;
+            field.candidates(u, list, cnt);
+            double H = field.eval(u, list, cnt, nullptr);
+            double m2s = std::fabs(pn - R - H);
+            // projection and walls can only lower the radial bound: skip them when the bound
+            // cannot raise this triangle's worst value
+            if (m2s > worst) {
+                m2s = std::min(m2s, project_distance(field, p, nullptr, 0, 4));
+                if (field.has_steps()) m2s = std::min(m2s, field.wall_distance(p, list, cnt));
+            }
+            Vec3 S = (R + H) * u;
+            double s2m = norm(S - closest_on_triangle(S, V0, V1, V2));
+            m2s_max = std::max(m2s_max, m2s);
+            s2m_max = std::max(s2m_max, s2m);
+            worst = std::max({worst, m2s, s2m});
+        }
+    }
+    mesh_to_surface = m2s_max;
+    surface_to_mesh = s2m_max;
+    return worst;
+}
+
+Deviation measure(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
+                  std::size_t ntris, int order, int threads, double* per_triangle) {
+    (void)nverts;
+    order = std::max(order, 1);
+    Deviation total;
+    std::mutex mu;
+    parallel_for(ntris, threads, [&](std::size_t b, std::size_t e) {
+        Deviation local;
+        for (std::size_t t = b; t < e; ++t) {
+            Vec3 V[3];
+            for (int k = 0; k < 3; ++k) {
+                const double* p = P + 3 * static_cast<std::size_t>(T[3 * t + static_cast<std::size_t>(k)]);
+                V[k] = {p[0], p[1], p[2]};
+            }
+            double m2s, s2m;
+            double worst = triangle_deviation(field, V[0], V[1], V[2], order, m2s, s2m);
+            local.mesh_to_surface_m = std::max(local.mesh_to_surface_m, m2s);
+            local.surface_to_mesh_m = std::max(local.surface_to_mesh_m, s2m);
+            if (per_triangle) per_triangle[t] = worst;
+        }
+        std::lock_guard<std::mutex> lock(mu);
+        total.mesh_to_surface_m = std::max(total.mesh_to_surface_m, local.mesh_to_surface_m);
+        total.surface_to_mesh_m = std::max(total.surface_to_mesh_m, local.surface_to_mesh_m);
+    });
+    total.max_m = std::max(total.mesh_to_surface_m, total.surface_to_mesh_m);
+    total.samples = static_cast<std::uint64_t>(ntris) * static_cast<std::uint64_t>((order + 1) * (order + 2) / 2);
+    return total;
+}
+
+}  // namespace gm

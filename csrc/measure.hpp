@@ -1,0 +1,30 @@
+// a posteriori measurement of how far a mesh is from the true surface, both ways.
+#pragma once
+
+#include <cstdint>
+#include <vector>
+
+#include "field.hpp"
+
+namespace gm {
+
+struct Deviation {
+    double max_m = 0;             // largest of the two directions
+    double mesh_to_surface_m = 0;  // largest distance from a mesh point to the surface
+    double surface_to_mesh_m = 0;  // largest distance from a surface point to its triangle
+    std::uint64_t samples = 0;
+};
+
+// largest deviation of one triangle over a barycentric grid of the given order
+double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
+                          double& mesh_to_surface, double& surface_to_mesh);
+
+// samples every triangle on a barycentric grid of the given order (order+1)(order+2)/2 points;
+// mesh -> surface by projection onto the surface (and vertical walls), surface -> mesh as the
+// distance from the ground point above each sample to the triangle. per_triangle (optional,
+// size = triangle count) receives each triangle's largest deviation.
+Deviation measure(const Field& field, const double* positions, std::size_t nverts,
+                  const std::uint32_t* triangles, std::size_t ntris, int order, int threads,
+                  double* per_triangle);
+
+}  // namespace gm

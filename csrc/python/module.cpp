@@ -1,0 +1,234 @@
+// pybind11 glue for globemill._core: arrays in and out, GIL released around core work.
+// float64 positions and directions, uint32 triangle indices.
+#include <pybind11/functional.h>
+#include <pybind11/numpy.h>
+#include <pybind11/pybind11.h>
+
+#include <cmath>
+#include <memory>
+#include <stdexcept>
+#include <string>
+#include <vector>
+
+#include "field.hpp"
+#include "measure.hpp"
+#include "refine.hpp"
+
+namespace py = pybind11;
+using namespace gm;
+
+namespace {
+
+using Doubles = py::array_t<double, py::array::c_style | py::array::forcecast>;
+using Indices = py::array_t<std::uint32_t, py::array::c_style | py::array::forcecast>;
+
+// hand a std::vector to numpy without copying: the capsule owns it
+template <class T>
+py::array_t<T> to_numpy(std::vector<T>&& v, std::vector<py::ssize_t> shape) {
+    auto* heap = new std::vector<T>(std::move(v));
+    py::capsule owner(heap, [](void* p) { delete static_cast<std::vector<T>*>(p); });
+    return py::array_t<T>(shape, heap->data(), owner);
+}
+
+void raise_status(Status s, const std::string& msg) {
+    switch (s) {
+        case Status::Ok:
+            return;
+        case Status::InvalidArgument:
+        case Status::NonFinite:
+            throw py::value_error(msg);
+        case Status::BudgetExceeded:
+            throw py::value_error(msg);
+        default:
+            throw std::runtime_error(msg);
+    }
+}
+
+const double* rows3(const Doubles& a, const char* what) {
+    if (a.ndim() != 2 || a.shape(1) != 3)
+        throw py::value_error(std::string(what) + " must have shape (N, 3), got ndim=" +
+                              std::to_string(a.ndim()));
+    return a.data();
+}
+
+// unit directions from the caller's rows; zero or non-finite rows are refused
+std::vector<Vec3> directions(const Doubles& a) {
+    const double* d = rows3(a, "directions");
+    std::size_t n = static_cast<std::size_t>(a.shape(0));
+    std::vector<Vec3> out(n);
+    for (std::size_t i = 0; i < n; ++i) {
+        Vec3 v{d[3 * i], d[3 * i + 1], d[3 * i + 2]};
+        double l = norm(v);
+        if (!std::isfinite(l) || !(l > 0))
+            throw py::value_error("directions[" + std::to_string(i) +
+                                  "] must be a finite non-zero vector");
+        out[i] = (1.0 / l) * v;
+    }
+    return out;
+}
+
+class PyField {
+public:
+    PyField(double radius, const Doubles& features) {
+        if (features.ndim() != 2 || features.shape(1) != kFeatureColumns)
+            throw py::value_error("features must have shape (n, 16)");
+        std::string err;
+        Status s = field_.init(radius, features.data(), static_cast<std::size_t>(features.shape(0)), err);
+        raise_status(s, err);
+    }
+    const Field& field() const { return field_; }
+    double radius() const { return field_.radius(); }
+
+    py::array_t<double> height(const Doubles& dirs) const {
+        std::vector<Vec3> u = directions(dirs);
+        std::vector<double> h(u.size());
+        {
+            py::gil_scoped_release nogil;
+            parallel_for(u.size(), 0, [&](std::size_t b, std::size_t e) {
+                for (std::size_t i = b; i < e; ++i) h[i] = field_.eval(u[i], nullptr);
+            });
+        }
+        return to_numpy(std::move(h), {static_cast<py::ssize_t>(u.size())});
+    }
+
+    py::array_t<double> gradient(const Doubles& dirs) const {
+        std::vector<Vec3> u = directions(dirs);
+        std::vector<double> g(u.size() * 3);
+        {
+            py::gil_scoped_release nogil;
+            parallel_for(u.size(), 0, [&](std::size_t b, std::size_t e) {
+                for (std::size_t i = b; i < e; ++i) {
+                    Vec3 v;
+                    field_.eval(u[i], &v);
+                    g[3 * i] = v.x;
+                    g[3 * i + 1] = v.y;
+                    g[3 * i + 2] = v.z;
+                }
+            });
+        }
+        return to_numpy(std::move(g), {static_cast<py::ssize_t>(u.size()), 3});
+    }
+
+    py::array_t<double> wall_distance(const Doubles& points) const {
+        const double* p = rows3(points, "points");
+        std::size_t n = static_cast<std::size_t>(points.shape(0));
+        std::vector<double> out(n);
+        {
+            py::gil_scoped_release nogil;
+            for (std::size_t i = 0; i < n; ++i) {
+                Vec3 q{p[3 * i], p[3 * i + 1], p[3 * i + 2]};
+                const std::uint32_t* list;
+                std::size_t cnt;
+                field_.candidates(normalize(q), list, cnt);
+                out[i] = field_.wall_distance(q, list, cnt);
+            }
+        }
+        return to_numpy(std::move(out), {static_cast<py::ssize_t>(n)});
+    }
+
+private:
+    Field field_;
+};
+
+py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
+                   int threads, int verify_order, std::function<void(int, std::uint64_t)> progress) {
+    if (verify_order < 0 || verify_order > 32) throw py::value_error("verify_order must be in 0..32");
+    if (mode < 0 || mode > 2) throw py::value_error("offset mode must be 0 (radial), 1 (normal) or 2 (exact)");
+    RefineOptions opt;
+    opt.tolerance_m = tolerance;
+    opt.mode = static_cast<OffsetMode>(mode);
+    opt.max_triangles = max_triangles;
+    opt.threads = threads;
+    opt.verify_order = verify_order;
+    if (progress) {
+        opt.progress = [&progress](int round, std::uint64_t leaves) {
+            py::gil_scoped_acquire gil;
+            progress(round, leaves);
+        };
+    }
+    Mesh mesh;
+    RefineStats stats;
+    std::string err;
+    Status s;
+    {
+        py::gil_scoped_release nogil;
+        s = refine(f.field(), opt, mesh, stats, err);
+    }
+    raise_status(s, err);
+    py::ssize_t nv = static_cast<py::ssize_t>(mesh.positions.size() / 3);
+    py::ssize_t nt = static_cast<py::ssize_t>(mesh.triangles.size() / 3);
+    py::dict out;
+    out["vertices"] = to_numpy(std::move(mesh.positions), {nv, 3});
+    out["directions"] = to_numpy(std::move(mesh.directions), {nv, 3});
+    out["triangles"] = to_numpy(std::move(mesh.triangles), {nt, 3});
+    out["levels"] = to_numpy(std::move(mesh.levels), {nt});
+    py::ssize_t ne = static_cast<py::ssize_t>(mesh.errors.size());
+    out["errors"] = to_numpy(std::move(mesh.errors), {ne});
+    py::dict st;
+    st["estimate"] = stats.estimate;
+    st["tested"] = stats.tested;
+    st["floor_accepted"] = stats.floor_accepted;
+    st["rounds"] = stats.rounds;
+    st["max_level"] = stats.max_level;
+    st["repaired"] = stats.repaired;
+    st["max_error_m"] = stats.max_error_m;
+    st["mesh_to_surface_m"] = stats.mesh_to_surface_m;
+    st["surface_to_mesh_m"] = stats.surface_to_mesh_m;
+    out["stats"] = st;
+    return out;
+}
+
+py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& triangles, int order,
+                    int threads) {
+    const double* v = rows3(vertices, "vertices");
+    if (triangles.ndim() != 2 || triangles.shape(1) != 3)
+        throw py::value_error("triangles must have shape (M, 3)");
+    std::size_t nv = static_cast<std::size_t>(vertices.shape(0));
+    std::size_t nt = static_cast<std::size_t>(triangles.shape(0));
+    const std::uint32_t* t = triangles.data();
+    for (std::size_t i = 0; i < nt * 3; ++i)
+        if (t[i] >= nv) throw py::value_error("triangles refer to a vertex index >= len(vertices)");
+    if (order < 1 || order > 64) throw py::value_error("order must be in 1..64");
+    std::vector<double> per(nt);
+    Deviation d;
+    {
+        py::gil_scoped_release nogil;
+        d = measure(f.field(), v, nv, t, nt, order, threads, per.data());
+    }
+    py::dict out;
+    out["max_m"] = d.max_m;
+    out["mesh_to_surface_m"] = d.mesh_to_surface_m;
+    out["surface_to_mesh_m"] = d.surface_to_mesh_m;
+    out["samples"] = d.samples;
+    out["per_triangle"] = to_numpy(std::move(per), {static_cast<py::ssize_t>(nt)});
+    return out;
+}
+
+}  // namespace
+
+PYBIND11_MODULE(_core, m) {
+    m.doc() = "globemill core: terrain field, adaptive refinement, measurement";
+    py::class_<PyField>(m, "Field")
+        .def(py::init<double, const Doubles&>(), py::arg("radius_m"), py::arg("features"))
+        .def_property_readonly("radius_m", &PyField::radius)
+        .def("height", &PyField::height, py::arg("directions"))
+        .def("gradient", &PyField::gradient, py::arg("directions"))
+        .def("wall_distance", &PyField::wall_distance, py::arg("points"));
+    m.def("refine", &refine_py, py::arg("field"), py::arg("tolerance_m"), py::arg("offset"),
+          py::arg("max_triangles"), py::arg("threads") = 0, py::arg("verify_order") = 3,
+          py::arg("progress") = nullptr);
+    m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
+          py::arg("order") = 6, py::arg("threads") = 0);
+    m.def("estimate_triangles",
+          [](const PyField& f, double tol) { return estimate_triangles(f.field(), tol); },
+          py::arg("field"), py::arg("tolerance_m"));
+    m.def("icosahedron", []() {
+        std::vector<Vec3> v;
+        std::vector<std::uint32_t> f;
+        icosahedron(v, f);
+        std::vector<double> flat;
+        for (auto& x : v) flat.insert(flat.end(), {x.x, x.y, x.z});
+        py::ssize_t nf = static_cast<py::ssize_t>(f.size() / 3);
+        return py::make_tuple(to_numpy(std::move(flat), {12, 3}), to_numpy(std::move(f), {nf, 3}));
+    });
+}

@@ -1,0 +1,548 @@
+// adaptive refinement by newest-vertex bisection with conforming closure:
+// Mitchell 1989 ("A comparison of adaptive refinement techniques for elliptic problems"),
+// Sewell 1972 (the bisection rule), initial refinement edges from a perfect matching of the
+// icosahedron's faces (Mitchell 1991, Binev-Dahmen-DeVore 2004) so closure always terminates.
+//
+// The mesh is a pure function of the spec: triangles are tested level-synchronously (in parallel,
+// results stored by index), then split serially in index order, so the output does not depend on
+// the thread count. A triangle is tested once; one that passes is frozen and never tested again.
+#include "refine.hpp"
+
+#include "measure.hpp"
+
+#include <algorithm>
+#include <atomic>
+#include <cmath>
+#include <thread>
+
+namespace gm {
+namespace {
+
+constexpr std::uint32_t kNone = 0xFFFFFFFFu;
+constexpr int kMaxLevel = 60;
+constexpr double kProbeMargin = 0.8;
+constexpr double kPi = 3.14159265358979323846;
+
+struct Tri {
+    std::uint32_t v[3];   // v[0] newest vertex; refinement edge (base) is v[1]-v[2]
+    std::uint32_t nb[3];  // neighbour across the edge opposite v[i]
+    std::uint32_t child = kNone;
+    std::uint32_t list_off = 0, list_cnt = 0;  // candidate features in the pool
+    std::uint8_t level = 0;
+    std::uint8_t state = 0;  // 0 untested, 1 passed, 2 failed
+    double mid_r = NAN;      // R + H at the base midpoint once known
+    float err = -1, m2s = 0, s2m = 0;  // measured deviation once verified
+};
+
+struct Probe {
+    double b0, b1, b2;
+};
+
+const Probe kProbes[] = {
+    {0.75, 0.25, 0}, {0.5, 0.5, 0}, {0.25, 0.75, 0},  // edge v0-v1
+    {0, 0.75, 0.25}, {0, 0.5, 0.5}, {0, 0.25, 0.75},  // edge v1-v2
+    {0.25, 0, 0.75}, {0.5, 0, 0.5}, {0.75, 0, 0.25},  // edge v2-v0
+    {1.0 / 3, 1.0 / 3, 1.0 / 3},                      // interior
+    {2.0 / 3, 1.0 / 6, 1.0 / 6}, {1.0 / 6, 2.0 / 3, 1.0 / 6}, {1.0 / 6, 1.0 / 6, 2.0 / 3},
+};
+
+class Refiner {
+public:
+    Refiner(const Field& f, const RefineOptions& o) : F(f), opt(o), R(f.radius()) {}
+
+    Status run(Mesh& out, RefineStats& stats, std::string& error);
+
+private:
+    const Field& F;
+    const RefineOptions& opt;
+    const double R;
+    std::vector<Vec3> dir;
+    std::vector<double> rad;
+    std::vector<Tri> tris;
+    std::vector<std::uint32_t> pool;
+    std::uint64_t leaves = 0;
+    std::uint64_t floor_count = 0;
+
+    Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
+    Cap cap_of(const Tri& t) const {
+        Vec3 c = normalize(dir[t.v[0]] + dir[t.v[1]] + dir[t.v[2]]);
+        double cmin = std::min({dot(c, dir[t.v[0]]), dot(c, dir[t.v[1]]), dot(c, dir[t.v[2]])});
+        return {c, std::acos(std::min(1.0, std::max(-1.0, cmin))) + 1e-12};
+    }
+    void assign_list(Tri& t, std::uint32_t parent_off, std::uint32_t parent_cnt);
+    bool needs_split(Tri& t, bool& floored) const;
+    bool at_floor(const Tri& t, double tol) const;
+    Status verify(RefineStats& stats, std::string& error);
+    double midpoint_radius(const Tri& t) const;
+    void split(std::uint32_t t);
+    void bisect_pair(std::uint32_t t, std::uint32_t n);
+    void relink(std::uint32_t x, std::uint32_t from, std::uint32_t to) {
+        if (x == kNone) return;
+        for (auto& e : tris[x].nb)
+            if (e == from) e = to;
+    }
+};
+
+void Refiner::assign_list(Tri& t, std::uint32_t off, std::uint32_t cnt) {
+    Cap cap = cap_of(t);
+    std::uint32_t start = static_cast<std::uint32_t>(pool.size());
+    for (std::uint32_t i = 0; i < cnt; ++i) {
+        std::uint32_t f = pool[off + i];
+        if (F.touches(f, cap)) pool.push_back(f);
+    }
+    std::uint32_t n = static_cast<std::uint32_t>(pool.size()) - start;
+    if (n == cnt) {
+        // same features as the parent: share its list
+        pool.resize(start);
+        t.list_off = off;
+    } else {
+        t.list_off = start;
+    }
+    t.list_cnt = n;
+}
+
+double Refiner::midpoint_radius(const Tri& t) const {
+    Vec3 m = normalize(dir[t.v[1]] + dir[t.v[2]]);
+    return R + F.eval(m, pool.data() + t.list_off, t.list_cnt, nullptr);
+}
+
+bool Refiner::at_floor(const Tri& t, double tol) const {
+    Vec3 P0 = pos(t.v[0]), P1 = pos(t.v[1]), P2 = pos(t.v[2]);
+    double chord = std::max({norm(P1 - P0), norm(P2 - P1), norm(P0 - P2)});
+    double size = 2 * R * cap_of(t).angle;
+    return t.level >= kMaxLevel || (chord < tol / 8 && size < tol / 8);
+}
+
+// the split test of one triangle: does it stay within tolerance of the surface, both ways?
+bool Refiner::needs_split(Tri& t, bool& floored) const {
+    floored = false;
+    // probes sample the triangle; aim a little inside the tolerance so that the denser a
+    // posteriori measurement still finds the mesh within it
+    const double tol = kProbeMargin * opt.tolerance_m;
+    const std::uint32_t* list = pool.data() + t.list_off;
+    const std::size_t cnt = t.list_cnt;
+    Vec3 P0 = pos(t.v[0]), P1 = pos(t.v[1]), P2 = pos(t.v[2]);
+    Cap cap = cap_of(t);
+    double size = 2 * R * cap.angle;  // diameter of the triangle's footprint on the base sphere
+    if (at_floor(t, tol)) {
+        floored = true;
+        return false;
+    }
+    // seeding: a feature narrower than the triangle that could move the ground by more than
+    // the tolerance must be resolved before probes can be trusted to see it
+    for (std::size_t i = 0; i < cnt; ++i) {
+        const Feature& f = F.feature(list[i]);
+        double scale = f.scale_m;
+        if (f.kind == Kind::Noise) {
+            // finest octave whose amplitude matters
+            double a = std::fabs(f.prm[0]), lam = 1.0 / f.prm[1];
+            int oct = static_cast<int>(f.prm[2]);
+            scale = INFINITY;
+            for (int k = 0; k < oct; ++k, a *= f.prm[3], lam *= 0.5)
+                if (a > 0.25 * tol) scale = 0.5 * lam;
+            if (scale < 0.5 * R * cap.angle) return true;
+            continue;
+        }
+        if (f.amp_m > 0.5 * tol && scale < 0.5 * R * cap.angle) return true;
+        // a vertical wall crossing the triangle: the triangle must be narrower than tolerance
+        if (f.step && size > tol && f.amp_m > 0.5 * tol) {
+            bool crosses;
+            if (f.kind == Kind::Mesa) {
+                double th = angle(cap.c, f.c);
+                crosses = std::fabs(th - f.prm[1] / R) <= cap.angle;
+            } else {
+                double x = R * std::atan2(dot(cap.c, f.ax), dot(cap.c, f.c));
+                double y = R * std::atan2(dot(cap.c, f.ay), dot(cap.c, f.c));
+                double hx = f.prm[1], hy = f.prm[2], r = f.prm[3];
+                double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
+                double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
+                double s = std::sqrt(mx * mx + my * my) + std::min(std::max(qx, qy), 0.0) - r;
+                crosses = dot(cap.c, f.c) <= 0 || std::fabs(s) <= 1.5 * R * cap.angle;
+            }
+            if (crosses) return true;
+        }
+    }
+    // probes on the flat triangle, compared with the surface in both directions
+    const bool walls = opt.mode != OffsetMode::Radial && F.has_steps();
+    for (const Probe& pr : kProbes) {
+        Vec3 p = pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2;
+        double pn = norm(p);
+        Vec3 u = (1.0 / pn) * p;
+        Vec3 g;
+        double H = F.eval(u, list, cnt, opt.mode == OffsetMode::Radial ? nullptr : &g);
+        double Fv = pn - R - H;
+        double off;
+        if (opt.mode == OffsetMode::Radial) {
+            if (std::fabs(Fv) > tol) return true;
+            continue;
+        }
+        if (opt.mode == OffsetMode::Normal) {
+            off = std::fabs(Fv) / std::sqrt(1 + dot(g, g) / (pn * pn));
+        } else {
+            off = std::fabs(Fv) <= tol ? std::fabs(Fv) : project_distance(F, p, nullptr, 0, 6);
+        }
+        if (off > tol && walls) off = std::min(off, F.wall_distance(p, list, cnt));
+        if (off > tol) return true;
+        // surface -> mesh: the ground point above the probe against this triangle
+        Vec3 S = (R + H) * u;
+        if (norm(S - closest_on_triangle(S, P0, P1, P2)) > tol) return true;
+    }
+    return false;
+}
+
+void Refiner::split(std::uint32_t t) {
+    if (tris[t].child != kNone) return;
+    // closure: the neighbour across the refinement edge must share it (compatible pair)
+    for (;;) {
+        std::uint32_t n = tris[t].nb[0];
+        if (tris[n].nb[0] == t) break;
+        split(n);
+    }
+    bisect_pair(t, tris[t].nb[0]);
+}
+
+void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
+    Tri T = tris[t], N = tris[n];
+    // the new vertex: same bits whichever side computes it (addition commutes exactly)
+    std::uint32_t m = static_cast<std::uint32_t>(dir.size());
+    dir.push_back(normalize(dir[T.v[1]] + dir[T.v[2]]));
+    double r = !std::isnan(T.mid_r) ? T.mid_r : (!std::isnan(N.mid_r) ? N.mid_r : midpoint_radius(T));
+    rad.push_back(r);
+    std::uint32_t c0 = static_cast<std::uint32_t>(tris.size()), c1 = c0 + 1, n0 = c0 + 2, n1 = c0 + 3;
+    std::uint8_t lv = static_cast<std::uint8_t>(T.level + 1);
+    Tri C0, C1, N0, N1;
+    C0.v[0] = m; C0.v[1] = T.v[2]; C0.v[2] = T.v[0];
+    C1.v[0] = m; C1.v[1] = T.v[0]; C1.v[2] = T.v[1];
+    N0.v[0] = m; N0.v[1] = N.v[2]; N0.v[2] = N.v[0];
+    N1.v[0] = m; N1.v[1] = N.v[0]; N1.v[2] = N.v[1];
+    C0.nb[0] = T.nb[1]; C0.nb[1] = c1; C0.nb[2] = n1;
+    C1.nb[0] = T.nb[2]; C1.nb[1] = n0; C1.nb[2] = c0;
+    N0.nb[0] = N.nb[1]; N0.nb[1] = n1; N0.nb[2] = c1;
+    N1.nb[0] = N.nb[2]; N1.nb[1] = c0; N1.nb[2] = n0;
+    for (Tri* c : {&C0, &C1}) c->level = lv;
+    for (Tri* c : {&N0, &N1}) c->level = static_cast<std::uint8_t>(N.level + 1);
+    assign_list(C0, T.list_off, T.list_cnt);
+    assign_list(C1, T.list_off, T.list_cnt);
+    assign_list(N0, N.list_off, N.list_cnt);
+    assign_list(N1, N.list_off, N.list_cnt);
+    tris.push_back(C0);
+    tris.push_back(C1);
+    tris.push_back(N0);
+    tris.push_back(N1);
+    tris[t].child = c0;
+    tris[n].child = n0;
+    relink(T.nb[1], t, c0);
+    relink(T.nb[2], t, c1);
+    relink(N.nb[1], n, n0);
+    relink(N.nb[2], n, n1);
+    leaves += 2;
+}
+
+bool find_matching(const std::vector<std::array<std::uint32_t, 3>>& adj, std::vector<int>& mate,
+                   std::size_t face) {
+    while (face < adj.size() && mate[face] >= 0) ++face;
+    if (face == adj.size()) return true;
+    for (std::uint32_t o : adj[face]) {
+        if (mate[o] >= 0) continue;
+        mate[face] = static_cast<int>(o);
+        mate[o] = static_cast<int>(face);
+        if (find_matching(adj, mate, face + 1)) return true;
+        mate[face] = mate[o] = -1;
+    }
+    return false;
+}
+
+Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
+    const double tol = opt.tolerance_m;
+    if (!(tol > 0) || !std::isfinite(tol)) {
+        error = "tolerance_m must be a finite number > 0";
+        return Status::InvalidArgument;
+    }
+    stats.estimate = estimate_triangles(F, tol);
+    if (stats.estimate > opt.max_triangles) {
+        error = "tolerance_m=" + std::to_string(tol) + " would need about " +
+                std::to_string(stats.estimate) + " triangles, more than max_triangles=" +
+                std::to_string(opt.max_triangles) + "; raise tolerance_m or max_triangles";
+        return Status::BudgetExceeded;
+    }
+    std::vector<Vec3> iv;
+    std::vector<std::uint32_t> faces;
+    icosahedron(iv, faces);
+    // pair the 20 faces across shared edges: those shared edges are the first refinement edges
+    auto edge_key = [](std::uint32_t a, std::uint32_t b) { return std::min(a, b) * 64u + std::max(a, b); };
+    std::vector<std::array<std::uint32_t, 3>> adj(20);
+    for (std::uint32_t f = 0; f < 20; ++f) {
+        for (int e = 0; e < 3; ++e) {
+            std::uint32_t a = faces[f * 3 + (e + 1) % 3], b = faces[f * 3 + (e + 2) % 3];
+            for (std::uint32_t g = 0; g < 20; ++g) {
+                if (g == f) continue;
+                for (int k = 0; k < 3; ++k) {
+                    std::uint32_t c = faces[g * 3 + (k + 1) % 3], d = faces[g * 3 + (k + 2) % 3];
+                    if (edge_key(a, b) == edge_key(c, d)) adj[f][static_cast<std::size_t>(e)] = g;
+                }
+            }
+        }
+    }
+    std::vector<int> mate(20, -1);
+    if (!find_matching(adj, mate, 0)) {
+        error = "internal: no matching of icosahedron faces";
+        return Status::Internal;
+    }
+    dir = iv;
+    rad.resize(dir.size());
+    for (std::size_t i = 0; i < dir.size(); ++i) rad[i] = R + F.eval(dir[i], nullptr);
+    std::size_t reserve = static_cast<std::size_t>(std::min<std::uint64_t>(stats.estimate, opt.max_triangles)) * 2 + 64;
+    tris.reserve(std::min<std::size_t>(reserve, 1u << 26));
+    for (std::uint32_t f = 0; f < 20; ++f) {
+        // rotate so that v[0] is opposite the matched edge
+        int e = 0;
+        for (int k = 0; k < 3; ++k)
+            if (adj[f][static_cast<std::size_t>(k)] == static_cast<std::uint32_t>(mate[f])) e = k;
+        Tri t;
+        for (int k = 0; k < 3; ++k) t.v[k] = faces[f * 3 + (e + k) % 3];
+        tris.push_back(t);
+    }
+    for (std::uint32_t f = 0; f < 20; ++f) {
+        Tri& t = tris[f];
+        for (int k = 0; k < 3; ++k) {
+            std::uint32_t a = t.v[(k + 1) % 3], b = t.v[(k + 2) % 3];
+            t.nb[k] = kNone;
+            for (std::uint32_t g = 0; g < 20; ++g) {
+                if (g == f) continue;
+                const Tri& o = tris[g];
+                for (int j = 0; j < 3; ++j)
+                    if (edge_key(a, b) == edge_key(o.v[(j + 1) % 3], o.v[(j + 2) % 3])) t.nb[k] = g;
+            }
+        }
+    }
+    // root candidate lists: every feature filtered by the face's cap
+    std::vector<std::uint32_t> all(F.size());
+    for (std::size_t i = 0; i < all.size(); ++i) all[i] = static_cast<std::uint32_t>(i);
+    pool = all;
+    for (auto& t : tris) assign_list(t, 0, static_cast<std::uint32_t>(all.size()));
+    leaves = 20;
+
+    std::vector<std::uint32_t> active(20);
+    for (std::uint32_t i = 0; i < 20; ++i) active[i] = i;
+    std::vector<std::uint8_t> verdict;
+    std::atomic<std::uint64_t> floors{0};
+    int round = 0;
+    while (!active.empty()) {
+        verdict.assign(active.size(), 0);
+        parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
+            std::uint64_t fl = 0;
+            for (std::size_t i = b; i < e; ++i) {
+                Tri& t = tris[active[i]];
+                bool floored;
+                bool bad = needs_split(t, floored);
+                if (floored) ++fl;
+                if (bad) t.mid_r = midpoint_radius(t);
+                t.state = bad ? 2 : 1;
+                verdict[i] = bad ? 1 : 0;
+            }
+            floors += fl;
+        });
+        stats.tested += active.size();
+        std::size_t first_new = tris.size();
+        for (std::size_t i = 0; i < active.size(); ++i) {
+            if (!verdict[i]) continue;
+            split(active[i]);
+            if (leaves > opt.max_triangles) {
+                error = "refinement passed max_triangles=" + std::to_string(opt.max_triangles) +
+                        " at tolerance_m=" + std::to_string(tol) +
+                        "; raise tolerance_m or max_triangles";
+                return Status::BudgetExceeded;
+            }
+        }
+        active.clear();
+        for (std::size_t i = first_new; i < tris.size(); ++i)
+            if (tris[i].child == kNone && tris[i].state == 0) active.push_back(static_cast<std::uint32_t>(i));
+        ++round;
+        if (opt.progress) opt.progress(round, leaves);
+    }
+    stats.rounds = round;
+    stats.floor_accepted = floors.load();
+    if (opt.verify_order > 0) {
+        Status st = verify(stats, error);
+        if (st != Status::Ok) return st;
+    }
+
+    out.directions.resize(dir.size() * 3);
+    out.positions.resize(dir.size() * 3);
+    for (std::size_t i = 0; i < dir.size(); ++i) {
+        Vec3 p = rad[i] * dir[i];
+        out.directions[3 * i] = dir[i].x;
+        out.directions[3 * i + 1] = dir[i].y;
+        out.directions[3 * i + 2] = dir[i].z;
+        out.positions[3 * i] = p.x;
+        out.positions[3 * i + 1] = p.y;
+        out.positions[3 * i + 2] = p.z;
+    }
+    out.triangles.clear();
+    out.levels.clear();
+    out.triangles.reserve(leaves * 3);
+    out.levels.reserve(leaves);
+    out.errors.clear();
+    if (opt.verify_order > 0) out.errors.reserve(leaves);
+    int maxl = 0;
+    for (const Tri& t : tris) {
+        if (t.child != kNone) continue;
+        out.triangles.insert(out.triangles.end(), {t.v[0], t.v[1], t.v[2]});
+        out.levels.push_back(t.level);
+        if (opt.verify_order > 0) {
+            out.errors.push_back(t.err);
+            stats.max_error_m = std::max(stats.max_error_m, static_cast<double>(t.err));
+            stats.mesh_to_surface_m = std::max(stats.mesh_to_surface_m, static_cast<double>(t.m2s));
+            stats.surface_to_mesh_m = std::max(stats.surface_to_mesh_m, static_cast<double>(t.s2m));
+        }
+        maxl = std::max(maxl, static_cast<int>(t.level));
+    }
+    stats.max_level = maxl;
+    return Status::Ok;
+}
+
+// a posteriori verification: every leaf is measured densely against the true surface (both
+// ways, exact projection); a leaf beyond the tolerance is split and its children measured in turn.
+// this makes the measured error, not the probes' estimate, the acceptance criterion.
+Status Refiner::verify(RefineStats& stats, std::string& error) {
+    const double tol = opt.tolerance_m;
+    std::vector<std::uint32_t> check;
+    for (std::size_t i = 0; i < tris.size(); ++i)
+        if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
+    std::vector<std::uint8_t> bad;
+    while (!check.empty()) {
+        bad.assign(check.size(), 0);
+        parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
+            for (std::size_t i = b; i < e; ++i) {
+                Tri& t = tris[check[i]];
+                double m2s, s2m;
+                double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
+                                              opt.verify_order, m2s, s2m);
+                t.err = static_cast<float>(w);
+                t.m2s = static_cast<float>(m2s);
+                t.s2m = static_cast<float>(s2m);
+                if (w > tol && !at_floor(t, tol)) {
+                    bad[i] = 1;
+                    if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
+                }
+            }
+        });
+        std::size_t first_new = tris.size();
+        for (std::size_t i = 0; i < check.size(); ++i) {
+            if (!bad[i]) continue;
+            split(check[i]);
+            ++stats.repaired;
+            if (leaves > opt.max_triangles) {
+                error = "verification passed max_triangles=" + std::to_string(opt.max_triangles) +
+                        "; raise tolerance_m or max_triangles";
+                return Status::BudgetExceeded;
+            }
+        }
+        check.clear();
+        for (std::size_t i = first_new; i < tris.size(); ++i)
+            if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
+    }
+    return Status::Ok;
+}
+
+}  // namespace
+
+void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn) {
+    if (n == 0) return;
+    int hw = static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
+    int nt = threads <= 0 ? hw : threads;
+    const std::size_t block = 256;
+    std::size_t blocks = (n + block - 1) / block;
+    nt = static_cast<int>(std::min<std::size_t>(static_cast<std::size_t>(nt), blocks));
+    if (nt <= 1) {
+        fn(0, n);
+        return;
+    }
+    std::atomic<std::size_t> next{0};
+    auto work = [&]() {
+        for (;;) {
+            std::size_t b = next.fetch_add(1);
+            if (b >= blocks) return;
+            fn(b * block, std::min(n, (b + 1) * block));
+        }
+    };
+    std::vector<std::thread> pool;
+    pool.reserve(static_cast<std::size_t>(nt - 1));
+    for (int i = 1; i < nt; ++i) pool.emplace_back(work);
+    work();
+    for (auto& th : pool) th.join();
+}
+
+void icosahedron(std::vector<Vec3>& v, std::vector<std::uint32_t>& f) {
+    const double phi = (1 + std::sqrt(5.0)) / 2;
+    v = {{-1, phi, 0}, {1, phi, 0}, {-1, -phi, 0}, {1, -phi, 0}, {0, -1, phi}, {0, 1, phi},
+         {0, -1, -phi}, {0, 1, -phi}, {phi, 0, -1}, {phi, 0, 1}, {-phi, 0, -1}, {-phi, 0, 1}};
+    for (auto& x : v) x = normalize(x);
+    f = {0, 11, 5, 0, 5, 1, 0, 1, 7, 0, 7, 10, 0, 10, 11, 1, 5, 9, 5, 11, 4,
+         11, 10, 2, 10, 7, 6, 7, 1, 8, 3, 9, 4, 3, 4, 2, 3, 2, 6, 3, 6, 8,
+         3, 8, 9, 4, 9, 5, 2, 4, 11, 6, 2, 10, 8, 6, 7, 9, 8, 1};
+    // make every face counter-clockwise seen from outside
+    for (std::size_t i = 0; i < f.size(); i += 3) {
+        Vec3 a = v[f[i]], b = v[f[i + 1]], c = v[f[i + 2]];
+        if (dot(cross(b - a, c - a), a + b + c) < 0) std::swap(f[i + 1], f[i + 2]);
+    }
+}
+
+std::uint64_t estimate_triangles(const Field& field, double tol) {
+    const double R = field.radius();
+    auto per_area = [&](double curvature) {
+        // triangles per square metre for a surface of this curvature (1/m) at this tolerance:
+        // an edge h deviates by about curvature * h^2 / 8 (common practice), bisection
+        // triangles have about 0.35 h^2 of area
+        double h2 = 8 * tol / std::max(curvature, 1e-300);
+        return 1.0 / (0.35 * h2);
+    };
+    double total = 4 * kPi * R * R * per_area(1.0 / R);
+    double global_density = 0;
+    for (std::size_t i = 0; i < field.size(); ++i) {
+        const Feature& f = field.feature(i);
+        const double* p = f.prm;
+        switch (f.kind) {
+            case Kind::Hill: {
+                double s = p[1];
+                total += kPi * 4 * s * s * per_area(f.amp_m / (s * s));
+                break;
+            }
+            case Kind::Mesa:
+            case Kind::Block: {
+                double w = f.kind == Kind::Mesa ? p[2] : p[4];
+                double perim = f.kind == Kind::Mesa ? 2 * kPi * p[1] : 4 * (p[1] + p[2]);
+                if (w > 0) total += perim * w * per_area(6 * f.amp_m / (w * w));
+                // a band about a tolerance wide follows the rim however steep it is
+                total += perim / std::max(tol, 1e-300) * 4;
+                break;
+            }
+            case Kind::Crater:
+                total += kPi * p[1] * p[1] * per_area(2 * (p[0] + p[2]) / (p[1] * p[1]));
+                total += 2 * kPi * p[1] / std::max(tol, 1e-300) * 2;
+                break;
+            case Kind::Ridge: {
+                double len = R * angle(f.c, f.c1);
+                total += 2 * len * p[1] * per_area(4 * f.amp_m / (p[1] * p[1]));
+                break;
+            }
+            case Kind::Noise: {
+                double a = std::fabs(p[0]), k = 2 * kPi * p[1], curv = 0;
+                for (int o = 0; o < static_cast<int>(p[2]); ++o, a *= p[3], k *= 2) curv += a * k * k;
+                global_density += per_area(curv);
+                break;
+            }
+        }
+    }
+    total += 4 * kPi * R * R * global_density;
+    if (!(total < 1.8e19)) return ~0ull;
+    return static_cast<std::uint64_t>(total) + 20;
+}
+
+Status refine(const Field& field, const RefineOptions& options, Mesh& out, RefineStats& stats,
+              std::string& error) {
+    Refiner r(field, options);
+    return r.run(out, stats, error);
+}
+
+}  // namespace gm

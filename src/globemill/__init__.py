@@ -1,0 +1,20 @@
+"""globemill: bake the ground of small round game worlds into triangle meshes."""
+
+__version__ = "0.1.0"
+
+from .bake import BakeResult, bake  # noqa: E402
+from .field import Field, field  # noqa: E402
+from .spec import SpecError, WorldSpec, json_schema, load_spec, parse_spec  # noqa: E402
+
+__all__ = [
+    "BakeResult",
+    "Field",
+    "SpecError",
+    "WorldSpec",
+    "__version__",
+    "bake",
+    "field",
+    "json_schema",
+    "load_spec",
+    "parse_spec",
+]

@@ -1,0 +1,131 @@
+"""glTF 2.0 binary (.glb) writer: positions, normals and indices, planet centre at the origin,
+Y up, metres. Layout per the glTF 2.0 specification (Khronos): a 12-byte header, a JSON chunk
+padded with spaces and a BIN chunk padded with zeros, both to 4-byte boundaries."""
+
+from __future__ import annotations
+
+import json
+import struct
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+_ARRAY_BUFFER = 34962
+_ELEMENT_ARRAY_BUFFER = 34963
+_FLOAT = 5126
+_UNSIGNED_SHORT = 5123
+_UNSIGNED_INT = 5125
+
+
+@dataclass
+class Primitive:
+    """One drawable piece: positions (V,3), optional normals (V,3), triangles (T,3)."""
+
+    name: str
+    positions: npt.NDArray[np.float64]
+    triangles: npt.NDArray[np.uint32]
+    normals: npt.NDArray[np.float64] | None = None
+    extras: dict[str, Any] | None = None
+
+
+class _Buffer:
+    def __init__(self) -> None:
+        self.parts: list[bytes] = []
+        self.size = 0
+        self.views: list[dict[str, Any]] = []
+        self.accessors: list[dict[str, Any]] = []
+
+    def add(self, data: bytes, target: int | None) -> int:
+        pad = (-self.size) % 4
+        if pad:
+            self.parts.append(b"\0" * pad)
+            self.size += pad
+        view: dict[str, Any] = {"buffer": 0, "byteOffset": self.size, "byteLength": len(data)}
+        if target is not None:
+            view["target"] = target
+        self.parts.append(data)
+        self.size += len(data)
+        self.views.append(view)
+        return len(self.views) - 1
+
+    def vec3(self, values: npt.NDArray[np.float64]) -> int:
+        arr = np.ascontiguousarray(values, dtype="<f4")
+        view = self.add(arr.tobytes(), _ARRAY_BUFFER)
+        self.accessors.append(
+            {
+                "bufferView": view,
+                "componentType": _FLOAT,
+                "count": int(arr.shape[0]),
+                "type": "VEC3",
+                # bounds of the stored float32 values, as the specification requires
+                "min": [float(x) for x in arr.min(axis=0)] if len(arr) else [0.0, 0.0, 0.0],
+                "max": [float(x) for x in arr.max(axis=0)] if len(arr) else [0.0, 0.0, 0.0],
+            }
+        )
+        return len(self.accessors) - 1
+
+    def indices(self, triangles: npt.NDArray[np.uint32], vertex_count: int) -> int:
+        flat = np.ascontiguousarray(triangles).reshape(-1)
+        small = vertex_count <= 65535
+        arr = flat.astype("<u2" if small else "<u4")
+        view = self.add(arr.tobytes(), _ELEMENT_ARRAY_BUFFER)
+        self.accessors.append(
+            {
+                "bufferView": view,
+                "componentType": _UNSIGNED_SHORT if small else _UNSIGNED_INT,
+                "count": int(arr.shape[0]),
+                "type": "SCALAR",
+                "min": [int(arr.min())] if len(arr) else [0],
+                "max": [int(arr.max())] if len(arr) else [0],
+            }
+        )
+        return len(self.accessors) - 1
+
+
+def glb_bytes(primitives: list[Primitive], *, scene_name: str, extras: dict[str, Any] | None = None) -> bytes:
+    """Encode the primitives as one .glb: a node and a mesh per primitive, in order."""
+    buf = _Buffer()
+    meshes: list[dict[str, Any]] = []
+    nodes: list[dict[str, Any]] = []
+    for prim in primitives:
+        attributes = {"POSITION": buf.vec3(prim.positions)}
+        if prim.normals is not None:
+            attributes["NORMAL"] = buf.vec3(prim.normals)
+        idx = buf.indices(prim.triangles, int(prim.positions.shape[0]))
+        mesh: dict[str, Any] = {
+            "name": prim.name,
+            "primitives": [{"attributes": attributes, "indices": idx, "mode": 4}],
+        }
+        meshes.append(mesh)
+        node: dict[str, Any] = {"name": prim.name, "mesh": len(meshes) - 1}
+        if prim.extras:
+            node["extras"] = prim.extras
+        nodes.append(node)
+    doc: dict[str, Any] = {
+        "asset": {"version": "2.0", "generator": "globemill"},
+        "scene": 0,
+        "scenes": [{"name": scene_name, "nodes": list(range(len(nodes)))}],
+        "nodes": nodes,
+        "meshes": meshes,
+        "accessors": buf.accessors,
+        "bufferViews": buf.views,
+        "buffers": [{"byteLength": buf.size}],
+    }
+    if extras:
+        doc["scenes"][0]["extras"] = extras
+    body = b"".join(buf.parts)
+    body += b"\0" * ((-len(body)) % 4)
+    js = json.dumps(doc, separators=(",", ":"), sort_keys=True).encode("utf-8")
+    js += b" " * ((-len(js)) % 4)
+    total = 12 + 8 + len(js) + 8 + len(body)
+    return b"".join(
+        [
+            struct.pack("<4sII", b"glTF", 2, total),
+            struct.pack("<I4s", len(js), b"JSON"),
+            js,
+            struct.pack("<I4s", len(body), b"BIN\0"),
+            body,
+        ]
+    )
