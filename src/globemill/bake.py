@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field as dc_field
+from dataclasses import dataclass
+from dataclasses import field as dc_field
 from typing import Any
 
 import numpy as np
@@ -46,7 +47,9 @@ class BakeResult:
 
 def _validate_options(tolerance_m: float, offset: str, threads: int, radius_m: float) -> None:
     if not isinstance(tolerance_m, (int, float)) or not np.isfinite(tolerance_m):
-        raise ValueError(f"tolerance_m: must be a finite number (allowed: > 0 and <= radius_m/10), got {tolerance_m!r}")
+        raise ValueError(
+            f"tolerance_m: must be a finite number (allowed: > 0 and <= radius_m/10), got {tolerance_m!r}"
+        )
     if not (0 < tolerance_m <= radius_m / 10):
         raise ValueError(
             f"tolerance_m: must be > 0 and <= radius_m/10 = {radius_m / 10:g}, got {tolerance_m:g}"
@@ -77,7 +80,13 @@ def bake(
     t0 = time.perf_counter()
     fld = Field(spec)
     out = _core.refine(
-        fld._core, tol, OFFSET_MODES[mode], int(spec.max_triangles), threads, MEASURE_ORDER, progress
+        fld._core,
+        tol,
+        OFFSET_MODES[mode],
+        int(spec.max_triangles),
+        threads,
+        MEASURE_ORDER,
+        progress,
     )
     t_refine = time.perf_counter() - t0
     vertices = out["vertices"]

@@ -86,13 +86,21 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
-    b = sub.add_parser("bake", help="mesh a world spec and write .glb + report", epilog=EPILOG,
-                       formatter_class=argparse.RawDescriptionHelpFormatter)
+    b = sub.add_parser(
+        "bake",
+        help="mesh a world spec and write .glb + report",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     b.add_argument("spec", help="world spec (.toml or .json)")
     b.add_argument("-o", "--output", required=True, help="output folder")
     b.add_argument("--tolerance-m", type=float, default=None, help="override the spec's tolerance")
-    b.add_argument("--offset", choices=["radial", "normal", "exact"], default=None,
-                   help="how the mesher measures offset (default: the spec's)")
+    b.add_argument(
+        "--offset",
+        choices=["radial", "normal", "exact"],
+        default=None,
+        help="how the mesher measures offset (default: the spec's)",
+    )
     b.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
     b.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
     b.set_defaults(func=_cmd_bake)

@@ -84,7 +84,9 @@ class _Buffer:
         return len(self.accessors) - 1
 
 
-def glb_bytes(primitives: list[Primitive], *, scene_name: str, extras: dict[str, Any] | None = None) -> bytes:
+def glb_bytes(
+    primitives: list[Primitive], *, scene_name: str, extras: dict[str, Any] | None = None
+) -> bytes:
     """Encode the primitives as one .glb: a node and a mesh per primitive, in order."""
     buf = _Buffer()
     meshes: list[dict[str, Any]] = []
