@@ -48,7 +48,8 @@ class BakeResult:
 def _validate_options(tolerance_m: float, offset: str, threads: int, radius_m: float) -> None:
     if not isinstance(tolerance_m, (int, float)) or not np.isfinite(tolerance_m):
         raise ValueError(
-            f"tolerance_m: must be a finite number (allowed: > 0 and <= radius_m/10), got {tolerance_m!r}"
+            "tolerance_m: must be a finite number (allowed: > 0 and <= radius_m/10), "
+            f"got {tolerance_m!r}"
         )
     if not (0 < tolerance_m <= radius_m / 10):
         raise ValueError(
