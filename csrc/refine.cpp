@@ -106,11 +106,10 @@ double Refiner::midpoint_radius(const Tri& t) const {
     return R + F.eval(m, pool.data() + t.list_off, t.list_cnt, nullptr);
 }
 
+// the size floor: a triangle whose footprint is an eighth of the tolerance across is accepted.
+// only the footprint counts: across a vertical wall the 3d edges stay as tall as the wall.
 bool Refiner::at_floor(const Tri& t, double tol) const {
-    Vec3 P0 = pos(t.v[0]), P1 = pos(t.v[1]), P2 = pos(t.v[2]);
-    double chord = std::max({norm(P1 - P0), norm(P2 - P1), norm(P0 - P2)});
-    double size = 2 * R * cap_of(t).angle;
-    return t.level >= kMaxLevel || (chord < tol / 8 && size < tol / 8);
+    return t.level >= kMaxLevel || 2 * R * cap_of(t).angle < tol / 8;
 }
 
 // the split test of one triangle: does it stay within tolerance of the surface, both ways?
@@ -145,7 +144,7 @@ bool Refiner::needs_split(Tri& t, bool& floored) const {
         }
         if (f.amp_m > 0.5 * tol && scale < 0.5 * R * cap.angle) return true;
         // a vertical wall crossing the triangle: the triangle must be narrower than tolerance
-        if (f.step && size > tol && f.amp_m > 0.5 * tol) {
+        if (f.step && size > 2 * tol && f.amp_m > 0.5 * tol) {
             bool crosses;
             if (f.kind == Kind::Mesa) {
                 double th = angle(cap.c, f.c);

@@ -583,15 +583,33 @@ def _flatten(lists: Sequence[Any]) -> tuple[IntArray, IntArray]:
     return np.repeat(np.arange(len(lists), dtype=np.int64), lens), flat
 
 
+def _improve(
+    exact: Any, qi: IntArray, ti: IntArray, best: FloatArray, best_pt: FloatArray
+) -> None:
+    """Evaluate pairs (query qi, triangle ti) exactly and keep each query's nearest."""
+    d, cp = exact(qi, ti)
+    order = np.lexsort((d, qi))
+    qi, d, cp = qi[order], d[order], cp[order]
+    head = np.ones(qi.size, dtype=bool)
+    head[1:] = qi[1:] != qi[:-1]
+    qi, d, cp = qi[head], d[head], cp[head]
+    win = d < best[qi]
+    best[qi[win]] = d[win]
+    best_pt[qi[win]] = cp[win]
+
+
 def distance_to_mesh(
     vertices: FloatArray, triangles: NDArray[np.integer[Any]], points: FloatArray
 ) -> tuple[FloatArray, FloatArray]:
     """Exact distance from each point to the mesh and the closest mesh point.
 
     Candidates come from scipy ``cKDTree`` trees over triangle centroids, one tree per class of
-    bounding radius (factor 2 apart). A triangle of centroid ``m`` and bounding radius ``r``
-    cannot be closer than ``|q - m| - r``; every triangle that could beat the best distance found
-    so far is found by a ball query and tested exactly, so the result is the true minimum.
+    bounding radius (classes a factor sqrt(2) apart). A triangle lies in the disc of radius
+    ``r`` (its bounding radius) around its centroid ``m`` in its plane, so it is no closer to
+    ``q`` than ``sqrt(h^2 + max(0, s - r)^2)`` (``h``: distance of ``q`` to the plane, ``s``:
+    in-plane distance to ``m``), and no closer than ``|q - m| - r``. Every triangle that could
+    beat the best distance found so far is reached (k nearest centroids per class, a ball query
+    where those do not certify), and tested exactly, so the result is the true minimum.
     """
     v = np.asarray(vertices, dtype=np.float64)
     t = np.asarray(triangles, dtype=np.int64)
@@ -603,48 +621,67 @@ def distance_to_mesh(
             [np.sum((x - centroid) ** 2, axis=1) for x in (a, b, c)],
         )
     )
+    normal = np.cross(b - a, c - a)
+    nn = np.linalg.norm(normal, axis=1)
+    normal = np.where(nn[:, None] > 0, normal / np.where(nn > 0, nn, 1.0)[:, None], 0.0)
 
     def exact(qi: IntArray, ti: IntArray) -> tuple[FloatArray, FloatArray]:
         cp = closest_point_on_triangles(q[qi], a[ti], b[ti], c[ti])
         return np.linalg.norm(q[qi] - cp, axis=1), cp
 
+    def lower(qi: IntArray, ti: IntArray) -> FloatArray:
+        w = q[qi] - centroid[ti]
+        h = np.abs(np.einsum("ij,ij->i", w, normal[ti]))
+        s2 = np.maximum(0.0, np.einsum("ij,ij->i", w, w) - h * h)
+        gap = np.maximum(0.0, np.sqrt(s2) - rad[ti])
+        return np.sqrt(h * h + gap * gap)
+
     # start: the triangle with the nearest centroid
-    tree_all = cKDTree(centroid)
-    _, first = tree_all.query(q, k=1, workers=-1)
-    best, best_pt = exact(np.arange(q.shape[0]), np.asarray(first, dtype=np.int64))
+    best, best_pt = exact(
+        np.arange(q.shape[0]),
+        np.asarray(cKDTree(centroid).query(q, k=1, workers=-1)[1], dtype=np.int64),
+    )
 
     positive = rad[rad > 0]
     rmin = float(positive.min()) if positive.size else 1.0
-    cls = np.floor(np.log2(np.maximum(rad, rmin) / rmin)).astype(np.int64)
+    # classes of bounding radius sqrt(2) apart: within a class, the 8 nearest centroids cover a
+    # disc wider than the class's largest radius, so the k-nearest query usually certifies
+    cls = np.floor(2.0 * np.log2(np.maximum(rad, rmin) / rmin)).astype(np.int64)
+    # queries grouped by their current best, so each group gets a short search bound
+    group_edges = np.concatenate([[0.0], np.geomspace(1e-3, 1e3, 7), [np.inf]])
     for k in np.unique(cls):
         members = np.flatnonzero(cls == k)
         rmax = float(rad[members].max())
         tree = cKDTree(centroid[members])
-        d1, _ = tree.query(q, k=1, workers=-1)
-        sel = np.flatnonzero(d1 - rmax < best)
-        if sel.size == 0:
-            continue
-        for chunk in np.array_split(sel, max(1, sel.size // 200_000)):
-            lists = tree.query_ball_point(
-                q[chunk], best[chunk] + rmax, workers=-1, return_sorted=False
-            )
-            rows, local = _flatten(lists)
-            qi = chunk[rows]
-            ti = members[local]
-            lower = np.linalg.norm(q[qi] - centroid[ti], axis=1) - rad[ti]
-            keep = lower < best[qi]
-            qi, ti = qi[keep], ti[keep]
-            if qi.size == 0:
+        nk = min(8, members.size)
+        for lo, hi in itertools.pairwise(group_edges):
+            grp = np.flatnonzero((best >= lo) & (best < hi))
+            if grp.size == 0:
                 continue
-            d, cp = exact(qi, ti)
-            order = np.lexsort((d, qi))
-            qi, d, cp = qi[order], d[order], cp[order]
-            head = np.ones(qi.size, dtype=bool)
-            head[1:] = qi[1:] != qi[:-1]
-            qi, d, cp = qi[head], d[head], cp[head]
-            win = d < best[qi]
-            best[qi[win]] = d[win]
-            best_pt[qi[win]] = cp[win]
+            ub = rmax + (hi if np.isfinite(hi) else float(best[grp].max()))
+            dk, ik = tree.query(q[grp], k=nk, workers=-1, distance_upper_bound=ub * (1 + 1e-9))
+            dk = np.asarray(dk).reshape(grp.size, nk)
+            ik = np.asarray(ik).reshape(grp.size, nk)
+            found = np.isfinite(dk)
+            r_, c_ = np.nonzero(found & (dk - rmax < best[grp][:, None]))
+            if r_.size:
+                qi, ti = grp[r_], members[ik[r_, c_]]
+                keep = lower(qi, ti) < best[qi]
+                if keep.any():
+                    _improve(exact, qi[keep], ti[keep], best, best_pt)
+            # not certified: a k-th neighbour exists and an unseen triangle might still be closer
+            open_ = grp[found[:, -1] & (dk[:, -1] - rmax < best[grp])]
+            for chunk in np.array_split(open_, max(1, open_.size // 200_000)):
+                if chunk.size == 0:
+                    continue
+                lists = tree.query_ball_point(
+                    q[chunk], best[chunk] + rmax, workers=-1, return_sorted=False
+                )
+                rows, local = _flatten(lists)
+                qi, ti = chunk[rows], members[local]
+                keep = lower(qi, ti) < best[qi]
+                if keep.any():
+                    _improve(exact, qi[keep], ti[keep], best, best_pt)
     return best, best_pt
 
 
@@ -748,18 +785,20 @@ def distance_to_surface(
     surface_points: FloatArray | None = None,
     surface_dirs: FloatArray | None = None,
     surface_tree: cKDTree | None = None,
+    search: bool = True,
 ) -> FloatArray:
     """Distance from each point to the true surface (see the module docstring).
 
     Gauss-Newton projection from the radial direction; with ``surface_points`` /
     ``surface_dirs`` (a dense surface sample and its directions), a point whose nearest sample is
     closer than that result is projected again from the sample's direction; then the walls;
-    then :func:`polish` where the projection did not settle (creases, steps).
+    then :func:`polish` on every point (``search``), or only where the projection did not settle.
+    A settled projection is a local minimum only: below a convex crease both faces have one.
     """
     R = float(radius_m)
     p = np.asarray(points, dtype=np.float64)
     dist, settled = _projected(field, R, p, walls, surface_points, surface_dirs, surface_tree)
-    rough = np.flatnonzero(~settled)
+    rough = np.arange(p.shape[0]) if search else np.flatnonzero(~settled)
     if rough.size:
         dist[rough] = polish(field, R, p[rough], dist[rough])
     return dist
@@ -826,7 +865,7 @@ def _mesh_point_distances(
         # only a local minimum (inside a convex crease both faces have one)
         return polish(field, R, pts[sel], out)
 
-    return _largest_first(d, full)
+    return _largest_first(d, full, batch=64)
 
 
 def measure(

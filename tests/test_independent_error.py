@@ -261,6 +261,69 @@ def test_projection_finds_the_distance_to_an_off_centre_sphere() -> None:
     assert np.max(radial - exact) > 0.5
 
 
+class Lens:
+    """The intersection of the ball |p| <= R and an off-centre ball B (both hold the origin).
+
+    As a height field it is H = min(0, H_B) (docs/terrain.md blend ``min``): a convex crease
+    runs where the two spheres meet, between flat ground and a 45-degree slope.
+    """
+
+    def __init__(self, radius_m: float) -> None:
+        self.R = radius_m
+        self.cb = np.array([-radius_m, 0.0, 0.0])
+        self.rb = math.sqrt(2.0) * radius_m
+        self.b = OffCentreSphere(radius_m, self.cb, self.rb)
+
+    def height(self, dirs: FloatArray) -> FloatArray:
+        return np.minimum(0.0, self.b.height(dirs))
+
+    def gradient(self, dirs: FloatArray) -> FloatArray:
+        # the gradient of min follows the smaller argument (docs/terrain.md "Gradient")
+        return np.where((self.b.height(dirs) < 0.0)[:, None], self.b.gradient(dirs), 0.0)
+
+    def exact_distance(self, p: FloatArray) -> FloatArray:
+        """Distance from points inside the lens to its boundary, by elementary geometry.
+
+        The boundary is (sphere A inside ball B) + (sphere B inside ball A). On a sphere the
+        distance to p grows with the angle from p's foot point, so each part's nearest point
+        is the foot if the foot lies on that part, else on the circle where the spheres meet.
+        """
+        R, cb, rb = self.R, self.cb, self.rb
+        pn = np.linalg.norm(p, axis=1)
+        foot_a = R * p / pn[:, None]
+        wb = p - cb
+        wbn = np.linalg.norm(wb, axis=1)
+        foot_b = cb + rb * wb / wbn[:, None]
+        da = np.where(np.linalg.norm(foot_a - cb, axis=1) <= rb, R - pn, np.inf)
+        db = np.where(np.linalg.norm(foot_b, axis=1) <= R, rb - wbn, np.inf)
+        # circle of the two spheres: plane x = 0 here (|p| = R and |p - cb| = rb give x = 0),
+        # centre at the origin, radius R
+        radial = np.hypot(p[:, 1], p[:, 2])
+        dc = np.hypot(p[:, 0], radial - R)
+        return np.minimum(np.minimum(da, db), dc)
+
+
+def test_distance_below_a_convex_crease_finds_the_nearer_face() -> None:
+    R = 1000.0
+    lens = Lens(R)
+    rng = np.random.default_rng(5)
+    n = 200
+    # under the crease, on the flat side (x < 0), 0.3 .. 0.6 m deep: the radial direction
+    # points at the flat face, but the sloped face is nearer for most of these points
+    x = rng.uniform(-0.25, -0.02, n)
+    y = rng.uniform(-50.0, 50.0, n)
+    depth = rng.uniform(0.3, 0.6, n)
+    u = np.stack([x / R, y / R, np.ones(n)], axis=1)
+    u /= np.linalg.norm(u, axis=1, keepdims=True)
+    p = (R - depth)[:, None] * u
+    exact = lens.exact_distance(p)
+    d = distance_to_surface(lens, R, p)
+    np.testing.assert_allclose(d, exact, atol=1e-5)
+    # a local projection alone stops on the flat face: the search is what finds the slope
+    d_local, _ = project_to_surface(lens, R, p)
+    assert np.max(d_local - exact) > 0.05
+
+
 def test_mesa_wall_is_part_of_the_surface() -> None:
     R, a, h = 1000.0, 40.0, 12.0
     c = _unit(30.0, 10.0)

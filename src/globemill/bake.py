@@ -21,6 +21,11 @@ OFFSET_MODES = {"radial": 0, "normal": 1, "exact": 2}
 # tolerance are split until none is
 MEASURE_ORDER = 3
 
+# the guaranteed smallest angle of any triangle of directions (the mesh projected onto the unit
+# sphere): newest-vertex bisection keeps three planar shape classes with angles >= 30 degrees
+# (Mitchell 1989); projecting the first, large triangles onto the sphere bends that to 24.6
+MIN_ANGLE_DEG = 24.0
+
 Progress = Callable[[int, int], None]
 
 
