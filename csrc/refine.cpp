@@ -12,6 +12,7 @@
 
 #include <algorithm>
 #include <atomic>
+#include <chrono>
 #include <cmath>
 #include <thread>
 
@@ -38,11 +39,10 @@ struct Probe {
     double b0, b1, b2;
 };
 
+// ordered so that a failing triangle tends to fail on an early probe
 const Probe kProbes[] = {
-    {0.75, 0.25, 0}, {0.5, 0.5, 0}, {0.25, 0.75, 0},  // edge v0-v1
-    {0, 0.75, 0.25}, {0, 0.5, 0.5}, {0, 0.25, 0.75},  // edge v1-v2
-    {0.25, 0, 0.75}, {0.5, 0, 0.5}, {0.75, 0, 0.25},  // edge v2-v0
-    {1.0 / 3, 1.0 / 3, 1.0 / 3},                      // interior
+    {1.0 / 3, 1.0 / 3, 1.0 / 3},                                // centroid
+    {0, 0.5, 0.5}, {0.5, 0.5, 0}, {0.5, 0, 0.5},                // edge midpoints
     {2.0 / 3, 1.0 / 6, 1.0 / 6}, {1.0 / 6, 2.0 / 3, 1.0 / 6}, {1.0 / 6, 1.0 / 6, 2.0 / 3},
 };
 
@@ -167,21 +167,24 @@ bool Refiner::needs_split(Tri& t, bool& floored) const {
         Vec3 p = pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2;
         double pn = norm(p);
         Vec3 u = (1.0 / pn) * p;
-        Vec3 g;
-        double H = F.eval(u, list, cnt, opt.mode == OffsetMode::Radial ? nullptr : &g);
+        double H = F.eval(u, list, cnt, nullptr);
         double Fv = pn - R - H;
-        double off;
-        if (opt.mode == OffsetMode::Radial) {
-            if (std::fabs(Fv) > tol) return true;
-            continue;
+        // the radial offset bounds the other two (|grad F| >= 1): only a probe that fails it
+        // needs the gradient or a projection
+        if (std::fabs(Fv) > tol) {
+            if (opt.mode == OffsetMode::Radial) return true;
+            double off;
+            if (opt.mode == OffsetMode::Normal) {
+                Vec3 g;
+                F.eval(u, list, cnt, &g);
+                off = std::fabs(Fv) / std::sqrt(1 + dot(g, g) / (pn * pn));
+            } else {
+                off = project_distance(F, p, nullptr, 0, 6);
+            }
+            if (off > tol && walls) off = std::min(off, F.wall_distance(p, list, cnt));
+            if (off > tol) return true;
         }
-        if (opt.mode == OffsetMode::Normal) {
-            off = std::fabs(Fv) / std::sqrt(1 + dot(g, g) / (pn * pn));
-        } else {
-            off = std::fabs(Fv) <= tol ? std::fabs(Fv) : project_distance(F, p, nullptr, 0, 6);
-        }
-        if (off > tol && walls) off = std::min(off, F.wall_distance(p, list, cnt));
-        if (off > tol) return true;
+        if (opt.mode == OffsetMode::Radial) continue;
         // surface -> mesh: the ground point above the probe against this triangle
         Vec3 S = (R + H) * u;
         if (norm(S - closest_on_triangle(S, P0, P1, P2)) > tol) return true;
@@ -321,6 +324,7 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
     for (auto& t : tris) assign_list(t, 0, static_cast<std::uint32_t>(all.size()));
     leaves = 20;
 
+    auto clock0 = std::chrono::steady_clock::now();
     std::vector<std::uint32_t> active(20);
     for (std::uint32_t i = 0; i < 20; ++i) active[i] = i;
     std::vector<std::uint8_t> verdict;
@@ -361,10 +365,14 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
     }
     stats.rounds = round;
     stats.floor_accepted = floors.load();
+    auto clock1 = std::chrono::steady_clock::now();
+    stats.refine_seconds = std::chrono::duration<double>(clock1 - clock0).count();
     if (opt.verify_order > 0) {
         Status st = verify(stats, error);
         if (st != Status::Ok) return st;
     }
+    stats.verify_seconds =
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - clock1).count();
 
     out.directions.resize(dir.size() * 3);
     out.positions.resize(dir.size() * 3);

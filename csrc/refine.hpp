@@ -30,6 +30,8 @@ struct RefineStats {
     std::uint64_t repaired = 0;        // triangles split because verification found them too far
     int rounds = 0;
     int max_level = 0;
+    double refine_seconds = 0;         // probing and splitting
+    double verify_seconds = 0;         // a posteriori measurement and repair
     double max_error_m = 0;            // measured: largest two-sided deviation of any triangle
     double mesh_to_surface_m = 0;
     double surface_to_mesh_m = 0;

@@ -43,7 +43,15 @@ def test_report_has_the_documented_keys(baked: Path) -> None:
         assert key in rep
     assert rep["planet"] == "pebblemoor"
     lod = rep["lods"][0]
-    for key in ("level", "tolerance_m", "chunks", "vertices", "triangles", "max_error_m", "seconds"):
+    for key in (
+        "level",
+        "tolerance_m",
+        "chunks",
+        "vertices",
+        "triangles",
+        "max_error_m",
+        "seconds",
+    ):
         assert key in lod
     assert lod["tolerance_m"] == 1.0
     assert 0 < lod["max_error_m"] <= 1.0
@@ -66,7 +74,9 @@ def test_glb_header_and_mesh(baked: Path) -> None:
 
 
 def test_same_input_same_bytes(tmp_path: Path, baked: Path) -> None:
-    res = run("bake", str(DEMO), "-o", str(tmp_path), "--tolerance-m", "1.0", "-q", "--threads", "1")
+    res = run(
+        "bake", str(DEMO), "-o", str(tmp_path), "--tolerance-m", "1.0", "-q", "--threads", "1"
+    )
     assert res.returncode == 0, res.stderr
     assert (tmp_path / "pebblemoor.glb").read_bytes() == (baked / "pebblemoor.glb").read_bytes()
 

@@ -132,7 +132,8 @@ private:
 
 py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
                    int threads, int verify_order, std::function<void(int, std::uint64_t)> progress) {
-    if (verify_order < 0 || verify_order > 32) throw py::value_error("verify_order must be in 0..32");
+    if (verify_order == 1 || verify_order < 0 || verify_order > 32)
+        throw py::value_error("verify_order must be 0 (off) or in 2..32");
     if (mode < 0 || mode > 2) throw py::value_error("offset mode must be 0 (radial), 1 (normal) or 2 (exact)");
     RefineOptions opt;
     opt.tolerance_m = tolerance;
@@ -171,6 +172,8 @@ py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t m
     st["rounds"] = stats.rounds;
     st["max_level"] = stats.max_level;
     st["repaired"] = stats.repaired;
+    st["refine_seconds"] = stats.refine_seconds;
+    st["verify_seconds"] = stats.verify_seconds;
     st["max_error_m"] = stats.max_error_m;
     st["mesh_to_surface_m"] = stats.mesh_to_surface_m;
     st["surface_to_mesh_m"] = stats.surface_to_mesh_m;
@@ -188,7 +191,7 @@ py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& tr
     const std::uint32_t* t = triangles.data();
     for (std::size_t i = 0; i < nt * 3; ++i)
         if (t[i] >= nv) throw py::value_error("triangles refer to a vertex index >= len(vertices)");
-    if (order < 1 || order > 64) throw py::value_error("order must be in 1..64");
+    if (order < 2 || order > 32) throw py::value_error("order must be in 2..32");
     std::vector<double> per(nt);
     Deviation d;
     {
