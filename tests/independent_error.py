@@ -113,9 +113,7 @@ def cap_directions(centre: FloatArray, angle: float, n: int) -> FloatArray:
     r = np.sqrt(np.maximum(0.0, 1.0 - z * z))
     phi = i * GOLDEN_ANGLE
     e1, e2 = _frame(np.asarray(centre, dtype=np.float64))
-    return (
-        np.outer(r * np.cos(phi), e1) + np.outer(r * np.sin(phi), e2) + np.outer(z, centre)
-    )
+    return np.outer(r * np.cos(phi), e1) + np.outer(r * np.sin(phi), e2) + np.outer(z, centre)
 
 
 def feature_directions(
@@ -388,9 +386,7 @@ class StepWalls:
         ny: FloatArray,
     ) -> tuple[FloatArray, FloatArray]:
         R = self.radius_m
-        rim = _normalize(
-            c[None, :] + np.tan(qx / R)[:, None] * xa + np.tan(qy / R)[:, None] * ya
-        )
+        rim = _normalize(c[None, :] + np.tan(qx / R)[:, None] * xa + np.tan(qy / R)[:, None] * ya)
         # outward normal: direction of the local displacement (nx, ny), made tangent at the rim
         e = self.eta_m
         ahead = _normalize(
@@ -583,9 +579,7 @@ def _flatten(lists: Sequence[Any]) -> tuple[IntArray, IntArray]:
     return np.repeat(np.arange(len(lists), dtype=np.int64), lens), flat
 
 
-def _improve(
-    exact: Any, qi: IntArray, ti: IntArray, best: FloatArray, best_pt: FloatArray
-) -> None:
+def _improve(exact: Any, qi: IntArray, ti: IntArray, best: FloatArray, best_pt: FloatArray) -> None:
     """Evaluate pairs (query qi, triangle ti) exactly and keep each query's nearest."""
     d, cp = exact(qi, ti)
     order = np.lexsort((d, qi))
@@ -693,9 +687,7 @@ def _grid_nodes(n: int) -> IntArray:
     return np.array([(i, j, n - i - j) for i in range(n + 1) for j in range(n + 1 - i)])
 
 
-def _mesh_samples(
-    v: FloatArray, t: IntArray, n: int
-) -> tuple[FloatArray, IntArray]:
+def _mesh_samples(v: FloatArray, t: IntArray, n: int) -> tuple[FloatArray, IntArray]:
     """Sample points of the barycentric grid of step 1/n on every triangle, shared points once.
 
     Returns the points (P, 3) and, per triangle, the indices of its grid nodes (T, M).
@@ -804,9 +796,7 @@ def distance_to_surface(
     return dist
 
 
-def _largest_first(
-    values: FloatArray, refine: Any, batch: int = 4096
-) -> FloatArray:
+def _largest_first(values: FloatArray, refine: Any, batch: int = 4096) -> FloatArray:
     """Lower upper bounds, largest first, until the maximum is final.
 
     ``values`` are upper bounds; ``refine(indices)`` returns values no larger. Indices are

@@ -97,10 +97,23 @@ class BlockStep:
     """A single width-0 block on H = 0, written from docs/terrain.md "block"."""
 
     def __init__(
-        self, radius_m: float, centre: FloatArray, hx: float, hy: float, r: float, psi: float, h: float
+        self,
+        radius_m: float,
+        centre: FloatArray,
+        hx: float,
+        hy: float,
+        r: float,
+        psi: float,
+        h: float,
     ) -> None:
         self.R, self.c, self.hx, self.hy, self.r, self.psi, self.h = (
-            radius_m, centre, hx, hy, r, psi, h,
+            radius_m,
+            centre,
+            hx,
+            hy,
+            r,
+            psi,
+            h,
         )
         y_hat = np.array([0.0, 1.0, 0.0])
         n = y_hat - (y_hat @ centre) * centre
