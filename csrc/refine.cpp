@@ -19,21 +19,11 @@
 namespace gm {
 namespace {
 
-constexpr std::uint32_t kNone = 0xFFFFFFFFu;
 constexpr int kMaxLevel = 60;
+// probes sample the triangle sparsely: they aim a little inside the tolerance so that the denser
+// a posteriori verification still finds the mesh within it
 constexpr double kProbeMargin = 0.8;
 constexpr double kPi = 3.14159265358979323846;
-
-struct Tri {
-    std::uint32_t v[3];   // v[0] newest vertex; refinement edge (base) is v[1]-v[2]
-    std::uint32_t nb[3];  // neighbour across the edge opposite v[i]
-    std::uint32_t child = kNone;
-    std::uint32_t list_off = 0, list_cnt = 0;  // candidate features in the pool
-    std::uint8_t level = 0;
-    std::uint8_t state = 0;  // 0 untested, 1 passed, 2 failed
-    double mid_r = NAN;      // R + H at the base midpoint once known
-    float err = -1, m2s = 0, s2m = 0;  // measured deviation once verified
-};
 
 struct Probe {
     double b0, b1, b2;
@@ -48,32 +38,31 @@ const Probe kProbes[] = {
 
 class Refiner {
 public:
-    Refiner(const Field& f, const RefineOptions& o) : F(f), opt(o), R(f.radius()) {}
+    Refiner(const Field& f, const RefineOptions& o, Hierarchy& hh)
+        : F(f), opt(o), R(f.radius()), h(hh), dir(hh.dir), rad(hh.rad), tris(hh.nodes), pool(hh.pool) {}
 
-    Status run(Mesh& out, RefineStats& stats, std::string& error);
+    Status run(RefineStats& stats, std::string& error);
 
 private:
     const Field& F;
     const RefineOptions& opt;
     const double R;
-    std::vector<Vec3> dir;
-    std::vector<double> rad;
-    std::vector<Tri> tris;
-    std::vector<std::uint32_t> pool;
+    Hierarchy& h;
+    std::vector<Vec3>& dir;
+    std::vector<double>& rad;
+    std::vector<Node>& tris;
+    std::vector<std::uint32_t>& pool;
     std::uint64_t leaves = 0;
-    std::uint64_t floor_count = 0;
 
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
-    Cap cap_of(const Tri& t) const {
-        Vec3 c = normalize(dir[t.v[0]] + dir[t.v[1]] + dir[t.v[2]]);
-        double cmin = std::min({dot(c, dir[t.v[0]]), dot(c, dir[t.v[1]]), dot(c, dir[t.v[2]])});
-        return {c, std::acos(std::min(1.0, std::max(-1.0, cmin))) + 1e-12};
+    Cap cap_of(const Node& t) const { return node_cap(h, t); }
+    void assign_list(Node& t, std::uint32_t parent_off, std::uint32_t parent_cnt);
+    double critical_tolerance(const Node& t) const;
+    bool wants_split(const Node& t) const {
+        return t.level < opt.min_level || t.tau > opt.tolerance_m;
     }
-    void assign_list(Tri& t, std::uint32_t parent_off, std::uint32_t parent_cnt);
-    bool needs_split(Tri& t, bool& floored) const;
-    bool at_floor(const Tri& t, double tol) const;
     Status verify(RefineStats& stats, std::string& error);
-    double midpoint_radius(const Tri& t) const;
+    double midpoint_radius(const Node& t) const;
     void split(std::uint32_t t);
     void bisect_pair(std::uint32_t t, std::uint32_t n);
     void relink(std::uint32_t x, std::uint32_t from, std::uint32_t to) {
@@ -83,7 +72,7 @@ private:
     }
 };
 
-void Refiner::assign_list(Tri& t, std::uint32_t off, std::uint32_t cnt) {
+void Refiner::assign_list(Node& t, std::uint32_t off, std::uint32_t cnt) {
     Cap cap = cap_of(t);
     std::uint32_t start = static_cast<std::uint32_t>(pool.size());
     for (std::uint32_t i = 0; i < cnt; ++i) {
@@ -101,50 +90,38 @@ void Refiner::assign_list(Tri& t, std::uint32_t off, std::uint32_t cnt) {
     t.list_cnt = n;
 }
 
-double Refiner::midpoint_radius(const Tri& t) const {
+double Refiner::midpoint_radius(const Node& t) const {
     Vec3 m = normalize(dir[t.v[1]] + dir[t.v[2]]);
     return R + F.eval(m, pool.data() + t.list_off, t.list_cnt, nullptr);
 }
 
-// the size floor: a triangle whose footprint is an eighth of the tolerance across is accepted.
-// only the footprint counts: across a vertical wall the 3d edges stay as tall as the wall.
-bool Refiner::at_floor(const Tri& t, double tol) const {
-    return t.level >= kMaxLevel || 2 * R * cap_of(t).angle < tol / 8;
-}
-
-// the split test of one triangle: does it stay within tolerance of the surface, both ways?
-bool Refiner::needs_split(Tri& t, bool& floored) const {
-    floored = false;
-    // probes sample the triangle; aim a little inside the tolerance so that the denser a
-    // posteriori measurement still finds the mesh within it
-    const double tol = kProbeMargin * opt.tolerance_m;
+// the critical tolerance of one triangle: below it, the triangle must be split. one number per
+// triangle serves every level of detail (a level at tolerance e splits exactly the triangles with
+// tau > e, plus their closure), so the coarser levels cost no further probing.
+double Refiner::critical_tolerance(const Node& t) const {
+    if (t.level >= kMaxLevel) return 0;
+    const double m = kProbeMargin;
     const std::uint32_t* list = pool.data() + t.list_off;
     const std::size_t cnt = t.list_cnt;
     Vec3 P0 = pos(t.v[0]), P1 = pos(t.v[1]), P2 = pos(t.v[2]);
     Cap cap = cap_of(t);
-    double size = 2 * R * cap.angle;  // diameter of the triangle's footprint on the base sphere
-    if (at_floor(t, tol)) {
-        floored = true;
-        return false;
-    }
+    const double size = 2 * R * cap.angle;  // diameter of the footprint on the base sphere
+    double tau = 0;
     // seeding: a feature narrower than the triangle that could move the ground by more than
-    // the tolerance must be resolved before probes can be trusted to see it
+    // half the tolerance must be resolved before probes can be trusted to see it
     for (std::size_t i = 0; i < cnt; ++i) {
         const Feature& f = F.feature(list[i]);
-        double scale = f.scale_m;
         if (f.kind == Kind::Noise) {
-            // finest octave whose amplitude matters
+            // each octave narrower than the triangle, weighed by its amplitude
             double a = std::fabs(f.prm[0]), lam = 1.0 / f.prm[1];
             int oct = static_cast<int>(f.prm[2]);
-            scale = INFINITY;
             for (int k = 0; k < oct; ++k, a *= f.prm[3], lam *= 0.5)
-                if (a > 0.25 * tol) scale = 0.5 * lam;
-            if (scale < 0.5 * R * cap.angle) return true;
+                if (lam < R * cap.angle) tau = std::max(tau, 2 * a / m);
             continue;
         }
-        if (f.amp_m > 0.5 * tol && scale < 0.5 * R * cap.angle) return true;
-        // a vertical wall crossing the triangle: the triangle must be narrower than tolerance
-        if (f.step && size > 2 * tol && f.amp_m > 0.5 * tol) {
+        if (f.scale_m < 0.5 * R * cap.angle) tau = std::max(tau, 2 * f.amp_m / m);
+        // a vertical wall crossing the triangle: it must get narrower than two tolerances
+        if (f.step) {
             bool crosses;
             if (f.kind == Kind::Mesa) {
                 double th = angle(cap.c, f.c);
@@ -155,41 +132,43 @@ bool Refiner::needs_split(Tri& t, bool& floored) const {
                 double hx = f.prm[1], hy = f.prm[2], r = f.prm[3];
                 double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
                 double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
-                double s = std::sqrt(mx * mx + my * my) + std::min(std::max(qx, qy), 0.0) - r;
-                crosses = dot(cap.c, f.c) <= 0 || std::fabs(s) <= 1.5 * R * cap.angle;
+                double sd = std::sqrt(mx * mx + my * my) + std::min(std::max(qx, qy), 0.0) - r;
+                crosses = dot(cap.c, f.c) <= 0 || std::fabs(sd) <= 1.5 * R * cap.angle;
             }
-            if (crosses) return true;
+            if (crosses) tau = std::max(tau, std::min(size / 2, 2 * f.amp_m) / m);
         }
     }
-    // probes on the flat triangle, compared with the surface in both directions
+    // probes on the flat triangle against the surface, both ways
     const bool walls = opt.mode != OffsetMode::Radial && F.has_steps();
+    const double cap_tau = std::max(opt.tau_cap, opt.tolerance_m);
     for (const Probe& pr : kProbes) {
+        if (tau > cap_tau) break;  // split at every level: the exact value is not needed
         Vec3 p = pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2;
         double pn = norm(p);
         Vec3 u = (1.0 / pn) * p;
         double H = F.eval(u, list, cnt, nullptr);
-        double Fv = pn - R - H;
-        // the radial offset bounds the other two (|grad F| >= 1): only a probe that fails it
-        // needs the gradient or a projection
-        if (std::fabs(Fv) > tol) {
-            if (opt.mode == OffsetMode::Radial) return true;
-            double off;
+        double radial = std::fabs(pn - R - H);
+        // the radial offset bounds the other two (|grad F| >= 1): only a probe whose radial
+        // offset could raise tau costs a gradient or a projection
+        if (radial / m > tau) {
+            double off = radial;
             if (opt.mode == OffsetMode::Normal) {
                 Vec3 g;
                 F.eval(u, list, cnt, &g);
-                off = std::fabs(Fv) / std::sqrt(1 + dot(g, g) / (pn * pn));
-            } else {
-                off = project_distance(F, p, nullptr, 0, 6);
+                off = radial / std::sqrt(1 + dot(g, g) / (pn * pn));
+            } else if (opt.mode == OffsetMode::Exact) {
+                off = std::min(radial, project_distance(F, p, nullptr, 0, 6));
             }
-            if (off > tol && walls) off = std::min(off, F.wall_distance(p, list, cnt));
-            if (off > tol) return true;
+            if (walls && off / m > tau) off = std::min(off, F.wall_distance(p, list, cnt));
+            tau = std::max(tau, off / m);
         }
         if (opt.mode == OffsetMode::Radial) continue;
         // surface -> mesh: the ground point above the probe against this triangle
         Vec3 S = (R + H) * u;
-        if (norm(S - closest_on_triangle(S, P0, P1, P2)) > tol) return true;
+        tau = std::max(tau, norm(S - closest_on_triangle(S, P0, P1, P2)) / m);
     }
-    return false;
+    // the size floor: a triangle an eighth of the (probe) tolerance across is never split
+    return std::min(tau, 8 * size / m);
 }
 
 void Refiner::split(std::uint32_t t) {
@@ -204,15 +183,17 @@ void Refiner::split(std::uint32_t t) {
 }
 
 void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
-    Tri T = tris[t], N = tris[n];
+    Node T = tris[t], N = tris[n];
     // the new vertex: same bits whichever side computes it (addition commutes exactly)
     std::uint32_t m = static_cast<std::uint32_t>(dir.size());
     dir.push_back(normalize(dir[T.v[1]] + dir[T.v[2]]));
     double r = !std::isnan(T.mid_r) ? T.mid_r : (!std::isnan(N.mid_r) ? N.mid_r : midpoint_radius(T));
     rad.push_back(r);
+    h.vparent.push_back(std::min(T.v[1], T.v[2]));
+    h.vparent.push_back(std::max(T.v[1], T.v[2]));
     std::uint32_t c0 = static_cast<std::uint32_t>(tris.size()), c1 = c0 + 1, n0 = c0 + 2, n1 = c0 + 3;
     std::uint8_t lv = static_cast<std::uint8_t>(T.level + 1);
-    Tri C0, C1, N0, N1;
+    Node C0, C1, N0, N1;
     C0.v[0] = m; C0.v[1] = T.v[2]; C0.v[2] = T.v[0];
     C1.v[0] = m; C1.v[1] = T.v[0]; C1.v[2] = T.v[1];
     N0.v[0] = m; N0.v[1] = N.v[2]; N0.v[2] = N.v[0];
@@ -221,8 +202,20 @@ void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
     C1.nb[0] = T.nb[2]; C1.nb[1] = n0; C1.nb[2] = c0;
     N0.nb[0] = N.nb[1]; N0.nb[1] = n1; N0.nb[2] = c1;
     N1.nb[0] = N.nb[2]; N1.nb[1] = c0; N1.nb[2] = n0;
-    for (Tri* c : {&C0, &C1}) c->level = lv;
-    for (Tri* c : {&N0, &N1}) c->level = static_cast<std::uint8_t>(N.level + 1);
+    for (Node* c : {&C0, &C1}) {
+        c->level = lv;
+        c->parent = t;
+    }
+    for (Node* c : {&N0, &N1}) {
+        c->level = static_cast<std::uint8_t>(N.level + 1);
+        c->parent = n;
+    }
+    // chunks: a node at the chunk level starts a chunk; deeper nodes inherit it
+    for (Node* c : {&C0, &C1, &N0, &N1}) {
+        const Node& par = (c == &C0 || c == &C1) ? T : N;
+        if (c->level == opt.min_level) c->chunk = h.chunks++;
+        else c->chunk = par.chunk;
+    }
     assign_list(C0, T.list_off, T.list_cnt);
     assign_list(C1, T.list_off, T.list_cnt);
     assign_list(N0, N.list_off, N.list_cnt);
@@ -233,6 +226,8 @@ void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
     tris.push_back(N1);
     tris[t].child = c0;
     tris[n].child = n0;
+    tris[t].pair = n;
+    tris[n].pair = t;
     relink(T.nb[1], t, c0);
     relink(T.nb[2], t, c1);
     relink(N.nb[1], n, n0);
@@ -254,13 +249,18 @@ bool find_matching(const std::vector<std::array<std::uint32_t, 3>>& adj, std::ve
     return false;
 }
 
-Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
+Status Refiner::run(RefineStats& stats, std::string& error) {
     const double tol = opt.tolerance_m;
     if (!(tol > 0) || !std::isfinite(tol)) {
         error = "tolerance_m must be a finite number > 0";
         return Status::InvalidArgument;
     }
-    stats.estimate = estimate_triangles(F, tol);
+    if (opt.min_level < 0 || opt.min_level > 20) {
+        error = "chunk level must be in 0..10";
+        return Status::InvalidArgument;
+    }
+    stats.estimate = std::max<std::uint64_t>(estimate_triangles(F, tol),
+                                             20ull << static_cast<unsigned>(opt.min_level));
     if (stats.estimate > opt.max_triangles) {
         error = "tolerance_m=" + std::to_string(tol) + " would need about " +
                 std::to_string(stats.estimate) + " triangles, more than max_triangles=" +
@@ -291,6 +291,8 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
         return Status::Internal;
     }
     dir = iv;
+    h.radius = R;
+    h.vparent.assign(2 * dir.size(), kNone);
     rad.resize(dir.size());
     for (std::size_t i = 0; i < dir.size(); ++i) rad[i] = R + F.eval(dir[i], nullptr);
     std::size_t reserve = static_cast<std::size_t>(std::min<std::uint64_t>(stats.estimate, opt.max_triangles)) * 2 + 64;
@@ -300,18 +302,19 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
         int e = 0;
         for (int k = 0; k < 3; ++k)
             if (adj[f][static_cast<std::size_t>(k)] == static_cast<std::uint32_t>(mate[f])) e = k;
-        Tri t;
+        Node t;
         for (int k = 0; k < 3; ++k) t.v[k] = faces[f * 3 + (e + k) % 3];
+        if (opt.min_level == 0) t.chunk = h.chunks++;
         tris.push_back(t);
     }
     for (std::uint32_t f = 0; f < 20; ++f) {
-        Tri& t = tris[f];
+        Node& t = tris[f];
         for (int k = 0; k < 3; ++k) {
             std::uint32_t a = t.v[(k + 1) % 3], b = t.v[(k + 2) % 3];
             t.nb[k] = kNone;
             for (std::uint32_t g = 0; g < 20; ++g) {
                 if (g == f) continue;
-                const Tri& o = tris[g];
+                const Node& o = tris[g];
                 for (int j = 0; j < 3; ++j)
                     if (edge_key(a, b) == edge_key(o.v[(j + 1) % 3], o.v[(j + 2) % 3])) t.nb[k] = g;
             }
@@ -327,29 +330,23 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
     auto clock0 = std::chrono::steady_clock::now();
     std::vector<std::uint32_t> active(20);
     for (std::uint32_t i = 0; i < 20; ++i) active[i] = i;
-    std::vector<std::uint8_t> verdict;
-    std::atomic<std::uint64_t> floors{0};
     int round = 0;
     while (!active.empty()) {
-        verdict.assign(active.size(), 0);
+        // test every new triangle in parallel; each writes only its own node
         parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
-            std::uint64_t fl = 0;
             for (std::size_t i = b; i < e; ++i) {
-                Tri& t = tris[active[i]];
-                bool floored;
-                bool bad = needs_split(t, floored);
-                if (floored) ++fl;
-                if (bad) t.mid_r = midpoint_radius(t);
-                t.state = bad ? 2 : 1;
-                verdict[i] = bad ? 1 : 0;
+                Node& t = tris[active[i]];
+                t.tau = critical_tolerance(t);
+                t.tested = 1;
+                if (wants_split(t)) t.mid_r = midpoint_radius(t);
             }
-            floors += fl;
         });
         stats.tested += active.size();
+        // split serially in index order: the result does not depend on the thread count
         std::size_t first_new = tris.size();
-        for (std::size_t i = 0; i < active.size(); ++i) {
-            if (!verdict[i]) continue;
-            split(active[i]);
+        for (std::uint32_t id : active) {
+            if (!wants_split(tris[id])) continue;
+            split(id);
             if (leaves > opt.max_triangles) {
                 error = "refinement passed max_triangles=" + std::to_string(opt.max_triangles) +
                         " at tolerance_m=" + std::to_string(tol) +
@@ -359,12 +356,11 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
         }
         active.clear();
         for (std::size_t i = first_new; i < tris.size(); ++i)
-            if (tris[i].child == kNone && tris[i].state == 0) active.push_back(static_cast<std::uint32_t>(i));
+            if (tris[i].child == kNone) active.push_back(static_cast<std::uint32_t>(i));
         ++round;
         if (opt.progress) opt.progress(round, leaves);
     }
     stats.rounds = round;
-    stats.floor_accepted = floors.load();
     auto clock1 = std::chrono::steady_clock::now();
     stats.refine_seconds = std::chrono::duration<double>(clock1 - clock0).count();
     if (opt.verify_order > 0) {
@@ -373,37 +369,9 @@ Status Refiner::run(Mesh& out, RefineStats& stats, std::string& error) {
     }
     stats.verify_seconds =
         std::chrono::duration<double>(std::chrono::steady_clock::now() - clock1).count();
-
-    out.directions.resize(dir.size() * 3);
-    out.positions.resize(dir.size() * 3);
-    for (std::size_t i = 0; i < dir.size(); ++i) {
-        Vec3 p = rad[i] * dir[i];
-        out.directions[3 * i] = dir[i].x;
-        out.directions[3 * i + 1] = dir[i].y;
-        out.directions[3 * i + 2] = dir[i].z;
-        out.positions[3 * i] = p.x;
-        out.positions[3 * i + 1] = p.y;
-        out.positions[3 * i + 2] = p.z;
-    }
-    out.triangles.clear();
-    out.levels.clear();
-    out.triangles.reserve(leaves * 3);
-    out.levels.reserve(leaves);
-    out.errors.clear();
-    if (opt.verify_order > 0) out.errors.reserve(leaves);
     int maxl = 0;
-    for (const Tri& t : tris) {
-        if (t.child != kNone) continue;
-        out.triangles.insert(out.triangles.end(), {t.v[0], t.v[1], t.v[2]});
-        out.levels.push_back(t.level);
-        if (opt.verify_order > 0) {
-            out.errors.push_back(t.err);
-            stats.max_error_m = std::max(stats.max_error_m, static_cast<double>(t.err));
-            stats.mesh_to_surface_m = std::max(stats.mesh_to_surface_m, static_cast<double>(t.m2s));
-            stats.surface_to_mesh_m = std::max(stats.surface_to_mesh_m, static_cast<double>(t.s2m));
-        }
-        maxl = std::max(maxl, static_cast<int>(t.level));
-    }
+    for (const Node& t : tris)
+        if (t.child == kNone) maxl = std::max(maxl, static_cast<int>(t.level));
     stats.max_level = maxl;
     return Status::Ok;
 }
@@ -421,14 +389,14 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
         bad.assign(check.size(), 0);
         parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
             for (std::size_t i = b; i < e; ++i) {
-                Tri& t = tris[check[i]];
+                Node& t = tris[check[i]];
                 double m2s, s2m;
                 double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
                                               opt.verify_order, m2s, s2m);
                 t.err = static_cast<float>(w);
                 t.m2s = static_cast<float>(m2s);
                 t.s2m = static_cast<float>(s2m);
-                if (w > tol && !at_floor(t, tol)) {
+                if (w > tol && !at_floor(h, t, tol)) {
                     bad[i] = 1;
                     if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
                 }
@@ -546,10 +514,57 @@ std::uint64_t estimate_triangles(const Field& field, double tol) {
     return static_cast<std::uint64_t>(total) + 20;
 }
 
+Cap node_cap(const Hierarchy& h, const Node& t) {
+    Vec3 c = normalize(h.dir[t.v[0]] + h.dir[t.v[1]] + h.dir[t.v[2]]);
+    double cmin = std::min({dot(c, h.dir[t.v[0]]), dot(c, h.dir[t.v[1]]), dot(c, h.dir[t.v[2]])});
+    return {c, std::acos(std::min(1.0, std::max(-1.0, cmin))) + 1e-12};
+}
+
+// the size floor: a triangle whose footprint is an eighth of the tolerance across is accepted.
+// only the footprint counts: across a vertical wall the 3d edges stay as tall as the wall.
+bool at_floor(const Hierarchy& h, const Node& t, double tol) {
+    return t.level >= kMaxLevel || 2 * h.radius * node_cap(h, t).angle < tol / 8;
+}
+
+Status build_hierarchy(const Field& field, const RefineOptions& options, Hierarchy& h,
+                       RefineStats& stats, std::string& error) {
+    h = Hierarchy{};
+    h.min_level = options.min_level;
+    Refiner r(field, options, h);
+    return r.run(stats, error);
+}
+
+void leaves_mesh(const Hierarchy& h, Mesh& out) {
+    const std::size_t nv = h.dir.size();
+    out.directions.resize(nv * 3);
+    out.positions.resize(nv * 3);
+    for (std::size_t i = 0; i < nv; ++i) {
+        Vec3 p = h.rad[i] * h.dir[i];
+        out.directions[3 * i] = h.dir[i].x;
+        out.directions[3 * i + 1] = h.dir[i].y;
+        out.directions[3 * i + 2] = h.dir[i].z;
+        out.positions[3 * i] = p.x;
+        out.positions[3 * i + 1] = p.y;
+        out.positions[3 * i + 2] = p.z;
+    }
+    out.triangles.clear();
+    out.levels.clear();
+    out.errors.clear();
+    for (const Node& t : h.nodes) {
+        if (t.child != kNone) continue;
+        out.triangles.insert(out.triangles.end(), {t.v[0], t.v[1], t.v[2]});
+        out.levels.push_back(t.level);
+        out.errors.push_back(t.err);
+    }
+}
+
 Status refine(const Field& field, const RefineOptions& options, Mesh& out, RefineStats& stats,
               std::string& error) {
-    Refiner r(field, options);
-    return r.run(out, stats, error);
+    Hierarchy h;
+    Status s = build_hierarchy(field, options, h, stats, error);
+    if (s != Status::Ok) return s;
+    leaves_mesh(h, out);
+    return Status::Ok;
 }
 
 }  // namespace gm

@@ -1,4 +1,4 @@
-// adaptive refinement of the icosahedron down to a tolerance.
+// adaptive refinement of the icosahedron: a bisection hierarchy that holds every level of detail.
 #pragma once
 
 #include <cstdint>
@@ -11,13 +11,19 @@
 
 namespace gm {
 
+constexpr std::uint32_t kNone = 0xFFFFFFFFu;
+
 struct RefineOptions {
-    double tolerance_m = 1;
+    double tolerance_m = 1;  // the finest tolerance the hierarchy must reach
     OffsetMode mode = OffsetMode::Normal;
     std::uint64_t max_triangles = 8000000;
-    int threads = 0;  // 0: all hardware threads
-    // verify every triangle a posteriori on a barycentric grid of this order and split those
-    // found beyond the tolerance (0: no verification)
+    int threads = 0;    // 0: all hardware threads
+    int min_level = 0;  // every triangle above this bisection level is split (chunks: 2c)
+    // the coarsest tolerance any level will ask for: critical tolerances above it need not be
+    // known exactly, so a triangle's probing stops once it passes (0: the tolerance itself)
+    double tau_cap = 0;
+    // verify every leaf a posteriori on a barycentric grid of this order and split those found
+    // beyond the tolerance (0: no verification)
     int verify_order = 3;
     // called between rounds on the calling thread: (round, leaf triangles so far)
     std::function<void(int, std::uint64_t)> progress;
@@ -26,15 +32,42 @@ struct RefineOptions {
 struct RefineStats {
     std::uint64_t estimate = 0;        // triangles predicted before refining
     std::uint64_t tested = 0;          // triangle tests run (each triangle at most once)
-    std::uint64_t floor_accepted = 0;  // triangles accepted only because they reached the size floor
     std::uint64_t repaired = 0;        // triangles split because verification found them too far
     int rounds = 0;
     int max_level = 0;
-    double refine_seconds = 0;         // probing and splitting
-    double verify_seconds = 0;         // a posteriori measurement and repair
-    double max_error_m = 0;            // measured: largest two-sided deviation of any triangle
-    double mesh_to_surface_m = 0;
-    double surface_to_mesh_m = 0;
+    double refine_seconds = 0;  // probing and splitting
+    double verify_seconds = 0;  // a posteriori measurement and repair
+};
+
+// one triangle of the bisection hierarchy
+struct Node {
+    std::uint32_t v[3];   // v[0] newest vertex; refinement edge (base) is v[1]-v[2]
+    std::uint32_t nb[3];  // neighbour across the edge opposite v[i] (among the finest leaves)
+    std::uint32_t child = kNone;   // children at child, child + 1
+    std::uint32_t parent = kNone;
+    std::uint32_t pair = kNone;    // the node bisected together with this one (same new vertex)
+    std::uint32_t chunk = kNone;   // ancestor at the chunk level, numbered in node order
+    std::uint32_t list_off = 0, list_cnt = 0;  // candidate features in the pool
+    std::uint8_t level = 0;
+    std::uint8_t tested = 0;
+    double mid_r = NAN;  // R + H at the base midpoint once known
+    // critical tolerance: the probes and feature seeding want this node split at every
+    // tolerance below tau (0: never)
+    double tau = 0;
+    float err = -1, m2s = 0, s2m = 0;  // measured deviation once verified (-1: not yet)
+};
+
+// the whole bisection hierarchy; every level of detail is a set of its nodes
+struct Hierarchy {
+    double radius = 1;
+    std::vector<Vec3> dir;                // unit direction per vertex
+    std::vector<double> rad;              // R + H per vertex
+    std::vector<std::uint32_t> vparent;   // 2 per vertex: the edge it bisects (kNone: corner)
+    std::vector<Node> nodes;
+    std::vector<std::uint32_t> pool;      // candidate feature lists
+    std::uint32_t chunks = 0;
+    int min_level = 0;  // the chunk level: every node above it is split
+    Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
 };
 
 struct Mesh {
@@ -48,6 +81,14 @@ struct Mesh {
 // triangles the tolerance will roughly need (cheap, analytic; used to refuse blown budgets early)
 std::uint64_t estimate_triangles(const Field& field, double tolerance_m);
 
+// build the hierarchy down to options.tolerance_m (probes, seeding, closure, verification)
+Status build_hierarchy(const Field& field, const RefineOptions& options, Hierarchy& h,
+                       RefineStats& stats, std::string& error);
+
+// the finest leaves of a hierarchy as a mesh
+void leaves_mesh(const Hierarchy& h, Mesh& out);
+
+// build and take the finest leaves in one call
 Status refine(const Field& field, const RefineOptions& options, Mesh& out, RefineStats& stats,
               std::string& error);
 
@@ -56,5 +97,9 @@ void icosahedron(std::vector<Vec3>& vertices, std::vector<std::uint32_t>& faces)
 
 // run fn(begin, end) over [0, n) in blocks on up to `threads` threads (0: hardware threads)
 void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn);
+
+// a node's footprint cap and the size floor shared by refinement and level extraction
+Cap node_cap(const Hierarchy& h, const Node& t);
+bool at_floor(const Hierarchy& h, const Node& t, double tolerance_m);
 
 }  // namespace gm

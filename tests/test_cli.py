@@ -32,6 +32,7 @@ def baked(tmp_path_factory: pytest.TempPathFactory) -> Path:
 
 def test_bake_writes_the_named_files(baked: Path) -> None:
     assert sorted(p.name for p in baked.iterdir()) == [
+        "pebblemoor.collision.glb",
         "pebblemoor.glb",
         "pebblemoor.report.json",
     ]
@@ -55,6 +56,16 @@ def test_report_has_the_documented_keys(baked: Path) -> None:
         assert key in lod
     assert lod["tolerance_m"] == 1.0
     assert 0 < lod["max_error_m"] <= 1.0
+    # levels: tolerance_m * ratio^k, each measured within its own tolerance
+    ratio = 2.0
+    for k, lv in enumerate(rep["lods"]):
+        assert lv["level"] == k
+        assert lv["tolerance_m"] == 1.0 * ratio**k
+        assert 0 < lv["max_error_m"] <= lv["tolerance_m"]
+    col = rep["collision"]
+    for key in ("tolerance_m", "triangles", "max_error_m"):
+        assert key in col
+    assert col["max_error_m"] <= col["tolerance_m"]
 
 
 def test_glb_header_and_mesh(baked: Path) -> None:
@@ -65,7 +76,9 @@ def test_glb_header_and_mesh(baked: Path) -> None:
     assert len(data) % 4 == 0
     rep = json.loads((baked / "pebblemoor.report.json").read_text())
     scene = trimesh.load(baked / "pebblemoor.glb", force="scene", process=False)
-    meshes = list(scene.geometry.values())
+    # the scene graph holds each chunk's finest level (coarser ones hang off MSFT_lod)
+    meshes = scene.dump()
+    assert len(meshes) == rep["lods"][0]["chunks"]
     assert sum(len(m.faces) for m in meshes) == rep["lods"][0]["triangles"]
     v = np.concatenate([m.vertices for m in meshes])
     r = np.linalg.norm(v, axis=1)

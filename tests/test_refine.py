@@ -58,8 +58,8 @@ def test_icosahedron_counts() -> None:
 def test_sphere_chords_follow_the_sagitta_formula() -> None:
     spec = _world()
     for tol in (5.0, 1.0, 0.25):
-        r = globemill.bake(spec, tolerance_m=tol)
-        v, t = r.vertices, r.triangles
+        r = globemill.bake(spec, tolerance_m=tol, levels=1, collision=False)
+        v, t = r.mesh()
         R = spec.radius_m
         np.testing.assert_allclose(np.linalg.norm(v, axis=1), R, rtol=1e-12)
         e = _edges(t)
@@ -91,8 +91,8 @@ def test_sphere_area_and_volume_converge() -> None:
     area_exact, vol_exact = 4 * math.pi * R**2, 4 / 3 * math.pi * R**3  # handbook formulas
     deficits = []
     for tol in (8.0, 2.0, 0.5, 0.125):
-        r = globemill.bake(spec, tolerance_m=tol)
-        mesh = trimesh.Trimesh(r.vertices, r.triangles, process=False)
+        r = globemill.bake(spec, tolerance_m=tol, levels=1, collision=False)
+        mesh = trimesh.Trimesh(*r.mesh(), process=False)
         # an inscribed mesh within tol of the sphere: the shell between them is at most
         # area * tol thick (volume) and the area deficit is below the sphere's
         assert 0 < vol_exact - mesh.volume <= area_exact * tol
@@ -106,7 +106,7 @@ def test_a_gaussian_far_narrower_than_the_base_triangles_is_found() -> None:
     # icosahedron edges on a 1000 m world are about 1100 m; this hill is 3 m wide
     hill = {"kind": "hill", "lat_deg": 12.3, "lon_deg": -47.1, "amplitude_m": 4.0, "sigma_m": 1.5}
     spec = _world([hill], tolerance_m=0.2)
-    r = globemill.bake(spec)
+    r = globemill.bake(spec, levels=1, collision=False)
     peak_dir = np.array(globemill.spec.unit_vector(12.3, -47.1))
     top = r.vertices @ peak_dir
     # some vertex sits within tolerance of the summit R + 4 m
@@ -127,8 +127,8 @@ def test_normal_offset_beats_radial_on_a_mesa_wall(wall_m: float, min_ratio: flo
         "blend": "max",
     }
     spec = _world([mesa], tolerance_m=0.5)
-    normal = globemill.bake(spec, offset="normal")
-    radial = globemill.bake(spec, offset="radial")
+    normal = globemill.bake(spec, offset="normal", levels=1, collision=False)
+    radial = globemill.bake(spec, offset="radial", levels=1, collision=False)
     nl, rl = normal.report["lods"][0], radial.report["lods"][0]
     # both are measured the same way and both meet the tolerance
     assert nl["max_error_m"] <= 0.5 and rl["max_error_m"] <= 0.5
@@ -143,13 +143,15 @@ def test_same_mesh_whatever_the_thread_count() -> None:
     c = globemill.bake(spec, tolerance_m=2.0, threads=7)
     for other in (b, c):
         assert a.vertices.tobytes() == other.vertices.tobytes()
-        assert a.triangles.tobytes() == other.triangles.tobytes()
-        assert a.errors.tobytes() == other.errors.tobytes()
+        for la, lb in zip(a.levels, other.levels, strict=True):
+            assert la.triangles.tobytes() == lb.triangles.tobytes()
+            assert la.errors.tobytes() == lb.errors.tobytes()
+            assert la.morph.tobytes() == lb.morph.tobytes()
 
 
 def test_each_triangle_is_tested_at_most_once() -> None:
     spec = globemill.load_spec("examples/pebblemoor.toml")
-    r = globemill.bake(spec, tolerance_m=2.0)
+    r = globemill.bake(spec, tolerance_m=2.0, levels=1, collision=False, chunk_level=0)
     leaves = len(r.triangles)
     # pairs are bisected together: every bisection adds 4 nodes and 2 leaves, so the tree has
     # 2 * leaves - 20 nodes; frozen triangles are never tested again, so tests <= nodes
@@ -161,7 +163,7 @@ def test_minimum_angle_bound() -> None:
     (60-60-60, 30-60-90, 30-30-120: Mitchell 1989), so every angle is >= 30 degrees there; on the
     unit sphere (chord triangles of the directions) projection bends them by a few degrees."""
     spec = globemill.load_spec("examples/pebblemoor.toml")
-    r = globemill.bake(spec, tolerance_m=1.0)
+    r = globemill.bake(spec, tolerance_m=1.0, levels=1, collision=False)
     d, t = r.directions, r.triangles
     p = [d[t[:, k]] for k in range(3)]
     worst = 180.0
@@ -176,8 +178,9 @@ def test_minimum_angle_bound() -> None:
 def test_demo_world_is_a_closed_outward_surface() -> None:
     spec = globemill.load_spec("examples/pebblemoor.toml")
     r = globemill.bake(spec, tolerance_m=1.0)
-    _assert_closed_surface(r.vertices, r.triangles)
-    assert r.report["lods"][0]["max_error_m"] <= 1.0
+    for k in range(len(r.levels)):
+        _assert_closed_surface(*r.mesh(k))
+        assert r.report["lods"][k]["max_error_m"] <= r.levels[k].tolerance_m
 
 
 def test_budget_is_refused_before_work() -> None:

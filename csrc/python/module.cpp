@@ -3,6 +3,7 @@
 #include <pybind11/functional.h>
 #include <pybind11/numpy.h>
 #include <pybind11/pybind11.h>
+#include <pybind11/stl.h>
 
 #include <cmath>
 #include <memory>
@@ -11,6 +12,7 @@
 #include <vector>
 
 #include "field.hpp"
+#include "lod.hpp"
 #include "measure.hpp"
 #include "refine.hpp"
 
@@ -130,23 +132,43 @@ private:
     Field field_;
 };
 
-py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
-                   int threads, int verify_order, std::function<void(int, std::uint64_t)> progress) {
+RefineOptions make_options(double tolerance, int mode, std::uint64_t max_triangles, int threads,
+                           int verify_order, int min_level,
+                           std::function<void(int, std::uint64_t)>& progress) {
+    if (mode < 0 || mode > 2) throw py::value_error("offset mode must be 0 (radial), 1 (normal) or 2 (exact)");
     if (verify_order == 1 || verify_order < 0 || verify_order > 32)
         throw py::value_error("verify_order must be 0 (off) or in 2..32");
-    if (mode < 0 || mode > 2) throw py::value_error("offset mode must be 0 (radial), 1 (normal) or 2 (exact)");
     RefineOptions opt;
     opt.tolerance_m = tolerance;
     opt.mode = static_cast<OffsetMode>(mode);
     opt.max_triangles = max_triangles;
     opt.threads = threads;
     opt.verify_order = verify_order;
+    opt.min_level = min_level;
     if (progress) {
         opt.progress = [&progress](int round, std::uint64_t leaves) {
             py::gil_scoped_acquire gil;
             progress(round, leaves);
         };
     }
+    return opt;
+}
+
+py::dict stats_dict(const RefineStats& stats) {
+    py::dict st;
+    st["estimate"] = stats.estimate;
+    st["tested"] = stats.tested;
+    st["rounds"] = stats.rounds;
+    st["max_level"] = stats.max_level;
+    st["repaired"] = stats.repaired;
+    st["refine_seconds"] = stats.refine_seconds;
+    st["verify_seconds"] = stats.verify_seconds;
+    return st;
+}
+
+py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
+                   int threads, int verify_order, std::function<void(int, std::uint64_t)> progress) {
+    RefineOptions opt = make_options(tolerance, mode, max_triangles, threads, verify_order, 0, progress);
     Mesh mesh;
     RefineStats stats;
     std::string err;
@@ -163,23 +185,109 @@ py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t m
     out["directions"] = to_numpy(std::move(mesh.directions), {nv, 3});
     out["triangles"] = to_numpy(std::move(mesh.triangles), {nt, 3});
     out["levels"] = to_numpy(std::move(mesh.levels), {nt});
-    py::ssize_t ne = static_cast<py::ssize_t>(mesh.errors.size());
-    out["errors"] = to_numpy(std::move(mesh.errors), {ne});
-    py::dict st;
-    st["estimate"] = stats.estimate;
-    st["tested"] = stats.tested;
-    st["floor_accepted"] = stats.floor_accepted;
-    st["rounds"] = stats.rounds;
-    st["max_level"] = stats.max_level;
-    st["repaired"] = stats.repaired;
-    st["refine_seconds"] = stats.refine_seconds;
-    st["verify_seconds"] = stats.verify_seconds;
-    st["max_error_m"] = stats.max_error_m;
-    st["mesh_to_surface_m"] = stats.mesh_to_surface_m;
-    st["surface_to_mesh_m"] = stats.surface_to_mesh_m;
-    out["stats"] = st;
+    out["errors"] = to_numpy(std::move(mesh.errors), {nt});
+    out["stats"] = stats_dict(stats);
     return out;
 }
+
+// the bisection hierarchy of one world: built once, levels extracted on demand
+class PyHierarchy {
+public:
+    PyHierarchy(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
+                int threads, int verify_order, int chunk_level, double tau_cap,
+                std::function<void(int, std::uint64_t)> progress)
+        : field_(f), threads_(threads), verify_order_(verify_order) {
+        if (chunk_level < 0 || chunk_level > 10) throw py::value_error("chunk_level must be in 0..10");
+        RefineOptions opt = make_options(tolerance, mode, max_triangles, threads, verify_order,
+                                         2 * chunk_level, progress);
+        opt.tau_cap = tau_cap;
+        std::string err;
+        Status s;
+        {
+            py::gil_scoped_release nogil;
+            s = build_hierarchy(f.field(), opt, h_, stats_, err);
+        }
+        raise_status(s, err);
+    }
+
+    py::dict stats() const { return stats_dict(stats_); }
+    std::size_t vertex_count() const { return h_.dir.size(); }
+    std::size_t chunk_count() const { return h_.chunks; }
+
+    py::tuple vertices() const {
+        const std::size_t nv = h_.dir.size();
+        std::vector<double> pos(3 * nv), dirs(3 * nv);
+        for (std::size_t i = 0; i < nv; ++i) {
+            Vec3 p = h_.pos(static_cast<std::uint32_t>(i));
+            pos[3 * i] = p.x;
+            pos[3 * i + 1] = p.y;
+            pos[3 * i + 2] = p.z;
+            dirs[3 * i] = h_.dir[i].x;
+            dirs[3 * i + 1] = h_.dir[i].y;
+            dirs[3 * i + 2] = h_.dir[i].z;
+        }
+        std::vector<std::uint32_t> vp(h_.vparent);
+        const py::ssize_t V = static_cast<py::ssize_t>(nv);
+        return py::make_tuple(to_numpy(std::move(pos), {V, 3}), to_numpy(std::move(dirs), {V, 3}),
+                              to_numpy(std::move(vp), {V, 2}));
+    }
+
+    py::dict extract(std::vector<double> tolerances, bool stitch) {
+        for (std::size_t i = 0; i < tolerances.size(); ++i) {
+            if (!(tolerances[i] > 0) || !std::isfinite(tolerances[i]))
+                throw py::value_error("tolerances must be finite and > 0");
+            if (i && !(tolerances[i] > tolerances[i - 1]))
+                throw py::value_error("tolerances must increase from the finest level");
+        }
+        std::vector<Level> levels;
+        ChunkInfo chunks;
+        std::string err;
+        Status s;
+        {
+            py::gil_scoped_release nogil;
+            s = extract_levels(field_.field(), h_, tolerances, verify_order_, threads_, stitch,
+                               levels, chunks, err);
+        }
+        raise_status(s, err);
+        const py::ssize_t V = static_cast<py::ssize_t>(h_.dir.size());
+        const py::ssize_t C = static_cast<py::ssize_t>(h_.chunks);
+        py::list lvls;
+        for (Level& lv : levels) {
+            py::dict d;
+            py::ssize_t T = static_cast<py::ssize_t>(lv.chunk.size());
+            py::ssize_t S = static_cast<py::ssize_t>(lv.stitch.size() / 3);
+            d["tolerance_m"] = lv.tolerance_m;
+            d["triangles"] = to_numpy(std::move(lv.triangles), {T, 3});
+            d["chunk"] = to_numpy(std::move(lv.chunk), {T});
+            d["errors"] = to_numpy(std::move(lv.errors), {T});
+            d["present"] = to_numpy(std::move(lv.present), {V});
+            d["morph"] = to_numpy(std::move(lv.morph), {V, 3});
+            d["interior"] = to_numpy(std::move(lv.interior), {C});
+            d["stitch"] = to_numpy(std::move(lv.stitch), {S, 3});
+            d["stitch_offsets"] = to_numpy(std::move(lv.stitch_offsets), {C * 8 + 1});
+            d["stitch_failures"] = lv.stitch_failures;
+            d["repaired"] = lv.repaired;
+            d["max_error_m"] = lv.max_error_m;
+            d["mesh_to_surface_m"] = lv.mesh_to_surface_m;
+            d["surface_to_mesh_m"] = lv.surface_to_mesh_m;
+            lvls.append(d);
+        }
+        py::dict ch;
+        ch["corners"] = to_numpy(std::move(chunks.corners), {C, 3});
+        ch["neighbors"] = to_numpy(std::move(chunks.neighbors), {C, 3});
+        ch["edge_ids"] = to_numpy(std::move(chunks.edge_ids), {C, 3});
+        py::dict out;
+        out["levels"] = lvls;
+        out["chunks"] = ch;
+        return out;
+    }
+
+private:
+    const PyField& field_;
+    int threads_, verify_order_;
+    Hierarchy h_;
+    RefineStats stats_;
+};
 
 py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& triangles, int order,
                     int threads) {
@@ -220,6 +328,17 @@ PYBIND11_MODULE(_core, m) {
     m.def("refine", &refine_py, py::arg("field"), py::arg("tolerance_m"), py::arg("offset"),
           py::arg("max_triangles"), py::arg("threads") = 0, py::arg("verify_order") = 3,
           py::arg("progress") = nullptr);
+    py::class_<PyHierarchy>(m, "Hierarchy")
+        .def(py::init<const PyField&, double, int, std::uint64_t, int, int, int, double,
+                      std::function<void(int, std::uint64_t)>>(),
+             py::arg("field"), py::arg("tolerance_m"), py::arg("offset"), py::arg("max_triangles"),
+             py::arg("threads") = 0, py::arg("verify_order") = 3, py::arg("chunk_level") = 0,
+             py::arg("tau_cap") = 0.0, py::arg("progress") = nullptr, py::keep_alive<1, 2>())
+        .def("stats", &PyHierarchy::stats)
+        .def_property_readonly("vertex_count", &PyHierarchy::vertex_count)
+        .def_property_readonly("chunk_count", &PyHierarchy::chunk_count)
+        .def("vertices", &PyHierarchy::vertices)
+        .def("extract", &PyHierarchy::extract, py::arg("tolerances"), py::arg("stitch") = true);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
           py::arg("order") = 6, py::arg("threads") = 0);
     m.def("estimate_triangles",

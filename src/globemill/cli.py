@@ -57,15 +57,45 @@ def _cmd_bake(args: argparse.Namespace) -> int:
             bar.close()
     paths = write_outputs(result, Path(args.output))
     if not args.quiet:
-        lod = result.report["lods"][0]
-        print(
-            f"{spec.name}: {lod['triangles']:,} triangles, {lod['vertices']:,} vertices, "
-            f"tolerance {lod['tolerance_m']:g} m, measured max error {lod['max_error_m']:.4g} m, "
-            f"{result.report['seconds_total']:.2f} s"
-        )
+        print(summary_table(result.report))
         for p in paths.values():
             print(f"  wrote {p}")
     return EXIT_OK
+
+
+def summary_table(report: dict) -> str:
+    """The levels and colliders of a bake report as a small text table."""
+    rows = [("level", "tolerance m", "triangles", "vertices", "max error m", "seconds")]
+    for lv in report["lods"]:
+        rows.append(
+            (
+                str(lv["level"]),
+                f"{lv['tolerance_m']:g}",
+                f"{lv['triangles']:,}",
+                f"{lv['vertices']:,}",
+                f"{lv['max_error_m']:.4g}",
+                f"{lv['seconds']:.2f}",
+            )
+        )
+    col = report.get("collision")
+    if col:
+        rows.append(
+            (
+                "collision",
+                f"{col['tolerance_m']:g}",
+                f"{col['triangles']:,}",
+                "",
+                f"{col['max_error_m']:.4g}",
+                f"{col['seconds']:.2f}",
+            )
+        )
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    lines = [
+        f"{report['planet']}: {report['lods'][0]['chunks']} chunks, {report['seconds_total']:.2f} s"
+    ]
+    for r in rows:
+        lines.append("  " + "  ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)))
+    return "\n".join(lines)
 
 
 def _cmd_schema(args: argparse.Namespace) -> int:

@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import json
 import struct
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -17,17 +16,6 @@ _ELEMENT_ARRAY_BUFFER = 34963
 _FLOAT = 5126
 _UNSIGNED_SHORT = 5123
 _UNSIGNED_INT = 5125
-
-
-@dataclass
-class Primitive:
-    """One drawable piece: positions (V,3), optional normals (V,3), triangles (T,3)."""
-
-    name: str
-    positions: npt.NDArray[np.float64]
-    triangles: npt.NDArray[np.uint32]
-    normals: npt.NDArray[np.float64] | None = None
-    extras: dict[str, Any] | None = None
 
 
 class _Buffer:
@@ -84,50 +72,96 @@ class _Buffer:
         return len(self.accessors) - 1
 
 
-def glb_bytes(
-    primitives: list[Primitive], *, scene_name: str, extras: dict[str, Any] | None = None
-) -> bytes:
-    """Encode the primitives as one .glb: a node and a mesh per primitive, in order."""
-    buf = _Buffer()
-    meshes: list[dict[str, Any]] = []
-    nodes: list[dict[str, Any]] = []
-    for prim in primitives:
-        attributes = {"POSITION": buf.vec3(prim.positions)}
-        if prim.normals is not None:
-            attributes["NORMAL"] = buf.vec3(prim.normals)
-        idx = buf.indices(prim.triangles, int(prim.positions.shape[0]))
-        mesh: dict[str, Any] = {
-            "name": prim.name,
-            "primitives": [{"attributes": attributes, "indices": idx, "mode": 4}],
+class GltfBuilder:
+    """Collects meshes and nodes, then encodes one deterministic .glb (sorted JSON keys)."""
+
+    def __init__(self) -> None:
+        self.buf = _Buffer()
+        self.meshes: list[dict[str, Any]] = []
+        self.nodes: list[dict[str, Any]] = []
+        self.extensions_used: set[str] = set()
+
+    def index_accessor(self, triangles: npt.NDArray[np.uint32], vertex_count: int) -> int:
+        return self.buf.indices(triangles, vertex_count)
+
+    def add_mesh(
+        self,
+        name: str,
+        positions: npt.NDArray[np.float64],
+        triangles: npt.NDArray[np.uint32],
+        *,
+        normals: npt.NDArray[np.float64] | None = None,
+        morph_positions: npt.NDArray[np.float64] | None = None,
+        extras: dict[str, Any] | None = None,
+    ) -> int:
+        """A mesh with one triangle primitive; `morph_positions` become one morph target (the
+        glTF target stores displacements: morph - position)."""
+        attributes = {"POSITION": self.buf.vec3(positions)}
+        if normals is not None:
+            attributes["NORMAL"] = self.buf.vec3(normals)
+        prim: dict[str, Any] = {
+            "attributes": attributes,
+            "indices": self.buf.indices(triangles, int(positions.shape[0])),
+            "mode": 4,
         }
-        meshes.append(mesh)
-        node: dict[str, Any] = {"name": prim.name, "mesh": len(meshes) - 1}
-        if prim.extras:
-            node["extras"] = prim.extras
-        nodes.append(node)
-    doc: dict[str, Any] = {
-        "asset": {"version": "2.0", "generator": "globemill"},
-        "scene": 0,
-        "scenes": [{"name": scene_name, "nodes": list(range(len(nodes)))}],
-        "nodes": nodes,
-        "meshes": meshes,
-        "accessors": buf.accessors,
-        "bufferViews": buf.views,
-        "buffers": [{"byteLength": buf.size}],
-    }
-    if extras:
-        doc["scenes"][0]["extras"] = extras
-    body = b"".join(buf.parts)
-    body += b"\0" * ((-len(body)) % 4)
-    js = json.dumps(doc, separators=(",", ":"), sort_keys=True).encode("utf-8")
-    js += b" " * ((-len(js)) % 4)
-    total = 12 + 8 + len(js) + 8 + len(body)
-    return b"".join(
-        [
-            struct.pack("<4sII", b"glTF", 2, total),
-            struct.pack("<I4s", len(js), b"JSON"),
-            js,
-            struct.pack("<I4s", len(body), b"BIN\0"),
-            body,
-        ]
-    )
+        mesh: dict[str, Any] = {"name": name, "primitives": [prim]}
+        if morph_positions is not None:
+            # displacement of the float32 values as stored, so position + target is exact
+            d = morph_positions.astype("<f4").astype(np.float64) - positions.astype("<f4").astype(
+                np.float64
+            )
+            prim["targets"] = [{"POSITION": self.buf.vec3(d)}]
+            mesh["weights"] = [0.0]
+        if extras:
+            mesh["extras"] = extras
+        self.meshes.append(mesh)
+        return len(self.meshes) - 1
+
+    def add_node(
+        self,
+        name: str,
+        mesh: int,
+        *,
+        extensions: dict[str, Any] | None = None,
+        extras: dict[str, Any] | None = None,
+    ) -> int:
+        node: dict[str, Any] = {"name": name, "mesh": mesh}
+        if extensions:
+            node["extensions"] = extensions
+            self.extensions_used.update(extensions)
+        if extras:
+            node["extras"] = extras
+        self.nodes.append(node)
+        return len(self.nodes) - 1
+
+    def to_glb(
+        self, scene_nodes: list[int], *, scene_name: str, extras: dict[str, Any] | None = None
+    ) -> bytes:
+        doc: dict[str, Any] = {
+            "asset": {"version": "2.0", "generator": "globemill"},
+            "scene": 0,
+            "scenes": [{"name": scene_name, "nodes": scene_nodes}],
+            "nodes": self.nodes,
+            "meshes": self.meshes,
+            "accessors": self.buf.accessors,
+            "bufferViews": self.buf.views,
+            "buffers": [{"byteLength": self.buf.size}],
+        }
+        if self.extensions_used:
+            doc["extensionsUsed"] = sorted(self.extensions_used)
+        if extras:
+            doc["scenes"][0]["extras"] = extras
+        body = b"".join(self.buf.parts)
+        body += b"\0" * ((-len(body)) % 4)
+        js = json.dumps(doc, separators=(",", ":"), sort_keys=True).encode("utf-8")
+        js += b" " * ((-len(js)) % 4)
+        total = 12 + 8 + len(js) + 8 + len(body)
+        return b"".join(
+            [
+                struct.pack("<4sII", b"glTF", 2, total),
+                struct.pack("<I4s", len(js), b"JSON"),
+                js,
+                struct.pack("<I4s", len(body), b"BIN\0"),
+                body,
+            ]
+        )

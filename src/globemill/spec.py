@@ -539,6 +539,54 @@ class Layer(_Model):
         return self
 
 
+class LodSettings(_Model):
+    """Levels of detail and chunks."""
+
+    levels: StrictInt = Field(
+        default=4, ge=1, le=12, description="Number of levels; level 0 is the finest."
+    )
+    ratio: FiniteFloat = Field(
+        default=2.0,
+        gt=1.0,
+        le=16.0,
+        description="Tolerance of level k is tolerance_m * ratio^k.",
+    )
+    chunk_level: StrictInt = Field(
+        default=1, ge=0, le=5, description="The sphere is split into 20 * 4^chunk_level chunks."
+    )
+    seams: Literal["stitch", "skirt"] = Field(
+        default="stitch",
+        description="How a chunk meets a one-level-coarser neighbour: stitched index buffers "
+        "(no crack, no T-junction) or skirts hanging below the chunk's edges.",
+    )
+    skirt_depth_m: FiniteFloat = Field(
+        default=0.0,
+        ge=0.0,
+        le=1e5,
+        description="Skirt depth in metres (0: twice the coarsest level's tolerance).",
+    )
+
+
+class CollisionSettings(_Model):
+    """Collision meshes, one per chunk."""
+
+    tolerance_m: FiniteFloat | None = Field(
+        default=None, gt=0.0, description="Collider tolerance (default: 4 x tolerance_m)."
+    )
+    bias: Literal["none", "centered"] = Field(
+        default="centered",
+        description="centered: move collider vertices radially so the collider straddles the "
+        "true surface (bodies neither float above it nor sink into it); none: vertices on it.",
+    )
+    max_triangles_per_chunk: StrictInt = Field(
+        default=65535,
+        ge=16,
+        le=10_000_000,
+        description="Triangle cap per chunk collider; the collider tolerance is raised until "
+        "every chunk fits.",
+    )
+
+
 class WorldSpec(_Model):
     """One world: base sphere, ordered features and material layers.
 
@@ -557,6 +605,10 @@ class WorldSpec(_Model):
     offset: Offset = Field(default="normal", description="How the mesher measures offset.")
     max_triangles: StrictInt = Field(
         default=8_000_000, ge=20, le=200_000_000, description="Triangle budget."
+    )
+    lod: LodSettings = Field(default_factory=LodSettings, description="Levels and chunks.")
+    collision: CollisionSettings = Field(
+        default_factory=CollisionSettings, description="Collision meshes."
     )
     features: list[Feature] = Field(default_factory=list, description="Features, in order.")
     layers: list[Layer] = Field(
