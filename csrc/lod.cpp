@@ -46,18 +46,55 @@ void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<st
     }
 }
 
+// where a polygon vertex lies on the chunk boundary: the chunk edges through it and, per edge,
+// its angle from the edge's first corner. points on one chunk edge are exactly collinear in
+// theory but only nearly so in floating point, so collinearity along chunk edges is decided from
+// this, not from coordinates.
+struct OnEdges {
+    std::uint32_t e[6];
+    double t[6];
+    int n = 0;
+    bool find(std::uint32_t edge, double& at) const {
+        for (int i = 0; i < n; ++i)
+            if (e[i] == edge) {
+                at = t[i];
+                return true;
+            }
+        return false;
+    }
+};
+
 // ear clipping of a simple counter-clockwise polygon in 2d; appends triangles of vertex ids
 bool ear_clip(const std::vector<std::uint32_t>& ids, const std::vector<double>& x,
-              const std::vector<double>& y, std::vector<std::uint32_t>& out) {
+              const std::vector<double>& y, const std::vector<OnEdges>& on,
+              std::vector<std::uint32_t>& out) {
     std::vector<int> v(ids.size());
     for (std::size_t i = 0; i < v.size(); ++i) v[i] = static_cast<int>(i);
     auto cross = [&](int a, int b, int c) {
         return (x[b] - x[a]) * (y[c] - y[a]) - (y[b] - y[a]) * (x[c] - x[a]);
     };
-    std::size_t guard = 0;
+    double scale = 0;
+    for (std::size_t i = 0; i < ids.size(); ++i) scale = std::max({scale, std::fabs(x[i] - x[0]), std::fabs(y[i] - y[0])});
+    const double eps = 1e-12 * scale * scale;
+    // a diagonal a-c along a chunk edge must not pass over another polygon vertex on that edge,
+    // and three vertices on one chunk edge never make an ear
+    auto blocked = [&](int a, int b, int c) {
+        const OnEdges& A = on[static_cast<std::size_t>(a)];
+        const OnEdges& C = on[static_cast<std::size_t>(c)];
+        for (int i = 0; i < A.n; ++i) {
+            double ta = A.t[i], tc, tb;
+            if (!C.find(A.e[i], tc)) continue;
+            if (on[static_cast<std::size_t>(b)].find(A.e[i], tb)) return true;
+            double lo = std::min(ta, tc), hi = std::max(ta, tc);
+            for (int p : v) {
+                double tp;
+                if (p != a && p != c && on[static_cast<std::size_t>(p)].find(A.e[i], tp) && tp > lo && tp < hi)
+                    return true;
+            }
+        }
+        return false;
+    };
     while (v.size() > 3) {
-        if (++guard > 4 * ids.size() * ids.size() + 16) return false;
-        bool clipped = false;
         // the ear with the best-shaped triangle first: fewer slivers than taking the first ear
         int best = -1;
         double best_q = -1;
@@ -65,12 +102,12 @@ bool ear_clip(const std::vector<std::uint32_t>& ids, const std::vector<double>& 
         for (std::size_t i = 0; i < n; ++i) {
             int a = v[(i + n - 1) % n], b = v[i], c = v[(i + 1) % n];
             double area = cross(a, b, c);
-            if (area <= 0) continue;
+            if (area <= eps || blocked(a, b, c)) continue;
             bool empty = true;
             for (std::size_t j = 0; j < n && empty; ++j) {
                 int p = v[j];
                 if (p == a || p == b || p == c) continue;
-                if (cross(a, b, p) >= 0 && cross(b, c, p) >= 0 && cross(c, a, p) >= 0) empty = false;
+                if (cross(a, b, p) >= -eps && cross(b, c, p) >= -eps && cross(c, a, p) >= -eps) empty = false;
             }
             if (!empty) continue;
             double l = (x[b] - x[a]) * (x[b] - x[a]) + (y[b] - y[a]) * (y[b] - y[a]) +
@@ -82,18 +119,15 @@ bool ear_clip(const std::vector<std::uint32_t>& ids, const std::vector<double>& 
                 best = static_cast<int>(i);
             }
         }
-        if (best >= 0) {
-            std::size_t i = static_cast<std::size_t>(best);
-            int a = v[(i + n - 1) % n], b = v[i], c = v[(i + 1) % n];
-            out.insert(out.end(), {ids[static_cast<std::size_t>(a)], ids[static_cast<std::size_t>(b)],
-                                   ids[static_cast<std::size_t>(c)]});
-            v.erase(v.begin() + static_cast<std::ptrdiff_t>(i));
-            clipped = true;
-        }
-        if (!clipped) return false;
+        if (best < 0) return false;
+        std::size_t i = static_cast<std::size_t>(best);
+        int a = v[(i + n - 1) % n], b = v[i], c = v[(i + 1) % n];
+        out.insert(out.end(), {ids[static_cast<std::size_t>(a)], ids[static_cast<std::size_t>(b)],
+                               ids[static_cast<std::size_t>(c)]});
+        v.erase(v.begin() + static_cast<std::ptrdiff_t>(i));
     }
     if (v.size() == 3) {
-        if (cross(v[0], v[1], v[2]) <= 0) return false;
+        if (cross(v[0], v[1], v[2]) <= eps || blocked(v[0], v[1], v[2])) return false;
         out.insert(out.end(), {ids[static_cast<std::size_t>(v[0])], ids[static_cast<std::size_t>(v[1])],
                                ids[static_cast<std::size_t>(v[2])]});
     }
@@ -112,104 +146,147 @@ bool on_edge(const EdgeOf& eo, std::uint32_t v, std::uint32_t e) {
 }
 
 // one stitched variant: triangles `tris` of a chunk, with the vertices in `removed` (all on the
-// chunk's boundary edges) taken out
-bool stitch_variant(const Hierarchy& h, const std::vector<std::uint32_t>& tris,
-                    const std::vector<std::uint8_t>& removed, std::vector<std::uint32_t>& out) {
+// chunk's boundary edges) taken out. the triangles around them form holes; each hole's boundary
+// loop, less the removed vertices, is triangulated again. a hole that encloses kept triangles
+// (a clockwise inner loop) takes those in too, so every hole is a simple polygon.
+bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
+                    const std::vector<std::vector<std::uint32_t>>& corner_edges,
+                    const std::vector<std::uint32_t>& tris, const std::vector<std::uint8_t>& removed,
+                    std::vector<std::uint32_t>& out) {
     const std::size_t nt = tris.size() / 3;
+    auto tv = [&](std::size_t t, int k) { return tris[3 * t + static_cast<std::size_t>(k)]; };
     std::vector<std::uint8_t> hole(nt, 0);
     for (std::size_t t = 0; t < nt; ++t)
         for (int k = 0; k < 3; ++k)
-            if (removed[tris[3 * t + static_cast<std::size_t>(k)]]) hole[t] = 1;
-    for (std::size_t t = 0; t < nt; ++t)
-        if (!hole[t]) out.insert(out.end(), {tris[3 * t], tris[3 * t + 1], tris[3 * t + 2]});
-    // group hole triangles into edge-connected components
+            if (removed[tv(t, k)]) hole[t] = 1;
     std::unordered_map<std::uint64_t, std::vector<std::uint32_t>> by_edge;
-    for (std::size_t t = 0; t < nt; ++t) {
-        if (!hole[t]) continue;
-        for (int k = 0; k < 3; ++k) {
-            std::uint32_t a = tris[3 * t + static_cast<std::size_t>(k)];
-            std::uint32_t b = tris[3 * t + static_cast<std::size_t>((k + 1) % 3)];
-            by_edge[edge_key(a, b)].push_back(static_cast<std::uint32_t>(t));
-        }
-    }
-    std::vector<int> comp(nt, -1);
-    int ncomp = 0;
-    for (std::size_t t0 = 0; t0 < nt; ++t0) {
-        if (!hole[t0] || comp[t0] >= 0) continue;
-        std::vector<std::uint32_t> stack{static_cast<std::uint32_t>(t0)};
-        comp[t0] = ncomp;
-        while (!stack.empty()) {
-            std::uint32_t t = stack.back();
-            stack.pop_back();
-            for (int k = 0; k < 3; ++k) {
-                std::uint32_t a = tris[3 * t + static_cast<std::size_t>(k)];
-                std::uint32_t b = tris[3 * t + static_cast<std::size_t>((k + 1) % 3)];
-                for (std::uint32_t o : by_edge[edge_key(a, b)]) {
-                    if (comp[o] < 0) {
-                        comp[o] = ncomp;
-                        stack.push_back(o);
+    for (std::size_t t = 0; t < nt; ++t)
+        for (int k = 0; k < 3; ++k)
+            by_edge[edge_key(tv(t, k), tv(t, (k + 1) % 3))].push_back(static_cast<std::uint32_t>(t));
+    // gnomonic coordinates on the tangent plane at the mean direction of the chunk border
+    // (outward normal up): great circles, and so chunk edges, stay straight
+    Vec3 m{};
+    for (std::size_t t = 0; t < nt; ++t) m += h.dir[tv(t, 0)];
+    m = normalize(m);
+    Vec3 ax = std::fabs(m.x) < 0.9 ? Vec3{1, 0, 0} : Vec3{0, 1, 0};
+    Vec3 e1 = normalize(ax - dot(ax, m) * m);
+    Vec3 e2 = cross(m, e1);
+    auto xy = [&](std::uint32_t v, double& x, double& y) {
+        Vec3 d = h.dir[v];
+        double s = dot(d, m);
+        x = dot(d, e1) / s;
+        y = dot(d, e2) / s;
+    };
+    std::vector<std::vector<std::uint32_t>> loops;
+    for (int attempt = 0;; ++attempt) {
+        if (attempt > 16) return false;
+        loops.clear();
+        // directed boundary edges of the holes (an edge whose reverse is not in a hole)
+        std::vector<std::pair<std::uint32_t, std::uint32_t>> dedges, bnd;
+        for (std::size_t t = 0; t < nt; ++t)
+            if (hole[t])
+                for (int k = 0; k < 3; ++k) dedges.emplace_back(tv(t, k), tv(t, (k + 1) % 3));
+        std::sort(dedges.begin(), dedges.end());
+        for (auto [a, b] : dedges)
+            if (!std::binary_search(dedges.begin(), dedges.end(), std::make_pair(b, a)))
+                bnd.emplace_back(a, b);
+        // trace loops; where a boundary touches itself at a vertex, leave along the edge that
+        // turns first clockwise from the way back, which splits it into simple loops
+        std::vector<std::uint8_t> used(bnd.size(), 0);
+        bool grown = false;
+        for (std::size_t s0 = 0; s0 < bnd.size(); ++s0) {
+            if (used[s0]) continue;
+            std::vector<std::uint32_t> walk;
+            std::size_t cur = s0, guard = 0;
+            for (;;) {
+                used[cur] = 1;
+                walk.push_back(bnd[cur].first);
+                std::uint32_t p = bnd[cur].second, q = bnd[cur].first;
+                if (p == bnd[s0].first) break;
+                std::size_t best = bnd.size();
+                double best_ang = 1e9, px, py, qx, qy;
+                xy(p, px, py);
+                xy(q, qx, qy);
+                double back = std::atan2(qy - py, qx - px);
+                for (std::size_t k = 0; k < bnd.size(); ++k) {
+                    if (used[k] || bnd[k].first != p) continue;
+                    double rx, ry;
+                    xy(bnd[k].second, rx, ry);
+                    double ang = back - std::atan2(ry - py, rx - px);  // clockwise turn
+                    while (ang <= 0) ang += 2 * 3.14159265358979323846;
+                    if (ang < best_ang) {
+                        best_ang = ang;
+                        best = k;
                     }
                 }
+                if (best == bnd.size() || ++guard > bnd.size()) return false;
+                cur = best;
+            }
+            // a walk that passes a vertex twice is several loops touching there: cut them apart
+            std::vector<std::vector<std::uint32_t>> parts;
+            std::vector<std::uint32_t> stack;
+            for (std::uint32_t v : walk) {
+                auto it = std::find(stack.begin(), stack.end(), v);
+                if (it != stack.end()) {
+                    parts.emplace_back(it, stack.end());
+                    stack.erase(it + 1, stack.end());
+                } else {
+                    stack.push_back(v);
+                }
+            }
+            parts.push_back(stack);
+            for (auto& part : parts) {
+                if (part.size() < 3) continue;
+                // signed area (shoelace): a clockwise loop encloses kept triangles
+                double area = 0;
+                for (std::size_t i = 0; i < part.size(); ++i) {
+                    double x0, y0, x1, y1;
+                    xy(part[i], x0, y0);
+                    xy(part[(i + 1) % part.size()], x1, y1);
+                    area += x0 * y1 - x1 * y0;
+                }
+                if (area < 0) {
+                    for (std::size_t i = 0; i < part.size(); ++i) {
+                        std::uint32_t a = part[i], b = part[(i + 1) % part.size()];
+                        for (std::uint32_t t : by_edge[edge_key(a, b)])
+                            if (!hole[t]) {
+                                hole[t] = 1;
+                                grown = true;
+                            }
+                    }
+                    continue;
+                }
+                loops.push_back(std::move(part));
             }
         }
-        ++ncomp;
+        if (!grown) break;
     }
-    for (int c = 0; c < ncomp; ++c) {
-        // directed boundary edges of the component (an edge whose reverse is not in it)
-        std::map<std::uint32_t, std::uint32_t> next;
-        std::vector<std::pair<std::uint32_t, std::uint32_t>> dedges;
-        for (std::size_t t = 0; t < nt; ++t)
-            if (comp[t] == c)
-                for (int k = 0; k < 3; ++k)
-                    dedges.emplace_back(tris[3 * t + static_cast<std::size_t>(k)],
-                                        tris[3 * t + static_cast<std::size_t>((k + 1) % 3)]);
-        std::sort(dedges.begin(), dedges.end());
-        for (auto [a, b] : dedges) {
-            if (std::binary_search(dedges.begin(), dedges.end(), std::make_pair(b, a))) continue;
-            if (next.count(a)) return false;  // the hole touches itself at a vertex
-            next[a] = b;
-        }
-        // splice the removed vertices out of the loop: p -> r -> q becomes p -> q
+    for (std::size_t t = 0; t < nt; ++t)
+        if (!hole[t]) out.insert(out.end(), {tv(t, 0), tv(t, 1), tv(t, 2)});
+    for (const auto& walk : loops) {
+        // the removed vertices leave the loop: p -> r -> q becomes p -> q
         std::vector<std::uint32_t> loop;
-        std::uint32_t first = kNone;
-        for (auto& kv : next)
-            if (!removed[kv.first]) {
-                first = kv.first;
-                break;
-            }
-        if (first == kNone) return false;
-        std::uint32_t cur = first;
-        std::size_t guard = 0;
-        do {
-            loop.push_back(cur);
-            auto it = next.find(cur);
-            if (it == next.end()) return false;
-            std::uint32_t nx = it->second;
-            while (removed[nx]) {
-                auto jt = next.find(nx);
-                if (jt == next.end()) return false;
-                nx = jt->second;
-                if (++guard > next.size() + 4) return false;
-            }
-            cur = nx;
-            if (++guard > 4 * next.size() + 8) return false;
-        } while (cur != first);
+        for (std::uint32_t v : walk)
+            if (!removed[v]) loop.push_back(v);
         if (loop.size() < 3) return false;
-        // project onto the tangent plane at the loop's mean direction (outward normal up)
-        Vec3 m{};
-        for (std::uint32_t v : loop) m += h.dir[v];
-        m = normalize(m);
-        Vec3 a = std::fabs(m.x) < 0.9 ? Vec3{1, 0, 0} : Vec3{0, 1, 0};
-        Vec3 e1 = normalize(a - dot(a, m) * m);
-        Vec3 e2 = cross(m, e1);
         std::vector<double> x(loop.size()), y(loop.size());
+        std::vector<OnEdges> on(loop.size());
         for (std::size_t i = 0; i < loop.size(); ++i) {
-            Vec3 d = h.dir[loop[i]];
-            double s = dot(d, m);
-            x[i] = dot(d, e1) / s;  // gnomonic: great circles stay straight
-            y[i] = dot(d, e2) / s;
+            std::uint32_t v = loop[i];
+            xy(v, x[i], y[i]);
+            auto add = [&](std::uint32_t e) {
+                OnEdges& o = on[i];
+                if (o.n == 6) return;
+                o.e[o.n] = e;
+                o.t[o.n] = angle(h.dir[eo.ends[e][0]], h.dir[v]);
+                ++o.n;
+            };
+            if (eo.corner[v])
+                for (std::uint32_t e : corner_edges[v]) add(e);
+            else if (eo.cedge[v] != kNone)
+                add(eo.cedge[v]);
         }
-        if (!ear_clip(loop, x, y, out)) return false;
+        if (!ear_clip(loop, x, y, on, out)) return false;
     }
     return true;
 }
@@ -413,7 +490,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                     any = any || removed[v];
                 }
                 std::size_t before = lv.stitch.size();
-                bool ok = !any || stitch_variant(h, btris, removed, lv.stitch);
+                bool ok = !any || stitch_variant(h, eo, corner_edges, btris, removed, lv.stitch);
                 if (!ok) {
                     ++lv.stitch_failures;
                     lv.stitch.resize(before);
