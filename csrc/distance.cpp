@@ -28,6 +28,18 @@ Vec3 closest_on_triangle(Vec3 p, Vec3 a, Vec3 b, Vec3 c) {
     return a + v * ab + w * ac;
 }
 
+bool ray_hits_triangle(Vec3 u, Vec3 a, Vec3 b, Vec3 c, Vec3& p, double eps) {
+    Vec3 n = cross(b - a, c - a);
+    double den = dot(n, u);
+    if (!(std::fabs(den) > 0)) return false;
+    p = (dot(n, a) / den) * u;
+    double nn = dot(n, n);
+    double w0 = dot(cross(b - p, c - p), n) / nn;
+    double w1 = dot(cross(c - p, a - p), n) / nn;
+    double w2 = 1 - w0 - w1;
+    return w0 >= -eps && w1 >= -eps && w2 >= -eps;
+}
+
 double project_distance(const Field& field, Vec3 p, const std::uint32_t* list, std::size_t count,
                         int iterations) {
     const double R = field.radius();

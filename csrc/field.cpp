@@ -581,6 +581,57 @@ bool Field::touches(std::size_t fi, const Cap& cap) const {
     return dot(f.cap_c, cap.c) >= std::cos(sum) - 1e-12;
 }
 
+bool Field::has_creases(std::size_t fi) const {
+    const Feature& f = features_[fi];
+    return f.kind == Kind::Crater || (f.kind == Kind::Ridge && f.prm[2] != 0);
+}
+
+int Field::crease_points(std::size_t fi, Vec3 c, double reach, Vec3* out) const {
+    const Feature& f = features_[fi];
+    const double R = radius_;
+    int n = 0;
+    // the point at angle a from centre k, on the great circle through k and dir
+    auto toward = [](Vec3 k, Vec3 dir, double a, Vec3& p) {
+        Vec3 t = dir - dot(dir, k) * k;
+        double tn = norm(t);
+        if (!(tn > 1e-15)) return false;
+        p = std::cos(a) * k + (std::sin(a) / tn) * t;
+        return true;
+    };
+    // p0 and 16 more points along the circle about axis k through p0, spread over +-reach (an
+    // arc on the unit sphere); rotation by Rodrigues' formula
+    auto along = [&](Vec3 k, Vec3 p0) {
+        double r = std::sin(angle(k, p0));
+        if (!(r > 1e-12) || n + 17 > kMaxCreasePoints) return;
+        out[n++] = p0;
+        for (int j = -8; j <= 8; ++j) {
+            if (j == 0) continue;
+            double phi = (j / 8.0) * reach / r;
+            Vec3 q = std::cos(phi) * p0 + std::sin(phi) * cross(k, p0) + (1 - std::cos(phi)) * dot(k, p0) * k;
+            out[n++] = q;
+        }
+    };
+    Vec3 p;
+    if (f.kind == Kind::Crater) {
+        if (toward(f.c, c, f.prm[1] / R, p)) along(f.c, p);  // the rim crest
+        return n;
+    }
+    if (f.kind != Kind::Ridge || f.prm[2] == 0) return 0;
+    Vec3 pole = f.ax;
+    double b = f.prm[1] / R;
+    Vec3 q = c - dot(c, pole) * pole;
+    double qn = norm(q);
+    if (qn > 1e-15) {
+        Vec3 crest = (1.0 / qn) * q;
+        along(pole, crest);                                 // the crest line
+        if (toward(crest, c, b, p)) along(pole, p);         // the foot on c's side
+    }
+    Vec3 tip = angle(c, f.c) <= angle(c, f.c1) ? f.c : f.c1;
+    if (n < kMaxCreasePoints) out[n++] = tip;               // the cone tip at the nearer end
+    if (toward(tip, c, b, p)) along(tip, p);                // the foot around it
+    return n;
+}
+
 double Field::wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count) const {
     double best = std::numeric_limits<double>::infinity();
     const double R = radius_;

@@ -79,6 +79,15 @@ public:
 
     bool has_steps() const { return has_steps_; }
 
+    // creases: lines where H is continuous but not differentiable (the crest, tips and foot of
+    // a sharp ridge, a crater's rim). writes points of feature f's creases near direction c:
+    // on each crease the nearest point and 16 more spread over +-`reach` (radians) along it, up
+    // to kMaxCreasePoints; returns how many. sparse samples miss such a line, so meshing and
+    // verification probe these points as well.
+    static constexpr int kMaxCreasePoints = 72;
+    int crease_points(std::size_t f, Vec3 c, double reach, Vec3* out) const;
+    bool has_creases(std::size_t f) const;
+
 private:
     void contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& out) const;
     double noise(const Feature& f, Vec3 u, Vec3* grad) const;

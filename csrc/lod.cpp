@@ -149,16 +149,12 @@ bool on_edge(const EdgeOf& eo, std::uint32_t v, std::uint32_t e) {
 // chunk's boundary edges) taken out. the triangles around them form holes; each hole's boundary
 // loop, less the removed vertices, is triangulated again. a hole that encloses kept triangles
 // (a clockwise inner loop) takes those in too, so every hole is a simple polygon.
-bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
+bool stitch_attempt(const Hierarchy& h, const EdgeOf& eo,
                     const std::vector<std::vector<std::uint32_t>>& corner_edges,
                     const std::vector<std::uint32_t>& tris, const std::vector<std::uint8_t>& removed,
-                    std::vector<std::uint32_t>& out) {
+                    std::vector<std::uint8_t>& hole, std::vector<std::uint32_t>& out) {
     const std::size_t nt = tris.size() / 3;
     auto tv = [&](std::size_t t, int k) { return tris[3 * t + static_cast<std::size_t>(k)]; };
-    std::vector<std::uint8_t> hole(nt, 0);
-    for (std::size_t t = 0; t < nt; ++t)
-        for (int k = 0; k < 3; ++k)
-            if (removed[tv(t, k)]) hole[t] = 1;
     std::unordered_map<std::uint64_t, std::vector<std::uint32_t>> by_edge;
     for (std::size_t t = 0; t < nt; ++t)
         for (int k = 0; k < 3; ++k)
@@ -291,6 +287,80 @@ bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
     return true;
 }
 
+// do two chunk-boundary vertices lie on one chunk edge?
+bool same_chunk_edge(const EdgeOf& eo, const std::vector<std::vector<std::uint32_t>>& corner_edges,
+                     std::uint32_t a, std::uint32_t b) {
+    const std::vector<std::uint32_t> none;
+    const std::vector<std::uint32_t> ea_one{eo.cedge[a]};
+    const std::vector<std::uint32_t>& ea = eo.corner[a] ? corner_edges[a] : (eo.cedge[a] == kNone ? none : ea_one);
+    for (std::uint32_t e : ea)
+        if (e != kNone && on_edge(eo, b, e)) return true;
+    return false;
+}
+
+// a variant is valid when no directed edge repeats and its open edges are the border's own open
+// edges (less those at removed vertices) plus edges along chunk edges
+bool variant_valid(const EdgeOf& eo, const std::vector<std::vector<std::uint32_t>>& corner_edges,
+                   const std::vector<std::uint32_t>& tris, const std::vector<std::uint8_t>& removed,
+                   const std::uint32_t* var, std::size_t nvar) {
+    auto directed = [](const std::uint32_t* t, std::size_t n) {
+        std::vector<std::pair<std::uint32_t, std::uint32_t>> d;
+        for (std::size_t i = 0; i < n; ++i)
+            for (int k = 0; k < 3; ++k) d.emplace_back(t[3 * i + static_cast<std::size_t>(k)], t[3 * i + static_cast<std::size_t>((k + 1) % 3)]);
+        std::sort(d.begin(), d.end());
+        return d;
+    };
+    auto open = [](const std::vector<std::pair<std::uint32_t, std::uint32_t>>& d) {
+        std::vector<std::pair<std::uint32_t, std::uint32_t>> o;
+        for (auto [a, b] : d)
+            if (!std::binary_search(d.begin(), d.end(), std::make_pair(b, a))) o.emplace_back(a, b);
+        return o;
+    };
+    auto dv = directed(var, nvar);
+    if (std::adjacent_find(dv.begin(), dv.end()) != dv.end()) return false;
+    auto ov = open(dv);
+    auto oo = open(directed(tris.data(), tris.size() / 3));
+    for (auto [a, b] : oo) {
+        if (removed[a] || removed[b]) continue;
+        if (!std::binary_search(ov.begin(), ov.end(), std::make_pair(a, b))) return false;
+    }
+    for (auto [a, b] : ov) {
+        if (std::binary_search(oo.begin(), oo.end(), std::make_pair(a, b))) continue;
+        if (!same_chunk_edge(eo, corner_edges, a, b)) return false;
+    }
+    return true;
+}
+
+// one stitched variant, checked; a failed attempt retries with the hole grown by a ring of
+// triangles (a larger hole swallows kept triangles it would otherwise enclose)
+bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
+                    const std::vector<std::vector<std::uint32_t>>& corner_edges,
+                    const std::vector<std::uint32_t>& tris, const std::vector<std::uint8_t>& removed,
+                    std::vector<std::uint32_t>& out) {
+    const std::size_t nt = tris.size() / 3;
+    std::vector<std::uint8_t> hole(nt, 0);
+    for (std::size_t t = 0; t < nt; ++t)
+        for (int k = 0; k < 3; ++k)
+            if (removed[tris[3 * t + static_cast<std::size_t>(k)]]) hole[t] = 1;
+    const std::size_t start = out.size();
+    for (int ring = 0; ring < 4; ++ring) {
+        std::vector<std::uint8_t> attempt_hole(hole);
+        if (stitch_attempt(h, eo, corner_edges, tris, removed, attempt_hole, out) &&
+            variant_valid(eo, corner_edges, tris, removed, out.data() + start, (out.size() - start) / 3))
+            return true;
+        out.resize(start);
+        // grow: every triangle sharing a vertex with the hole joins it
+        std::vector<std::uint8_t> touch(h.dir.size(), 0);
+        for (std::size_t t = 0; t < nt; ++t)
+            if (attempt_hole[t])
+                for (int k = 0; k < 3; ++k) touch[tris[3 * t + static_cast<std::size_t>(k)]] = 1;
+        for (std::size_t t = 0; t < nt; ++t)
+            for (int k = 0; k < 3; ++k)
+                if (touch[tris[3 * t + static_cast<std::size_t>(k)]]) hole[t] = 1;
+    }
+    return false;
+}
+
 }  // namespace
 
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
@@ -343,7 +413,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             bool more = false;
             for (std::uint32_t id : leaves) {
                 const Node& t = h.nodes[id];
-                if (t.err > eps && t.child != kNone && !at_floor(h, t, eps)) {
+                if (t.err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
                     in[id] = 1;
                     stack.push_back(id);
                     ++lv.repaired;
@@ -459,44 +529,67 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                     if (eo.cedge[v] == chunks.edge_ids[3 * c + static_cast<std::uint32_t>(i)]) return i;
                 return -1;
             };
-            // reorder the chunk: interior triangles first, then the border
-            std::vector<std::size_t> inner, border;
-            for (std::size_t t = t0; t < t1; ++t) {
-                bool b = false;
+            // the border: triangles around the boundary vertices the coarser level lacks. if a
+            // variant cannot be stitched inside it (its holes would enclose interior triangles),
+            // the border grows by a ring of triangles and every variant is made again
+            const std::size_t stitch_start = lv.stitch.size();
+            std::vector<std::uint8_t> in_border(t1 - t0, 0);
+            for (std::size_t t = t0; t < t1; ++t)
                 for (int k = 0; k < 3; ++k)
-                    if (edge_index(lv.triangles[3 * t + static_cast<std::size_t>(k)]) >= 0) b = true;
-                (b ? border : inner).push_back(t);
-            }
-            lv.interior[c] = static_cast<std::uint32_t>(inner.size());
-            std::vector<std::uint32_t> tri_new;
-            std::vector<float> err_new;
-            for (const auto* part : {&inner, &border})
-                for (std::size_t t : *part) {
-                    for (int k = 0; k < 3; ++k) tri_new.push_back(lv.triangles[3 * t + static_cast<std::size_t>(k)]);
-                    err_new.push_back(lv.errors[t]);
+                    if (edge_index(lv.triangles[3 * t + static_cast<std::size_t>(k)]) >= 0) in_border[t - t0] = 1;
+            std::vector<std::uint32_t> chunk_tris(lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t0),
+                                                  lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t1));
+            std::vector<float> chunk_err(lv.errors.begin() + static_cast<std::ptrdiff_t>(t0),
+                                         lv.errors.begin() + static_cast<std::ptrdiff_t>(t1));
+            for (int grow = 0;; ++grow) {
+                lv.stitch.resize(stitch_start);
+                std::vector<std::uint32_t> btris, itris;
+                for (std::size_t t = 0; t < t1 - t0; ++t)
+                    (in_border[t] ? btris : itris).insert((in_border[t] ? btris : itris).end(),
+                                                          {chunk_tris[3 * t], chunk_tris[3 * t + 1], chunk_tris[3 * t + 2]});
+                std::uint64_t failures = 0;
+                for (int mask = 0; mask < 8; ++mask) {
+                    lv.stitch_offsets[static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask)] =
+                        lv.stitch.size() / 3;
+                    if (mask == 0 || !stitch || last) continue;
+                    bool any = false;
+                    for (std::uint32_t v : btris) {
+                        int ei = edge_index(v);
+                        removed[v] = (ei >= 0 && ((mask >> ei) & 1)) ? 1 : 0;
+                        any = any || removed[v];
+                    }
+                    std::size_t before = lv.stitch.size();
+                    bool ok = !any || stitch_variant(h, eo, corner_edges, btris, removed, lv.stitch);
+                    if (!ok) {
+                        ++failures;
+                        lv.stitch.resize(before);
+                    }
+                    if (!any || !ok) lv.stitch.insert(lv.stitch.end(), btris.begin(), btris.end());
+                    for (std::uint32_t v : btris) removed[v] = 0;
                 }
-            std::copy(tri_new.begin(), tri_new.end(), lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t0));
-            std::copy(err_new.begin(), err_new.end(), lv.errors.begin() + static_cast<std::ptrdiff_t>(t0));
-            std::vector<std::uint32_t> btris(lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * (t0 + inner.size())),
-                                             lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t1));
-            for (int mask = 0; mask < 8; ++mask) {
-                lv.stitch_offsets[static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask)] =
-                    lv.stitch.size() / 3;
-                if (mask == 0 || !stitch || last) continue;
-                bool any = false;
-                for (std::uint32_t v : btris) {
-                    int ei = edge_index(v);
-                    removed[v] = (ei >= 0 && ((mask >> ei) & 1)) ? 1 : 0;
-                    any = any || removed[v];
+                if (failures == 0 || grow == 3) {
+                    lv.stitch_failures += failures;
+                    // write the chunk back: interior first, then the border
+                    std::size_t w = t0, ni = 0;
+                    for (int pass = 0; pass < 2; ++pass)
+                        for (std::size_t t = 0; t < t1 - t0; ++t) {
+                            if (in_border[t] != pass) continue;
+                            for (int k = 0; k < 3; ++k)
+                                lv.triangles[3 * w + static_cast<std::size_t>(k)] = chunk_tris[3 * t + static_cast<std::size_t>(k)];
+                            lv.errors[w] = chunk_err[t];
+                            ++w;
+                            if (pass == 0) ++ni;
+                        }
+                    lv.interior[c] = static_cast<std::uint32_t>(ni);
+                    break;
                 }
-                std::size_t before = lv.stitch.size();
-                bool ok = !any || stitch_variant(h, eo, corner_edges, btris, removed, lv.stitch);
-                if (!ok) {
-                    ++lv.stitch_failures;
-                    lv.stitch.resize(before);
-                }
-                if (!any || !ok) lv.stitch.insert(lv.stitch.end(), btris.begin(), btris.end());
-                for (std::uint32_t v : btris) removed[v] = 0;
+                std::vector<std::uint8_t> touch(nv, 0);
+                for (std::size_t t = 0; t < t1 - t0; ++t)
+                    if (in_border[t])
+                        for (int k = 0; k < 3; ++k) touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]] = 1;
+                for (std::size_t t = 0; t < t1 - t0; ++t)
+                    for (int k = 0; k < 3; ++k)
+                        if (touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]]) in_border[t] = 1;
             }
             t0 = t1;
         }

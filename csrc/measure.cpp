@@ -42,6 +42,43 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
             ++n;
         }
     }
+    // the creases of features near the triangle: samples on a grid miss a crest line or a tip
+    {
+        Vec3 cen = normalize(V0 + V1 + V2);
+        std::uint32_t feats[64];
+        int nf = 0;
+        for (Vec3 q : {cen, normalize(V0), normalize(V1), normalize(V2)}) {
+            const std::uint32_t* list;
+            std::size_t cnt;
+            field.candidates(q, list, cnt);
+            for (std::size_t i = 0; i < cnt && nf < 64; ++i) {
+                if (!field.has_creases(list[i])) continue;
+                bool seen = false;
+                for (int j = 0; j < nf; ++j) seen = seen || feats[j] == list[i];
+                if (!seen) feats[nf++] = list[i];
+            }
+        }
+        double reach = std::max({angle(cen, normalize(V0)), angle(cen, normalize(V1)), angle(cen, normalize(V2))});
+        for (int j = 0; j < nf; ++j) {
+            Vec3 cp[Field::kMaxCreasePoints];
+            int k = field.crease_points(feats[j], cen, reach, cp);
+            for (int i = 0; i < k && n < kMaxSamples; ++i) {
+                Vec3 p;
+                if (!ray_hits_triangle(cp[i], V0, V1, V2, p)) continue;
+                double pn = norm(p);
+                Vec3 u = (1.0 / pn) * p;
+                double H = field.eval(u, nullptr);
+                Vec3 S = (R + H) * u;
+                s2m_max = std::max(s2m_max, norm(S - closest_on_triangle(S, V0, V1, V2)));
+                px[n] = p.x;
+                py[n] = p.y;
+                pz[n] = p.z;
+                radial[n] = std::fabs(pn - R - H);
+                idx[n] = n;
+                ++n;
+            }
+        }
+    }
     // pass 2: mesh -> surface. the projection (and the walls) can only lower the radial bound,
     // so take samples by decreasing radial bound and stop once no bound can raise the maximum
     std::sort(idx, idx + n, [&](int a, int b) { return radial[a] > radial[b] || (radial[a] == radial[b] && a < b); });

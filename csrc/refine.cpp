@@ -141,9 +141,7 @@ double Refiner::critical_tolerance(const Node& t) const {
     // probes on the flat triangle against the surface, both ways
     const bool walls = opt.mode != OffsetMode::Radial && F.has_steps();
     const double cap_tau = std::max(opt.tau_cap, opt.tolerance_m);
-    for (const Probe& pr : kProbes) {
-        if (tau > cap_tau) break;  // split at every level: the exact value is not needed
-        Vec3 p = pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2;
+    auto probe = [&](Vec3 p) {
         double pn = norm(p);
         Vec3 u = (1.0 / pn) * p;
         double H = F.eval(u, list, cnt, nullptr);
@@ -162,10 +160,24 @@ double Refiner::critical_tolerance(const Node& t) const {
             if (walls && off / m > tau) off = std::min(off, F.wall_distance(p, list, cnt));
             tau = std::max(tau, off / m);
         }
-        if (opt.mode == OffsetMode::Radial) continue;
+        if (opt.mode == OffsetMode::Radial) return;
         // surface -> mesh: the ground point above the probe against this triangle
         Vec3 S = (R + H) * u;
         tau = std::max(tau, norm(S - closest_on_triangle(S, P0, P1, P2)) / m);
+    };
+    for (const Probe& pr : kProbes) {
+        if (tau > cap_tau) break;  // split at every level: the exact value is not needed
+        probe(pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2);
+    }
+    // creases (a sharp ridge's crest, tips and foot, a crater's rim) inside the triangle
+    for (std::size_t i = 0; i < cnt && tau <= cap_tau; ++i) {
+        if (!F.has_creases(list[i])) continue;
+        Vec3 pts[Field::kMaxCreasePoints];
+        int n = F.crease_points(list[i], cap.c, cap.angle, pts);
+        for (int k = 0; k < n; ++k) {
+            Vec3 p;
+            if (ray_hits_triangle(pts[k], P0, P1, P2, p)) probe(p);
+        }
     }
     // the size floor: a triangle an eighth of the (probe) tolerance across is never split
     return std::min(tau, 8 * size / m);
@@ -396,7 +408,7 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
                 t.err = static_cast<float>(w);
                 t.m2s = static_cast<float>(m2s);
                 t.s2m = static_cast<float>(s2m);
-                if (w > tol && !at_floor(h, t, tol)) {
+                if (w > kVerifyMargin * tol && !at_floor(h, t, tol)) {
                     bad[i] = 1;
                     if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
                 }

@@ -12,6 +12,9 @@
 namespace gm {
 
 constexpr std::uint32_t kNone = 0xFFFFFFFFu;
+// verification repairs triangles measured beyond this share of their tolerance: samples are
+// dense but the deviation can still peak between them
+constexpr double kVerifyMargin = 0.9;
 
 struct RefineOptions {
     double tolerance_m = 1;  // the finest tolerance the hierarchy must reach

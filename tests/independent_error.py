@@ -11,21 +11,31 @@ What :func:`measure` reports, exactly:
     vertex, points at ``1/n`` steps along every edge, and the interior nodes of the barycentric
     grid of step ``1/n`` in every triangle (shared points are evaluated once); then the
     ``refine_worst`` triangles with the largest sampled value are sampled again on a grid of
-    step ``1/refine_grid``. For each point the distance to the surface is found by projection:
-    Gauss-Newton on the direction ``u`` minimising ``|S(u) - p|`` (closed-form 2x2 step in the
-    tangent plane from ``H`` and ``grad H``, with step halving), started from the radial
-    direction ``p/|p|`` and, where the dense surface sample holds a closer point, again from that
-    sample's direction; and, when ``walls`` are given, the distance to the wall segment at the
-    rim point nearest to ``p``. Every distance is to an actual surface point, so each per-point
-    value is >= the true point-to-surface distance (equal when the projection reached the global
-    minimum). Between sample points the mesh is not examined: the reported maximum can miss a
-    peak of the true supremum by the variation of the distance between grid nodes (second order
-    in the grid step on smooth ground).
+    step ``1/refine_grid``. Each point first gets an upper bound, its distance to the surface
+    point ``S(p/|p|)`` straight above or below it. Then, largest bound first, until no remaining
+    bound exceeds the largest distance found (so the maximum is the same as if every point were
+    treated in full):
+
+    1. projection: Gauss-Newton on the direction ``u`` minimising ``|S(u) - p|`` (closed-form
+       step in the tangent plane from ``H`` and ``grad H``, with step halving), from ``p/|p|``
+       and again from the nearest point of the dense surface sample where that one is closer;
+       and, when ``walls`` are given, the distance to the wall segment at the rim point nearest
+       to ``p``;
+    2. search (:func:`polish`): the closest surface point lies within the current distance
+       ``d``, so its direction is within ``asin(d/|p|)`` of ``p/|p|``; that cap is searched by
+       nested 9x9 grids keeping the 4 best nodes per level, down to 1e-5 m. Projection alone
+       stops at a local minimum, e.g. on the farther face below a convex crease.
+
+    Every distance is to an actual surface point, so each value is >= the true distance of
+    its point; it is the true distance up to the search resolution unless a basin narrower
+    than a coarse grid cell was missed. Between sample points the mesh is not examined: the
+    maximum can miss a peak of the true supremum by the variation of the distance between grid
+    nodes (second order in the grid step on smooth ground, first order at a crease or wall).
 
 ``surface_to_mesh``
     The largest exact Euclidean distance (closest point on triangle, Ericson, "Real-Time
     Collision Detection" 2005, sec. 5.1.5; candidate triangles from scipy's ``cKDTree`` over
-    triangle centroids with a bounding-radius test that makes the search exact) from a sample
+    triangle centroids with a lower-bound test that makes the search exact) from a sample
     point of the true surface to the mesh. Surface samples: ``surface_samples`` directions of a
     Fibonacci sphere, optional extra directions (e.g. :func:`feature_directions`, dense where
     features are), and, with ``walls``, points on the wall segments. It is a lower bound of the
@@ -161,7 +171,7 @@ def _ridge_band(row: FloatArray, R: float, limit: int) -> FloatArray:
     arc = math.atan2(float(np.linalg.norm(np.cross(c0, c1))), float(c0 @ c1))
     reach = 1.05 * b / R
     step = b / 6.0 / R
-    across = np.arange(-reach, reach + step / 2, step)
+    across = np.linspace(-reach, reach, max(2, math.ceil(2 * reach / step) + 1))
     along_n = max(2, min(limit // max(1, across.size), math.ceil((arc + 2 * reach) / step)))
     along = np.linspace(-reach, arc + reach, along_n)
     t = _normalize(np.cross(n, c0))  # in-plane direction from c0 towards c1
@@ -875,7 +885,12 @@ def measure(
 
     ``samples_per_triangle`` picks the barycentric grid: the smallest step ``1/n`` whose
     ``(n+1)(n+2)/2`` nodes per triangle reach the number (10 -> n = 3, 15 -> n = 4).
-    See the module docstring for exactly what is measured.
+    ``surface_samples`` uniform (Fibonacci) directions plus ``extra_directions`` (e.g.
+    :func:`feature_directions`) make the surface sample; ``walls`` (e.g. :func:`step_walls`)
+    adds the vertical walls to the surface. See the module docstring for exactly what is
+    measured.
+
+    vertices : (V, 3) float64 metres; triangles : (T, 3) integer indices.
 
     Returns a dict with ``mesh_to_surface``, ``surface_to_mesh``, ``max`` (metres), the points
     where the two maxima occur (``mesh_to_surface_at``: mesh point, ``surface_to_mesh_at``:

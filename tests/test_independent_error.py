@@ -254,6 +254,34 @@ def test_feature_directions_cover_a_hill_footprint() -> None:
     assert spacing <= sigma / 6 * 1.01
 
 
+def test_feature_directions_cover_a_ridge_band() -> None:
+    R, b = 1000.0, 12.0
+    c0, c1 = _unit(-5.0, 160.0), _unit(10.0, 175.0)
+    row = np.zeros(16)
+    row[0], row[3:6], row[6:9], row[9], row[10] = 4, c0, c1, 6.0, b
+    d = feature_directions(row[None, :], R)
+
+    def delta(u: FloatArray) -> FloatArray:
+        # docs/terrain.md "ridge": distance to the arc c0 -> c1
+        n = np.cross(c0, c1)
+        n /= np.linalg.norm(n)
+        q = u - np.outer(u @ n, n)
+        on_arc = (np.cross(c0, q) @ n >= 0) & (np.cross(q, c1) @ n >= 0)
+        ends = np.minimum(_angle(u, c0), _angle(u, c1))
+        return R * np.where(on_arc, np.arcsin(np.minimum(1.0, np.abs(u @ n))), ends)
+
+    # every sample is near the footprint delta < b: a band 1.05 b wide, run 1.05 b past the
+    # ends, so its corners are at most sqrt(2) 1.05 b from the arc...
+    assert np.all(delta(d) <= math.sqrt(2) * 1.05 * b + 1e-9)
+    # ...and the footprint is covered: footprint points have a sample within b / 6
+    rng = np.random.default_rng(6)
+    probe = d[rng.choice(d.shape[0], 500)] + rng.normal(scale=0.3 * b / R, size=(500, 3))
+    probe /= np.linalg.norm(probe, axis=1, keepdims=True)
+    probe = probe[delta(probe) < b]
+    gap = R * np.min(np.arccos(np.clip(probe @ d.T, -1, 1)), axis=1)
+    assert gap.max() <= b / 6
+
+
 # --------------------------------------------------------------------------- projection
 def test_projection_finds_the_distance_to_an_off_centre_sphere() -> None:
     # distance from p to a sphere (centre c, radius rho) is | |p - c| - rho | (elementary)

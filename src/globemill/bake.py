@@ -20,7 +20,7 @@ OFFSET_MODES = {"radial": 0, "normal": 1, "exact": 2}
 # a posteriori verification: a barycentric grid of this order on every triangle
 # ((k+1)(k+2)/2 samples), exact projection onto the surface; triangles found beyond the
 # tolerance are split until none is
-MEASURE_ORDER = 3
+MEASURE_ORDER = 4
 # the guaranteed smallest angle of any triangle of directions (the mesh projected onto the unit
 # sphere): newest-vertex bisection keeps three planar shape classes with angles >= 30 degrees
 # (Mitchell 1989); projecting the first, large triangles onto the sphere bends that to 24.6
@@ -288,9 +288,7 @@ def bake(
         )
     tolerances = [tol * rat**k for k in range(nlev)]
     col_tol = (
-        float(spec.collision.tolerance_m)
-        if spec.collision.tolerance_m is not None
-        else 4.0 * spec.tolerance_m
+        float(spec.collision.tolerance_m) if spec.collision.tolerance_m is not None else 4.0 * tol
     )
     finest = min(tol, col_tol)
     t0 = time.perf_counter()

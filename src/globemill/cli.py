@@ -10,15 +10,29 @@ import argparse
 import json
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from . import __version__
+
+if TYPE_CHECKING:
+    from .bake import BakeResult
 
 EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT, EXIT_BAKE_FAILED, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
 EPILOG = """examples:
   globemill bake examples/pebblemoor.toml -o out/
   globemill bake examples/pebblemoor.toml -o out/ --tolerance-m 0.1 --threads 2
+  globemill check examples/pebblemoor.toml out/
+  globemill check examples/pebblemoor.toml out/ --json > check.json
+  globemill bake examples/pebblemoor.toml -o out/ --format obj --format ply --level 1
+  globemill export examples/pebblemoor.toml -o pebblemoor.lod2.ply --level 2
+  globemill preview examples/pebblemoor.toml -o pebblemoor.png --color error --size 1600x640
+  globemill preview examples/pebblemoor.toml -o top.png --views north/south --color chunk
   globemill schema > globemill.schema.json
+
+exit codes:
+  0 success, 1 a check found a guarantee broken, 2 bad input (spec, options, files),
+  3 the bake could not be done (e.g. the triangle budget), 130 interrupted (no partial output)
 """
 
 
@@ -26,12 +40,17 @@ def _err(msg: str) -> None:
     print(f"globemill: error: {msg}", file=sys.stderr)
 
 
-def _cmd_bake(args: argparse.Namespace) -> int:
+def _bake_spec(args: argparse.Namespace, levels_needed: int | None = None) -> BakeResult:
+    """Load the spec and bake it with the shared options, a progress bar on a terminal."""
     from .bake import bake
-    from .output import write_outputs
     from .spec import load_spec
 
     spec = load_spec(args.spec)
+    if levels_needed is not None and not 0 <= levels_needed < spec.lod.levels:
+        raise ValueError(
+            f"level: must be an integer in 0..{spec.lod.levels - 1} (lod.levels of the spec), "
+            f"got {levels_needed}"
+        )
     show = not args.quiet and sys.stderr.isatty()
     bar = None
     if show:
@@ -45,7 +64,7 @@ def _cmd_bake(args: argparse.Namespace) -> int:
             bar.set_postfix(triangles=triangles)
 
     try:
-        result = bake(
+        return bake(
             spec,
             tolerance_m=args.tolerance_m,
             offset=args.offset,
@@ -55,12 +74,73 @@ def _cmd_bake(args: argparse.Namespace) -> int:
     finally:
         if bar is not None:
             bar.close()
-    paths = write_outputs(result, Path(args.output))
+
+
+def _cmd_bake(args: argparse.Namespace) -> int:
+    from .output import write_outputs
+
+    formats = args.format or []
+    result = _bake_spec(args, args.level if formats else None)
+    paths = write_outputs(result, Path(args.output), formats=formats, level=args.level)
     if not args.quiet:
         print(summary_table(result.report))
         for p in paths.values():
             print(f"  wrote {p}")
     return EXIT_OK
+
+
+def _cmd_export(args: argparse.Namespace) -> int:
+    from ._atomic import write_files_atomically
+    from .export_mesh import FORMATS, mesh_bytes
+
+    out = Path(args.output)
+    fmt = args.format or out.suffix.lower().lstrip(".")
+    if fmt not in FORMATS:
+        raise ValueError(
+            f"format: must be one of {', '.join(FORMATS)} (from --format or the file suffix), "
+            f"got {fmt!r}"
+        )
+    result = _bake_spec(args, args.level)
+    write_files_atomically({out: mesh_bytes(result, args.level, fmt)})
+    if not args.quiet:
+        lv = result.report["lods"][args.level]
+        print(
+            f"{result.spec.name}: level {args.level}, {lv['triangles']:,} triangles, "
+            f"{lv['vertices']:,} vertices, tolerance {lv['tolerance_m']:g} m\n  wrote {out}"
+        )
+    return EXIT_OK
+
+
+def _cmd_preview(args: argparse.Namespace) -> int:
+    from .preview import parse_size, view_frame, write_preview
+
+    size = parse_size(args.size)
+    views = [v.strip() for v in args.views.split("/")]
+    for v in views:
+        view_frame(v)
+    result = _bake_spec(args, args.level)
+    stats = write_preview(
+        result, Path(args.output), color=args.color, level=args.level, size=size, views=views
+    )
+    if not args.quiet:
+        print(
+            f"{result.spec.name}: {args.color} picture of {stats.triangles:,} triangles, "
+            f"{size[0]}x{size[1]} px, rendered in {stats.seconds:.2f} s\n  wrote {stats.path}"
+        )
+    return EXIT_OK
+
+
+def _add_bake_options(p: argparse.ArgumentParser) -> None:
+    """The options every command that bakes shares, spelled the same everywhere."""
+    p.add_argument("--tolerance-m", type=float, default=None, help="override the spec's tolerance")
+    p.add_argument(
+        "--offset",
+        choices=["radial", "normal", "exact"],
+        default=None,
+        help="how the mesher measures offset (default: the spec's)",
+    )
+    p.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
+    p.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
 
 
 def summary_table(report: dict) -> str:
@@ -98,11 +178,59 @@ def summary_table(report: dict) -> str:
     return "\n".join(lines)
 
 
+def _cmd_check(args: argparse.Namespace) -> int:
+    from .check import CheckInputError, run_check
+
+    try:
+        report = run_check(args.spec, args.outdir, threads=args.threads)
+    except CheckInputError as exc:
+        _err(str(exc))
+        return EXIT_BAD_INPUT
+    if args.json:
+        print(json.dumps(report.to_dict(), indent=2))
+    else:
+        print(report.table())
+    if not report.ok:
+        _err(f"{len([c for c in report.checks if not c.ok])} check(s) failed")
+        return EXIT_CHECK_FAILED
+    return EXIT_OK
+
+
 def _cmd_schema(args: argparse.Namespace) -> int:
     from .spec import json_schema
 
     print(json.dumps(json_schema(), indent=2))
     return EXIT_OK
+
+
+def _cmd_farm(args: argparse.Namespace) -> int:
+    from .farm import FarmError, farm
+
+    try:
+        summary = farm(
+            args.specs,
+            args.output,
+            jobs=args.jobs,
+            scheduler=args.scheduler,
+            tolerance_m=args.tolerance_m,
+            offset=args.offset,
+            threads=args.threads,
+            force=args.force,
+            progress=not args.quiet and sys.stderr.isatty(),
+        )
+    except FarmError as exc:
+        _err(str(exc))
+        return EXIT_BAD_INPUT
+    if not args.quiet:
+        print(summary.table())
+        print(f"  wrote {summary.outdir / 'farm.json'}")
+    for w in summary.failed:
+        _err(f"{w.world} ({w.source}): {w.error}")
+    if summary.ok:
+        return EXIT_OK
+    # exit 2 when every failure is a bad spec, 3 when a bake failed (as `globemill bake`)
+    bad_bake = any(w.error_kind == "bake" for w in summary.failed)
+    return EXIT_BAKE_FAILED if bad_bake else EXIT_BAD_INPUT
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -124,16 +252,114 @@ def build_parser() -> argparse.ArgumentParser:
     )
     b.add_argument("spec", help="world spec (.toml or .json)")
     b.add_argument("-o", "--output", required=True, help="output folder")
-    b.add_argument("--tolerance-m", type=float, default=None, help="override the spec's tolerance")
+    _add_bake_options(b)
     b.add_argument(
+        "--format",
+        action="append",
+        choices=["obj", "ply"],
+        help="also write level --level as OUTDIR/<name>.lod<level>.<format> (repeatable)",
+    )
+    b.add_argument("--level", type=int, default=0, help="level for --format (default 0, finest)")
+    b.set_defaults(func=_cmd_bake)
+
+    c = sub.add_parser(
+        "check",
+        help="read a bake back and measure every guarantee (exit 1 if one fails)",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    c.add_argument("spec", help="the world spec the bake was made from (.toml or .json)")
+    c.add_argument("outdir", help="folder holding <name>.glb, .collision.glb and .report.json")
+    c.add_argument("--json", action="store_true", help="print every measurement as JSON")
+    c.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
+    c.set_defaults(func=_cmd_check)
+
+    f = sub.add_parser(
+        "farm",
+        help="bake many worlds (local processes or a Dask cluster), skipping unchanged ones",
+        description="Bake every world spec into OUTDIR, with a local process pool or on an "
+        "existing Dask cluster. Unchanged worlds (same spec, options and globemill version) are "
+        "skipped; a world that fails is reported while the others bake. Writes OUTDIR/farm.json. "
+        "Exit 0 when every world is baked or cached, 2 when specs are bad, 3 when a bake failed, "
+        "130 on Ctrl-C.",
+        epilog="examples:\n"
+        "  globemill farm worlds/ -o out/\n"
+        "  globemill farm 'worlds/**/*.toml' -o out/ --jobs 4\n"
+        "  globemill farm worlds/ -o /shared/out --scheduler tcp://10.0.0.5:8786\n",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    f.add_argument("specs", nargs="+", help="world spec files, folders or glob patterns")
+    f.add_argument("-o", "--output", required=True, help="output folder")
+    f.add_argument(
+        "--jobs",
+        type=int,
+        default=None,
+        help="local worker processes (default: all cores; ignored with --scheduler)",
+    )
+    f.add_argument(
+        "--scheduler",
+        default=None,
+        metavar="ADDRESS",
+        help="Dask scheduler, e.g. tcp://host:8786 (needs pip install 'globemill[farm]'); the "
+        "output folder must be shared with its workers",
+    )
+    f.add_argument("--tolerance-m", type=float, default=None, help="override every tolerance")
+    f.add_argument(
         "--offset",
         choices=["radial", "normal", "exact"],
         default=None,
-        help="how the mesher measures offset (default: the spec's)",
+        help="how the mesher measures offset (default: each spec's)",
     )
-    b.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
-    b.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
-    b.set_defaults(func=_cmd_bake)
+    f.add_argument(
+        "--threads",
+        type=int,
+        default=None,
+        help="threads per bake (default: 1 when bakes run side by side, else all cores)",
+    )
+    f.add_argument("--force", action="store_true", help="re-bake worlds even when cached")
+    f.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
+    f.set_defaults(func=_cmd_farm)
+
+    e = sub.add_parser(
+        "export",
+        help="bake a world spec and write one level as OBJ or PLY (for DCC tools)",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    e.add_argument("spec", help="world spec (.toml or .json)")
+    e.add_argument("-o", "--output", required=True, help="output file, .obj or .ply")
+    e.add_argument(
+        "--format", choices=["obj", "ply"], default=None, help="default: from the file suffix"
+    )
+    e.add_argument("--level", type=int, default=0, help="which level (default 0, finest)")
+    _add_bake_options(e)
+    e.set_defaults(func=_cmd_export)
+
+    v = sub.add_parser(
+        "preview",
+        help="bake a world spec and render it as a shaded PNG picture",
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    v.add_argument("spec", help="world spec (.toml or .json)")
+    v.add_argument("-o", "--output", required=True, help="output picture (.png)")
+    v.add_argument(
+        "--color",
+        choices=["layer", "chunk", "level", "error"],
+        default="layer",
+        help="layer: material layers; chunk; level: chunks at mixed levels with stitched seams; "
+        "error: measured deviation heat map (default: layer)",
+    )
+    v.add_argument("--level", type=int, default=0, help="which level (default 0, finest)")
+    v.add_argument("--size", default="1600x640", help="picture size WIDTHxHEIGHT in pixels")
+    v.add_argument(
+        "--views",
+        default="front/back/north",
+        help="views separated by '/': front, back, east, west, north, south or LAT,LON in "
+        "degrees (default: front/back/north)",
+    )
+    _add_bake_options(v)
+    v.set_defaults(func=_cmd_preview)
 
     s = sub.add_parser("schema", help="print the JSON Schema of world spec files")
     s.set_defaults(func=_cmd_schema)
@@ -156,6 +382,11 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_BAKE_FAILED if "max_triangles" in msg else EXIT_BAD_INPUT
     except OSError as exc:
         _err(f"{exc.filename or ''}: {exc.strerror or exc}")
+        return EXIT_BAD_INPUT
+    except ImportError as exc:
+        extra = {"matplotlib": "preview", "meshio": "formats"}.get(exc.name or "", "")
+        hint = f"; install it with: pip install 'globemill[{extra}]'" if extra else ""
+        _err(f"{exc.name or exc} is needed for this command{hint}")
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
         _err("interrupted; no partial output was written")

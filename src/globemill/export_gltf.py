@@ -1,6 +1,8 @@
-"""glTF 2.0 binary (.glb) writer: positions, normals and indices, planet centre at the origin,
-Y up, metres. Layout per the glTF 2.0 specification (Khronos): a 12-byte header, a JSON chunk
-padded with spaces and a BIN chunk padded with zeros, both to 4-byte boundaries."""
+"""glTF 2.0 binary (.glb) writer: positions, normals, indices, vertex colours, application
+attributes and morph targets; planet centre at the origin, Y up, metres. Layout per the glTF 2.0
+specification (Khronos): a 12-byte header, a JSON chunk padded with spaces and a BIN chunk padded
+with zeros, both to 4-byte boundaries; every buffer view starts on a 4-byte boundary and every
+vertex attribute element is 4-byte aligned; every accessor carries min/max of the stored values."""
 
 from __future__ import annotations
 
@@ -14,6 +16,7 @@ import numpy.typing as npt
 _ARRAY_BUFFER = 34962
 _ELEMENT_ARRAY_BUFFER = 34963
 _FLOAT = 5126
+_UNSIGNED_BYTE = 5121
 _UNSIGNED_SHORT = 5123
 _UNSIGNED_INT = 5125
 
@@ -54,6 +57,41 @@ class _Buffer:
         )
         return len(self.accessors) - 1
 
+    def scalar(self, values: npt.ArrayLike) -> int:
+        """A float32 SCALAR vertex attribute (application attributes such as _SLOPE)."""
+        arr = np.ascontiguousarray(values, dtype="<f4").reshape(-1)
+        view = self.add(arr.tobytes(), _ARRAY_BUFFER)
+        self.accessors.append(
+            {
+                "bufferView": view,
+                "componentType": _FLOAT,
+                "count": int(arr.shape[0]),
+                "type": "SCALAR",
+                "min": [float(arr.min())] if len(arr) else [0.0],
+                "max": [float(arr.max())] if len(arr) else [0.0],
+            }
+        )
+        return len(self.accessors) - 1
+
+    def color(self, rgb: npt.NDArray[np.float64]) -> int:
+        """COLOR_0 as normalized unsigned byte VEC4 (linear RGB in 0..1, alpha 1): 4 bytes per
+        vertex, each element 4-byte aligned. min/max hold the stored integers (the glTF 2.0
+        specification: `normalized` has no effect on min/max)."""
+        q = quantize_color(rgb)
+        view = self.add(q.tobytes(), _ARRAY_BUFFER)
+        self.accessors.append(
+            {
+                "bufferView": view,
+                "componentType": _UNSIGNED_BYTE,
+                "normalized": True,
+                "count": int(q.shape[0]),
+                "type": "VEC4",
+                "min": [int(x) for x in q.min(axis=0)] if len(q) else [0, 0, 0, 0],
+                "max": [int(x) for x in q.max(axis=0)] if len(q) else [0, 0, 0, 0],
+            }
+        )
+        return len(self.accessors) - 1
+
     def indices(self, triangles: npt.NDArray[np.uint32], vertex_count: int) -> int:
         flat = np.ascontiguousarray(triangles).reshape(-1)
         small = vertex_count <= 65535
@@ -72,6 +110,15 @@ class _Buffer:
         return len(self.accessors) - 1
 
 
+def quantize_color(rgb: npt.ArrayLike) -> npt.NDArray[np.uint8]:
+    """(n, 3) linear RGB floats in 0..1 -> (n, 4) uint8 RGBA with alpha 255, rounded to nearest
+    (the inverse of the glTF 2.0 normalized-integer rule f = c / 255)."""
+    c = np.clip(np.asarray(rgb, dtype=np.float64).reshape(-1, 3), 0.0, 1.0)
+    q = np.full((len(c), 4), 255, dtype=np.uint8)
+    q[:, :3] = np.rint(c * 255.0).astype(np.uint8)
+    return q
+
+
 class GltfBuilder:
     """Collects meshes and nodes, then encodes one deterministic .glb (sorted JSON keys)."""
 
@@ -79,7 +126,20 @@ class GltfBuilder:
         self.buf = _Buffer()
         self.meshes: list[dict[str, Any]] = []
         self.nodes: list[dict[str, Any]] = []
+        self.materials: list[dict[str, Any]] = []
         self.extensions_used: set[str] = set()
+
+    def add_material(self, material: dict[str, Any]) -> int:
+        self.materials.append(material)
+        return len(self.materials) - 1
+
+    def scalar_attribute(self, values: npt.ArrayLike) -> int:
+        """Accessor of a float32 SCALAR vertex attribute."""
+        return self.buf.scalar(values)
+
+    def color_attribute(self, rgb: npt.NDArray[np.float64]) -> int:
+        """Accessor of a COLOR_0 attribute (normalized unsigned byte VEC4)."""
+        return self.buf.color(rgb)
 
     def index_accessor(self, triangles: npt.NDArray[np.uint32], vertex_count: int) -> int:
         return self.buf.indices(triangles, vertex_count)
@@ -92,18 +152,25 @@ class GltfBuilder:
         *,
         normals: npt.NDArray[np.float64] | None = None,
         morph_positions: npt.NDArray[np.float64] | None = None,
+        attributes: dict[str, int] | None = None,
+        material: int | None = None,
         extras: dict[str, Any] | None = None,
     ) -> int:
         """A mesh with one triangle primitive; `morph_positions` become one morph target (the
-        glTF target stores displacements: morph - position)."""
-        attributes = {"POSITION": self.buf.vec3(positions)}
+        glTF target stores displacements: morph - position). `attributes` adds accessors made
+        beforehand (COLOR_0, _SLOPE, ...) by semantic."""
+        attributes_ = {"POSITION": self.buf.vec3(positions)}
         if normals is not None:
-            attributes["NORMAL"] = self.buf.vec3(normals)
+            attributes_["NORMAL"] = self.buf.vec3(normals)
+        if attributes:
+            attributes_.update(attributes)
         prim: dict[str, Any] = {
-            "attributes": attributes,
+            "attributes": attributes_,
             "indices": self.buf.indices(triangles, int(positions.shape[0])),
             "mode": 4,
         }
+        if material is not None:
+            prim["material"] = material
         mesh: dict[str, Any] = {"name": name, "primitives": [prim]}
         if morph_positions is not None:
             # displacement of the float32 values as stored, so position + target is exact
@@ -147,6 +214,8 @@ class GltfBuilder:
             "bufferViews": self.buf.views,
             "buffers": [{"byteLength": self.buf.size}],
         }
+        if self.materials:
+            doc["materials"] = self.materials
         if self.extensions_used:
             doc["extensionsUsed"] = sorted(self.extensions_used)
         if extras:

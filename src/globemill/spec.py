@@ -612,7 +612,10 @@ class WorldSpec(_Model):
     )
     features: list[Feature] = Field(default_factory=list, description="Features, in order.")
     layers: list[Layer] = Field(
-        default_factory=list, description="Material layer rules; the first match wins."
+        default_factory=list,
+        max_length=255,
+        description="Material layer rules; the first match wins (at most 255: layer 255 means "
+        "no rule matched).",
     )
 
     @model_validator(mode="after")

@@ -1,0 +1,64 @@
+// world specs from JSON text for the C ABI: a small strict JSON reader (RFC 8259) and a validator
+// that mirrors src/globemill/spec.py (names, ranges, defaults, problem lines) and flattens a spec
+// into the same (n, 16) feature rows as WorldSpec.core_features().
+#pragma once
+
+#include <cstddef>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+namespace gm {
+
+struct SpecLayer {
+    std::string name;
+    double color[3] = {0, 0, 0};
+    double slope_deg[2] = {0.0, 90.0};
+    double altitude_m[2] = {-1e9, 1e9};
+};
+
+// a validated world spec, defaults filled in
+struct SpecData {
+    std::string name;
+    double radius_m = 0;
+    double tolerance_m = 0;
+    int offset = 1;  // 0 radial, 1 normal, 2 exact
+    std::uint64_t max_triangles = 8000000;
+    int levels = 4;
+    double ratio = 2.0;
+    int chunk_level = 1;
+    bool skirt = false;  // lod.seams == "skirt"
+    double skirt_depth_m = 0;
+    bool has_collision_tolerance = false;
+    double collision_tolerance_m = 0;
+    bool collision_centered = true;  // collision.bias == "centered"
+    std::uint64_t max_triangles_per_chunk = 65535;
+    std::vector<double> features;  // 16 per feature, as WorldSpec.core_features()
+    std::vector<SpecLayer> layers;
+    std::size_t feature_count() const { return features.size() / 16; }
+};
+
+enum class SpecStatus { Ok, Malformed, Invalid };
+
+struct SpecLimits {
+    std::size_t max_bytes = 8u * 1024u * 1024u;
+    int max_depth = 64;
+    std::size_t max_values = 1000000;
+    std::size_t max_problems = 1000;
+};
+
+// read and validate. On failure `message` is the whole message:
+//   Malformed: "cannot read world spec: malformed JSON at line L, column C: ..."
+//   Invalid:   "invalid world spec: <problem>" or "invalid world spec (N problems):\n  - ..."
+// Throws only std::bad_alloc.
+SpecStatus load_spec_json(const char* text, std::size_t length, const SpecLimits& limits,
+                          SpecData& out, std::string& message);
+
+// unit direction u(lat, lon) of docs/terrain.md, computed exactly as spec.unit_vector
+void unit_vector(double lat_deg, double lon_deg, double out[3]);
+
+// numbers in messages, written as Python writes them: repr(x) and format(x, ".{precision}g")
+std::string format_repr(double x);
+std::string format_g(double x, int precision);
+
+}  // namespace gm

@@ -1,0 +1,597 @@
+"""Pictures of a bake: shaded views of the world coloured by material layer, chunk, level or
+measured error, and a histogram of measured errors.
+
+The views are rasterised here with numpy (orthographic camera, z-buffer, normals interpolated
+across each triangle, Lambert shading, a supersampled box filter), because a world has up to
+millions of triangles and a vector renderer would spend minutes on them. matplotlib (the `preview`
+extra) only lays the finished views out with titles, a legend or a colour bar, and writes the PNG.
+
+Colours are handled in linear RGB (layer colours are linear by the spec) and turned into sRGB
+with the sRGB transfer function (IEC 61966-2-1) for the picture.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from ._atomic import write_files_atomically
+from .attributes import NO_LAYER, layer_palette, vertex_attributes
+from .bake import BakeResult
+
+COLOR_MODES = ("layer", "chunk", "level", "error")
+VIEWS: dict[str, tuple[tuple[float, float, float], tuple[float, float, float]]] = {
+    # name: (direction from the centre towards the camera, screen up); Y up, +Z is (0°, 0°)
+    "front": ((0.0, 0.0, 1.0), (0.0, 1.0, 0.0)),
+    "back": ((0.0, 0.0, -1.0), (0.0, 1.0, 0.0)),
+    "east": ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0)),
+    "west": ((-1.0, 0.0, 0.0), (0.0, 1.0, 0.0)),
+    "north": ((0.0, 1.0, 0.0), (0.0, 0.0, -1.0)),
+    "south": ((0.0, -1.0, 0.0), (0.0, 0.0, 1.0)),
+}
+DEFAULT_VIEWS = ("front", "back", "north")
+DEFAULT_SIZE = (1600, 640)
+MIN_SIZE, MAX_SIZE = 64, 8192
+BACKGROUND = "#11151c"
+FOREGROUND = "#e8e8e8"
+# six colours far apart in hue (sRGB), for chunks (adjacent chunks never share one) and levels
+PALETTE = np.array(
+    [
+        [0.90, 0.62, 0.00],
+        [0.34, 0.71, 0.91],
+        [0.00, 0.62, 0.45],
+        [0.94, 0.89, 0.26],
+        [0.80, 0.47, 0.65],
+        [0.84, 0.37, 0.00],
+    ]
+)
+
+F64 = npt.NDArray[np.float64]
+I64 = npt.NDArray[np.int64]
+
+
+def srgb_to_linear(c: npt.ArrayLike) -> F64:
+    """The sRGB transfer function inverted (IEC 61966-2-1)."""
+    c = np.asarray(c, dtype=np.float64)
+    return np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
+
+
+def linear_to_srgb(c: npt.ArrayLike) -> F64:
+    """The sRGB transfer function (IEC 61966-2-1), input clipped to 0..1."""
+    c = np.clip(np.asarray(c, dtype=np.float64), 0.0, 1.0)
+    return np.where(c <= 0.0031308, 12.92 * c, 1.055 * c ** (1 / 2.4) - 0.055)
+
+
+def parse_size(text: str) -> tuple[int, int]:
+    """'WxH' -> (W, H) in pixels, each in MIN_SIZE..MAX_SIZE."""
+    parts = text.lower().replace("×", "x").split("x")
+    try:
+        w, h = (int(p) for p in parts)
+    except ValueError:
+        raise ValueError(
+            f"size: must be WIDTHxHEIGHT in pixels, e.g. 1600x640, got {text!r}"
+        ) from None
+    if not (MIN_SIZE <= w <= MAX_SIZE and MIN_SIZE <= h <= MAX_SIZE):
+        raise ValueError(
+            f"size: width and height must be {MIN_SIZE}..{MAX_SIZE} pixels, got {w}x{h}"
+        )
+    return w, h
+
+
+def view_frame(view: str) -> tuple[F64, F64, F64]:
+    """(towards camera d, screen right, screen up) of a named view or of 'LAT,LON' degrees."""
+    if view in VIEWS:
+        d = np.array(VIEWS[view][0])
+        up = np.array(VIEWS[view][1])
+    else:
+        try:
+            lat, lon = (math.radians(float(x)) for x in view.split(","))
+        except ValueError:
+            names = ", ".join(VIEWS)
+            raise ValueError(
+                f"view: must be one of {names} or LAT,LON in degrees, got {view!r}"
+            ) from None
+        d = np.array([math.cos(lat) * math.sin(lon), math.sin(lat), math.cos(lat) * math.cos(lon)])
+        up = np.array([0.0, 1.0, 0.0]) if abs(d[1]) < 0.999 else np.array([0.0, 0.0, -1.0])
+    right = np.cross(up, d)
+    right /= np.linalg.norm(right)
+    return d, right, np.cross(d, right)
+
+
+# ---- the rasteriser ----------------------------------------------------------------------------
+
+
+@dataclass
+class Raster:
+    """Per pixel of an (h, w) view: the triangle seen (-1: none) and its barycentrics."""
+
+    tri: npt.NDArray[np.int64]
+    bary: npt.NDArray[np.float32]  # (h, w, 3)
+
+
+def rasterize(
+    positions: F64,
+    triangles: npt.NDArray[Any],
+    d: F64,
+    right: F64,
+    up: F64,
+    size: int,
+    extent: float,
+) -> Raster:
+    """Orthographic z-buffer rasterisation of the triangles facing the camera.
+
+    The view is `size` x `size` pixels showing [-extent, extent] metres on both screen axes;
+    pixel (i, j) samples the screen point at its centre. A pixel belongs to the nearest triangle
+    whose closed area holds its centre (edge functions, Pineda 1988), so triangles sharing an
+    edge leave no gap. Vectorised by scanline: every (triangle, pixel row) pair gets its span of
+    pixel centres from the three edge functions, so the work follows the pixels covered.
+    """
+    tri = np.asarray(triangles, dtype=np.int64).reshape(-1, 3)
+    out_tri = np.full(size * size, -1, dtype=np.int64)
+    out_bary = np.zeros((size * size, 3), dtype=np.float32)
+    scale = size / (2.0 * extent)
+    sx = (positions @ right) * scale + size / 2.0
+    sy = size / 2.0 - (positions @ up) * scale
+    depth = positions @ d
+    # face culling: counter-clockwise from outside, so the geometric normal faces the camera
+    p = positions[tri]
+    ids = np.flatnonzero(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]) @ d > 0)
+    tri = tri[ids]
+    x, y = sx[tri], sy[tri]
+    # lambda_k(P) = (a_k * Px + b_k * Py + c_k) / area, the barycentric of corner k: the edge
+    # function of the edge opposite corner k
+    area = (x[:, 1] - x[:, 0]) * (y[:, 2] - y[:, 0]) - (x[:, 2] - x[:, 0]) * (y[:, 1] - y[:, 0])
+    ok = area != 0
+    y0 = np.maximum(np.ceil(y.min(axis=1) - 0.5), 0).astype(np.int64)
+    y1 = np.minimum(np.floor(y.max(axis=1) - 0.5), size - 1).astype(np.int64)
+    ok &= y1 >= y0
+    sel = np.flatnonzero(ok)
+    x, y, area, y0, y1 = x[sel], y[sel], area[sel], y0[sel], y1[sel]
+    a = np.empty((len(sel), 3))
+    b = np.empty((len(sel), 3))
+    c = np.empty((len(sel), 3))
+    for k in range(3):
+        i, j = (k + 1) % 3, (k + 2) % 3
+        a[:, k] = -(y[:, j] - y[:, i]) / area
+        b[:, k] = (x[:, j] - x[:, i]) / area
+        c[:, k] = ((y[:, j] - y[:, i]) * x[:, i] - (x[:, j] - x[:, i]) * y[:, i]) / area
+    # (triangle, row) pairs
+    rows = y1 - y0 + 1
+    t_of_row = np.repeat(np.arange(len(sel)), rows)
+    first = np.cumsum(rows) - rows
+    row = y0[t_of_row] + (np.arange(len(t_of_row)) - first[t_of_row])
+    cy = row + 0.5
+    # span of x where a_k x + (b_k cy + c_k) >= 0 for every k
+    ar = a[t_of_row]
+    br = b[t_of_row] * cy[:, None] + c[t_of_row]
+    slack = 1e-9
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bound = -br / ar
+    lo = np.where(ar > 0, bound, -np.inf).max(axis=1)
+    hi = np.where(ar < 0, bound, np.inf).min(axis=1)
+    flat_out = ((ar == 0) & (br < -slack)).any(axis=1)
+    xl = np.maximum(np.ceil(lo - 0.5 - slack), 0)
+    xr = np.minimum(np.floor(hi - 0.5 + slack), size - 1)
+    n = np.where(flat_out | ~(xr >= xl), 0, xr - xl + 1).astype(np.int64)
+    # pixels
+    p_row = np.repeat(np.arange(len(t_of_row)), n)
+    start = np.cumsum(n) - n
+    col = xl.astype(np.int64)[p_row] + (np.arange(len(p_row)) - start[p_row])
+    t = t_of_row[p_row]
+    cx = col + 0.5
+    pyc = cy[p_row]
+    lam = a[t] * cx[:, None] + b[t] * pyc[:, None] + c[t]
+    lam = np.clip(lam, 0.0, 1.0)
+    lam /= np.maximum(lam.sum(axis=1, keepdims=True), 1e-12)
+    dep = np.einsum("pk,pk->p", lam, depth[tri[sel[t]]])
+    pix = row[p_row] * size + col
+    if len(pix):
+        zbuf = np.full(size * size, -np.inf)
+        np.maximum.at(zbuf, pix, dep)
+        win = dep >= zbuf[pix]
+        out_tri[pix[win]] = ids[sel[t[win]]]
+        out_bary[pix[win]] = lam[win]
+    return Raster(out_tri.reshape(size, size), out_bary.reshape(size, size, 3))
+
+
+def shade_view(
+    positions: F64,
+    normals: F64,
+    triangles: npt.NDArray[Any],
+    *,
+    view: str,
+    size: int,
+    extent: float,
+    vertex_rgb: F64 | None = None,
+    face_rgb: F64 | None = None,
+    supersample: int = 2,
+    ambient: float = 0.18,
+) -> tuple[F64, F64]:
+    """One view: (size, size, 3) linear RGB and the (size, size) share of each pixel covered.
+
+    Colour comes from `vertex_rgb` (interpolated) or `face_rgb` (flat), in linear RGB; light is a
+    directional key light from the viewer's upper left (Lambert) plus `ambient`.
+    """
+    d, right, up = view_frame(view)
+    big = size * supersample
+    tri = np.asarray(triangles, dtype=np.int64).reshape(-1, 3)
+    ras = rasterize(positions, tri, d, right, up, big, extent)
+    flat = ras.tri.reshape(-1)
+    hit = np.flatnonzero(flat >= 0)
+    t = flat[hit]
+    b = ras.bary.reshape(-1, 3)[hit]
+    corners = tri[t]
+    nrm = normals.astype(np.float32)
+    n = (
+        b[:, 0, None] * nrm[corners[:, 0]]
+        + b[:, 1, None] * nrm[corners[:, 1]]
+        + b[:, 2, None] * nrm[corners[:, 2]]
+    )
+    light = -0.45 * right + 0.55 * up + 0.70 * d
+    light = (light / np.linalg.norm(light)).astype(np.float32)
+    cos = (n @ light) / np.maximum(np.sqrt(np.einsum("pj,pj->p", n, n)), 1e-12)
+    lam = ambient + (1.0 - ambient) * np.clip(cos, 0.0, 1.0)
+    if vertex_rgb is not None:
+        col = vertex_rgb.astype(np.float32)
+        albedo = (
+            b[:, 0, None] * col[corners[:, 0]]
+            + b[:, 1, None] * col[corners[:, 1]]
+            + b[:, 2, None] * col[corners[:, 2]]
+        )
+    elif face_rgb is not None:
+        albedo = face_rgb.astype(np.float32)[t]
+    else:
+        albedo = np.full((len(t), 3), 0.5, dtype=np.float32)
+    img = np.zeros((big * big, 3), dtype=np.float32)
+    img[hit] = albedo * lam[:, None]
+    cover = np.zeros(big * big, dtype=np.float32)
+    cover[hit] = 1.0
+    img = img.reshape(size, supersample, size, supersample, 3).mean(axis=(1, 3))
+    cover = cover.reshape(size, supersample, size, supersample).mean(axis=(1, 3))
+    # un-premultiply the covered share so rims blend with the background later
+    rgb = (img / np.maximum(cover, 1e-9)[:, :, None]).astype(np.float64)
+    return rgb, cover.astype(np.float64)
+
+
+# ---- what to draw ------------------------------------------------------------------------------
+
+
+def chunk_colors(neighbors: npt.NDArray[Any]) -> I64:
+    """A palette index per chunk such that chunks sharing an edge differ: greedy colouring
+    (every chunk has 3 neighbours, so 4 colours always suffice, Brooks 1941), each chunk taking
+    the least used colour its neighbours leave free, so the whole palette shows."""
+    n = len(neighbors)
+    color = np.full(n, -1, dtype=np.int64)
+    used = np.zeros(len(PALETTE), dtype=np.int64)
+    for c in range(n):
+        taken = {int(color[int(x)]) for x in neighbors[c] if color[int(x)] >= 0}
+        free = [i for i in range(len(PALETTE)) if i not in taken]
+        color[c] = min(free, key=lambda i: (used[i], i))
+        used[color[c]] += 1
+    return color
+
+
+def view_levels(result: BakeResult, view: str) -> I64:
+    """The level each chunk is drawn at in the `level` picture: finest facing the viewer,
+    coarser with the angle from the view centre (one level per 90° / levels), then coarsened
+    neighbours refined until neighbouring chunks differ by at most one level, as the stitched
+    seams require."""
+    nlev = len(result.levels)
+    d, _, _ = view_frame(view)
+    centres = np.array(
+        [result.directions[ch.vertex_ids].mean(axis=0) for ch in result.levels[0].chunks]
+    )
+    centres /= np.linalg.norm(centres, axis=1, keepdims=True)
+    angle = np.degrees(np.arccos(np.clip(centres @ d, -1.0, 1.0)))
+    level = np.minimum((angle / (90.0 / nlev)).astype(np.int64), nlev - 1)
+    nb = result.chunk_neighbors.astype(np.int64)
+    while True:
+        lowest = level[nb].min(axis=1) + 1
+        new = np.minimum(level, lowest)
+        if np.array_equal(new, level):
+            return level
+        level = new
+
+
+def level_mix(result: BakeResult, levels: I64) -> tuple[F64, F64, I64, I64]:
+    """Chunks at the given levels, each with the stitched variant its coarser neighbours call
+    for: positions, normals, triangles (one buffer) and the level of each triangle."""
+    pos, nrm, tris, lev = [], [], [], []
+    base = 0
+    for c, lv in enumerate(levels):
+        ch = result.levels[int(lv)].chunks[c]
+        mask = 0
+        for i, n in enumerate(result.chunk_neighbors[c]):
+            if levels[int(n)] == lv + 1:
+                mask |= 1 << i
+        border = ch.stitched.get(mask, ch.triangles[ch.interior :]) if mask else None
+        t = (
+            ch.triangles
+            if border is None
+            else np.concatenate([ch.triangles[: ch.interior], border])
+        )
+        nsurf = len(ch.vertex_ids)
+        pos.append(ch.positions[:nsurf])
+        nrm.append(ch.normals[:nsurf])
+        tris.append(t.astype(np.int64) + base)
+        lev.append(np.full(len(t), lv, dtype=np.int64))
+        base += nsurf
+    return np.concatenate(pos), np.concatenate(nrm), np.concatenate(tris), np.concatenate(lev)
+
+
+@dataclass
+class PreviewStats:
+    """What a preview drew: triangles of the drawn mesh and seconds spent rendering."""
+
+    path: Path
+    size: tuple[int, int]
+    triangles: int
+    seconds: float
+
+
+def preview_png(
+    result: BakeResult,
+    *,
+    color: str = "layer",
+    level: int = 0,
+    size: tuple[int, int] = DEFAULT_SIZE,
+    views: Sequence[str] = DEFAULT_VIEWS,
+    supersample: int = 2,
+) -> tuple[bytes, int]:
+    """The picture as PNG bytes, and the number of triangles drawn per view.
+
+    color : layer (the layer rules' colours), chunk, level (chunks at mixed levels joined by
+    stitched seams) or error (measured deviation of each triangle, a heat map from 0 to the
+    level's tolerance with a colour bar). level : which level to draw (not for color=level).
+    """
+    from matplotlib.colors import Normalize
+    from matplotlib.figure import Figure
+    from matplotlib.patches import Patch
+
+    if color not in COLOR_MODES:
+        raise ValueError(f"color: must be one of {', '.join(COLOR_MODES)}, got {color!r}")
+    nlev = len(result.levels)
+    if not isinstance(level, int) or not 0 <= level < nlev:
+        raise ValueError(f"level: must be an integer in 0..{nlev - 1}, got {level!r}")
+    if not views:
+        raise ValueError("views: name at least one view")
+    for v in views:
+        view_frame(v)  # raises on a bad view
+    width, height = size
+    spec = result.spec
+    lv = result.levels[level]
+    extent = 1.02 * float(np.linalg.norm(result.vertices, axis=1).max())
+
+    legend: list[Patch] = []
+    colorbar: tuple[Any, Normalize, str] | None = None
+    if color != "level":
+        positions, tris = result.mesh(level)
+        ids = np.flatnonzero(lv.present)
+        normals = result.normals[ids]
+    vertex_rgb = face_rgb = None
+    per_view: list[tuple[F64, F64, npt.NDArray[Any], F64 | None, F64 | None]] = []
+    if color == "layer":
+        att = vertex_attributes(spec, result.directions[ids])
+        vertex_rgb = layer_palette(spec.layers)[att.layer]
+        # share of the ground's area: each vertex stands for a third of its triangles' area
+        corner = positions[tris]
+        area = 0.5 * np.linalg.norm(
+            np.cross(corner[:, 1] - corner[:, 0], corner[:, 2] - corner[:, 0]), axis=1
+        )
+        vertex_area = np.zeros(len(positions))
+        for k in range(3):
+            np.add.at(vertex_area, tris[:, k], area / 3.0)
+        share = 100.0 * np.bincount(att.layer, weights=vertex_area, minlength=256)
+        share /= max(float(vertex_area.sum()), 1e-300)
+        for i, rule in enumerate(spec.layers):
+            legend.append(
+                Patch(color=linear_to_srgb(rule.color), label=f"{rule.name} {share[i]:.0f}%")
+            )
+        if share[NO_LAYER] > 0 or not spec.layers:
+            legend.append(
+                Patch(
+                    color=linear_to_srgb(layer_palette([])[0]),
+                    label=f"no rule {share[NO_LAYER]:.0f}%",
+                )
+            )
+        subtitle = "coloured by material layer (key: share of the ground's area)"
+    elif color == "chunk":
+        pal = srgb_to_linear(PALETTE)[chunk_colors(result.chunk_neighbors)]
+        face_rgb = pal[lv.chunk]
+        subtitle = f"coloured by chunk ({len(lv.chunks)} chunks)"
+    elif color == "error":
+        from matplotlib import colormaps
+
+        cmap = colormaps["inferno"]
+        norm = Normalize(0.0, lv.tolerance_m)
+        face_rgb = srgb_to_linear(cmap(norm(lv.errors.astype(np.float64)))[:, :3])
+        colorbar = (cmap, norm, f"measured deviation (m), tolerance {lv.tolerance_m:g} m")
+        worst = float(lv.errors.max()) if len(lv.errors) else 0.0
+        subtitle = f"coloured by measured error (max {worst:.3g} m)"
+    else:
+        subtitle = "coloured by level: finest facing the viewer, seams stitched"
+        for k in range(nlev):
+            tol = result.levels[k].tolerance_m
+            legend.append(Patch(color=PALETTE[k % len(PALETTE)], label=f"level {k}, {tol:g} m"))
+    if color == "level":
+        for v in views:
+            p, n, t, lev_of_tri = level_mix(result, view_levels(result, v))
+            face = srgb_to_linear(PALETTE)[lev_of_tri % len(PALETTE)]
+            per_view.append((p, n, t, None, face))
+    else:
+        per_view = [(positions, normals, tris, vertex_rgb, face_rgb)] * len(views)
+
+    # layout in pixels: a title band on top, the views in a row, the key on the right
+    dpi = 100
+    key_w = 0 if not (legend or colorbar) else min(260, max(150, width // 6))
+    title_h = min(64, max(28, height // 10))
+    label_h = min(24, max(14, height // 30))
+    side = int(min((width - key_w) / len(views), height - title_h - label_h))
+    side = max(side, 8)
+    fig = Figure(figsize=(width / dpi, height / dpi), dpi=dpi, facecolor=BACKGROUND)
+    fs = max(6.0, min(14.0, title_h * 0.28))
+    ntris = 0
+    name = spec.name
+    what = f"level {level}" if color != "level" else "mixed levels"
+    if color != "level":
+        ntris = len(tris)
+        what += f": {ntris:,} triangles, tolerance {lv.tolerance_m:g} m"
+    fig.text(
+        0.01,
+        1 - 0.45 * title_h / height,
+        f"{name} — {what}",
+        color=FOREGROUND,
+        fontsize=fs * 1.15,
+        va="center",
+        ha="left",
+        weight="bold",
+    )
+    fig.text(
+        0.01,
+        1 - 0.85 * title_h / height,
+        subtitle,
+        color=FOREGROUND,
+        fontsize=fs * 0.85,
+        va="center",
+        ha="left",
+        alpha=0.8,
+    )
+    bg = np.array([int(BACKGROUND[i : i + 2], 16) / 255 for i in (1, 3, 5)])
+    row_w = side * len(views)
+    left0 = (width - key_w - row_w) / 2
+    # the row of views sits in the middle of the space under the title
+    bottom0 = max(label_h, (height - title_h - side - label_h) / 2 + label_h)
+    for i, (v, (p, n, t, vrgb, frgb)) in enumerate(zip(views, per_view, strict=True)):
+        rgb, cover = shade_view(
+            p,
+            n,
+            t,
+            view=v,
+            size=side,
+            extent=extent,
+            vertex_rgb=vrgb,
+            face_rgb=frgb,
+            supersample=supersample,
+        )
+        ntris = max(ntris, len(t))
+        srgb = linear_to_srgb(rgb)
+        img = srgb * cover[:, :, None] + bg[None, None, :] * (1 - cover[:, :, None])
+        ax = fig.add_axes(
+            (
+                (left0 + i * side) / width,
+                bottom0 / height,
+                side / width,
+                side / height,
+            )
+        )
+        ax.imshow(img, interpolation="nearest")
+        ax.set_axis_off()
+        fig.text(
+            (left0 + (i + 0.5) * side) / width,
+            (bottom0 - label_h * 0.6) / height,
+            v,
+            color=FOREGROUND,
+            fontsize=fs * 0.8,
+            ha="center",
+            va="center",
+        )
+    if legend:
+        fig.legend(
+            handles=legend,
+            loc="center right",
+            frameon=False,
+            labelcolor=FOREGROUND,
+            fontsize=fs * 0.8,
+            bbox_to_anchor=(1.0, 0.5),
+        )
+    if colorbar is not None:
+        from matplotlib.cm import ScalarMappable
+
+        cmap, norm, label = colorbar
+        cax = fig.add_axes(
+            (
+                (width - key_w + 0.25 * key_w) / width,
+                0.15,
+                min(0.12 * key_w, 24) / width,
+                0.7,
+            )
+        )
+        cb = fig.colorbar(ScalarMappable(norm=norm, cmap=cmap), cax=cax)
+        cb.set_label(label, color=FOREGROUND, fontsize=fs * 0.75)
+        cb.ax.tick_params(colors=FOREGROUND, labelsize=fs * 0.7)
+        cb.outline.set_edgecolor(FOREGROUND)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, facecolor=BACKGROUND, metadata={"Software": None})
+    return buf.getvalue(), ntris
+
+
+def write_preview(
+    result: BakeResult,
+    path: str | Path,
+    *,
+    color: str = "layer",
+    level: int = 0,
+    size: tuple[int, int] = DEFAULT_SIZE,
+    views: Sequence[str] = DEFAULT_VIEWS,
+    supersample: int = 2,
+) -> PreviewStats:
+    """Render the picture (see preview_png) and write it to `path` atomically."""
+    t0 = time.perf_counter()
+    data, ntris = preview_png(
+        result, color=color, level=level, size=size, views=views, supersample=supersample
+    )
+    out = Path(path)
+    write_files_atomically({out: data})
+    return PreviewStats(out, size, ntris, time.perf_counter() - t0)
+
+
+def error_histogram_png(
+    errors: npt.ArrayLike,
+    tolerance: float,
+    path: str | Path,
+    *,
+    size: tuple[int, int] = (900, 500),
+    title: str = "measured deviation per triangle",
+) -> Path:
+    """A histogram of measured errors (metres) with the tolerance marked, written atomically to
+    `path` as PNG. Counts are on a log scale, so the few worst triangles stay visible."""
+    from matplotlib.figure import Figure
+
+    e = np.asarray(errors, dtype=np.float64).reshape(-1)
+    e = e[np.isfinite(e)]
+    tol = float(tolerance)
+    width, height = size
+    dpi = 100
+    fig = Figure(figsize=(width / dpi, height / dpi), dpi=dpi)
+    ax = fig.add_axes((0.1, 0.14, 0.86, 0.74))
+    top = max(tol, float(e.max()) if len(e) else 0.0) * 1.05 or 1.0
+    bins = np.linspace(0.0, top, 61)
+    if len(e):
+        ax.hist(e, bins=bins, color="#3b75af", log=True)
+    ax.axvline(tol, color="#c0392b", linestyle="--", linewidth=1.5, label=f"tolerance {tol:g} m")
+    over = int(np.sum(e > tol))
+    if len(e):
+        stats = (
+            f"{len(e):,} triangles, max {e.max():.4g} m, median {np.median(e):.4g} m, "
+            f"{over:,} over the tolerance"
+        )
+    else:
+        stats = "no triangles"
+    ax.set_title(f"{title}\n{stats}", fontsize=10)
+    ax.set_xlabel("deviation from the true surface (m)")
+    ax.set_ylabel("triangles (log scale)")
+    ax.set_xlim(0.0, top)
+    ax.legend(loc="upper right", frameon=False)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi, metadata={"Software": None})
+    out = Path(path)
+    write_files_atomically({out: buf.getvalue()})
+    return out

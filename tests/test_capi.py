@@ -1,0 +1,1040 @@
+"""The C ABI (csrc/include/globemill.h) through ctypes, and the host examples in
+bindings_examples/ (C, Cython, C#): the same feature rows, problem lines, meshes, attributes and
+colliders as the Python API for the same spec, and a status plus a message (never a crash) for
+every bad input.
+
+The library is found next to globemill._core (where `pip install .` puts it); set
+GLOBEMILL_LIBRARY to test another build.
+"""
+
+from __future__ import annotations
+
+import copy
+import ctypes as C
+import json
+import os
+import re
+import shutil
+import subprocess
+import sys
+import threading
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+import pytest
+
+import globemill
+from globemill import _core
+from globemill.bake import BakeResult
+from globemill.spec import SpecError, json_schema, load_spec, parse_spec
+
+ROOT = Path(__file__).resolve().parents[1]
+HEADER = ROOT / "csrc" / "include" / "globemill.h"
+DEMO = ROOT / "examples" / "pebblemoor.json"
+CORPUS = ROOT / "tests" / "fuzz" / "corpus"
+EXAMPLES = ROOT / "bindings_examples"
+
+OK, INVALID_ARGUMENT, PARSE, SPEC, BUDGET, BUFFER_TOO_SMALL = 0, 1, 2, 3, 4, 5
+POSITION, DIRECTION, NORMAL, MORPH, SLOPE, ALTITUDE, COLOR = range(7)
+MAX_LAYERS: int = json_schema()["properties"]["layers"].get("maxItems", 255)
+
+
+# --------------------------------------------------------------------------------------------
+# ctypes mirror of the header's structs
+
+
+class Error(C.Structure):
+    _fields_ = [("status", C.c_int32), ("truncated", C.c_int32), ("message", C.c_char * 1024)]
+
+
+class WorldInfo(C.Structure):
+    _fields_ = [
+        ("radius_m", C.c_double),
+        ("tolerance_m", C.c_double),
+        ("ratio", C.c_double),
+        ("skirt_depth_m", C.c_double),
+        ("collision_tolerance_m", C.c_double),
+        ("max_triangles", C.c_uint64),
+        ("feature_count", C.c_uint32),
+        ("layer_count", C.c_uint32),
+        ("levels", C.c_uint32),
+        ("chunk_level", C.c_uint32),
+        ("chunk_count", C.c_uint32),
+        ("collision_max_triangles_per_chunk", C.c_uint32),
+        ("offset", C.c_int32),
+        ("seams", C.c_int32),
+        ("collision_bias", C.c_int32),
+        ("reserved", C.c_int32),
+        ("name", C.c_char * 72),
+    ]
+
+
+PROGRESS = C.CFUNCTYPE(None, C.c_void_p, C.c_int32, C.c_uint64)
+
+
+class BakeOptions(C.Structure):
+    _fields_ = [
+        ("struct_size", C.c_uint32),
+        ("threads", C.c_int32),
+        ("tolerance_m", C.c_double),
+        ("ratio", C.c_double),
+        ("levels", C.c_int32),
+        ("chunk_level", C.c_int32),
+        ("offset", C.c_int32),
+        ("collision", C.c_int32),
+        ("max_triangles", C.c_uint64),
+        ("progress", PROGRESS),
+        ("progress_user", C.c_void_p),
+    ]
+
+
+class BakeInfo(C.Structure):
+    _fields_ = [
+        ("vertex_count", C.c_uint64),
+        ("level_count", C.c_uint32),
+        ("chunk_count", C.c_uint32),
+        ("seams", C.c_int32),
+        ("has_colliders", C.c_int32),
+        ("skirt_depth_m", C.c_double),
+        ("collision_tolerance_m", C.c_double),
+        ("collision_max_error_m", C.c_double),
+        ("collision_triangles", C.c_uint64),
+        ("collision_max_triangles_per_chunk", C.c_uint64),
+    ]
+
+
+class LevelInfo(C.Structure):
+    _fields_ = [
+        ("tolerance_m", C.c_double),
+        ("max_error_m", C.c_double),
+        ("mesh_to_surface_m", C.c_double),
+        ("surface_to_mesh_m", C.c_double),
+        ("vertex_count", C.c_uint64),
+        ("triangle_count", C.c_uint64),
+        ("repaired", C.c_uint64),
+        ("stitch_failures", C.c_uint64),
+    ]
+
+
+class ChunkInfo(C.Structure):
+    _fields_ = [
+        ("vertex_count", C.c_uint64),
+        ("surface_vertex_count", C.c_uint64),
+        ("triangle_count", C.c_uint64),
+        ("interior_count", C.c_uint64),
+        ("skirt_triangle_count", C.c_uint64),
+        ("stitched_triangle_count", C.c_uint64 * 8),
+        ("neighbors", C.c_uint32 * 3),
+        ("corners", C.c_uint32 * 3),
+    ]
+
+
+def _library_path() -> Path | None:
+    env = os.environ.get("GLOBEMILL_LIBRARY")
+    if env:
+        return Path(env)
+    folders = [Path(_core.__file__).parent, Path(globemill.__file__).parent]
+    for folder in folders:
+        for name in ("libglobemill.so", "libglobemill.dylib", "globemill.dll"):
+            if (folder / name).exists():
+                return folder / name
+    return None
+
+
+class Api:
+    """Thin ctypes calls; every status-returning function is checked by the caller."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.lib = C.CDLL(str(path))
+        self.lib.gm_version.restype = C.c_uint32
+        self.lib.gm_version_string.restype = C.c_char_p
+        self.lib.gm_status_name.restype = C.c_char_p
+        self.lib.gm_vertex_data_components.restype = C.c_uint32
+        for name in ("gm_world_destroy", "gm_bake_destroy", "gm_bake_options_init"):
+            getattr(self.lib, name).restype = None
+
+    def spec_check(self, text: bytes) -> tuple[int, str]:
+        n = C.c_size_t()
+        status = self.lib.gm_spec_check(
+            None, C.c_size_t(0), C.byref(n), text, C.c_size_t(len(text))
+        )
+        buf = C.create_string_buffer(n.value + 1)
+        again = self.lib.gm_spec_check(buf, C.c_size_t(n.value + 1), C.byref(n), text, len(text))
+        assert again == status
+        return status, buf.value.decode()
+
+    def world(self, text: bytes | str) -> tuple[int, C.c_void_p, str]:
+        data = text.encode() if isinstance(text, str) else text
+        w = C.c_void_p(1)
+        err = Error()
+        status = self.lib.gm_world_create(C.byref(w), data, C.c_size_t(len(data)), C.byref(err))
+        assert err.status == status
+        return status, w, err.message.decode()
+
+    def options(self, **kw: Any) -> BakeOptions:
+        o = BakeOptions()
+        self.lib.gm_bake_options_init(C.byref(o))
+        for k, v in kw.items():
+            setattr(o, k, v)
+        return o
+
+    def bake(self, world: C.c_void_p, **kw: Any) -> tuple[int, C.c_void_p, str]:
+        b = C.c_void_p(1)
+        err = Error()
+        o = self.options(**kw)
+        status = self.lib.gm_bake_create(C.byref(b), world, C.byref(o), C.byref(err))
+        assert err.status == status
+        return status, b, err.message.decode()
+
+    def array(self, fn: str, count: int, dtype: npt.DTypeLike, *args: Any) -> np.ndarray:
+        out = np.zeros(count, dtype)
+        err = Error()
+        status = getattr(self.lib, fn)(
+            out.ctypes.data_as(C.c_void_p), C.c_size_t(count), *args, C.byref(err)
+        )
+        assert status == OK, err.message.decode()
+        return out
+
+    def info(self, fn: str, struct: type[C.Structure], *args: Any) -> Any:
+        out = struct()
+        err = Error()
+        status = getattr(self.lib, fn)(C.byref(out), *args, C.byref(err))
+        assert status == OK, err.message.decode()
+        return out
+
+
+@pytest.fixture(scope="module")
+def api() -> Api:
+    path = _library_path()
+    if path is None:
+        if os.environ.get("CI"):
+            pytest.fail("libglobemill not found next to globemill._core: `pip install .` builds it")
+        pytest.skip("libglobemill not built (rebuild with pip install .)")
+    return Api(path)
+
+
+def coarse_demo() -> dict[str, Any]:
+    """The demo world at tolerance 4 m (colliders at the default 4x, 16 m): quick to bake."""
+    d = json.loads(DEMO.read_text())
+    d["tolerance_m"] = 4.0
+    return d
+
+
+@pytest.fixture(scope="module")
+def demo_py() -> BakeResult:
+    return globemill.bake(parse_spec(coarse_demo()))
+
+
+@pytest.fixture(scope="module")
+def demo_c(api: Api) -> C.c_void_p:
+    status, w, msg = api.world(json.dumps(coarse_demo()))
+    assert status == OK, msg
+    status, b, msg = api.bake(w)
+    api.lib.gm_world_destroy(w)
+    assert status == OK, msg
+    yield b
+    api.lib.gm_bake_destroy(b)
+
+
+def bits(a: np.ndarray) -> bytes:
+    return np.ascontiguousarray(a).tobytes()
+
+
+def same(a: np.ndarray, b: npt.ArrayLike) -> bool:
+    """Equal shape, dtype and bytes: bit for bit."""
+    b = np.asarray(b)
+    return a.shape == b.shape and a.dtype == b.dtype and bits(a) == bits(b)
+
+
+# --------------------------------------------------------------------------------------------
+# version, spec rows, field
+
+
+def test_version_matches_header_and_package(api: Api) -> None:
+    text = HEADER.read_text()
+    major, minor, patch = (
+        int(re.search(rf"#define GM_VERSION_{k} (\d+)", text).group(1))  # type: ignore[union-attr]
+        for k in ("MAJOR", "MINOR", "PATCH")
+    )
+    assert api.lib.gm_version() == major * 10000 + minor * 100 + patch
+    assert api.lib.gm_version_string().decode() == f"{major}.{minor}.{patch}"
+    assert api.lib.gm_version_string().decode() == globemill.__version__
+    assert "#define GM_ERROR_MESSAGE_SIZE 1024" in text  # the ctypes Error above
+    assert api.lib.gm_status_name(3) == b"invalid world spec"
+
+
+def test_feature_rows_equal_core_features_bit_for_bit_on_demo_world(api: Api) -> None:
+    status, w, msg = api.world(DEMO.read_bytes())
+    assert status == OK, msg
+    info = api.info("gm_world_get_info", WorldInfo, w)
+    rows = api.array("gm_world_features", 16 * info.feature_count, np.float64, w).reshape(-1, 16)
+    api.lib.gm_world_destroy(w)
+    expected = load_spec(DEMO).core_features()
+    assert same(rows, expected)
+
+
+def _random_world(rng: np.random.Generator, n: int) -> dict[str, Any]:
+    """Random features of every kind; angles often on multiples of 90° (the exact branch)."""
+
+    def angle(limit: float) -> float:
+        if rng.random() < 0.3:
+            return float(rng.choice(np.arange(-limit, limit + 1, 90.0)))
+        return float(rng.uniform(-limit, limit))
+
+    feats: list[dict[str, Any]] = []
+    blends = ["add", "max", "min", "set", "smooth_max", "smooth_min"]
+    for _ in range(n):
+        kind = rng.choice(["hill", "mesa", "block", "crater", "ridge", "noise"])
+        f: dict[str, Any] = {"kind": str(kind), "blend": str(rng.choice(blends))}
+        f["blend_width_m"] = float(rng.uniform(0.5, 5))
+        if kind != "ridge" and kind != "noise":
+            f |= {"lat_deg": angle(90), "lon_deg": angle(180)}
+        if kind == "hill":
+            f |= {"amplitude_m": float(rng.uniform(0.1, 2)), "sigma_m": float(rng.uniform(1, 9))}
+        elif kind == "mesa":
+            f |= {"height_m": 1.5, "radius_m": float(rng.uniform(1, 9)), "wall_m": 0}
+        elif kind == "block":
+            f |= {"height_m": -1, "half_x_m": 3, "half_y_m": 2.5, "corner_m": 1}
+            f |= {"heading_deg": angle(360), "wall_m": float(rng.uniform(0, 2))}
+        elif kind == "crater":
+            f |= {"radius_m": 4, "depth_m": 1.25, "rim_height_m": 0.5, "rim_width_m": 2}
+        elif kind == "ridge":
+            lat, lon = angle(80), angle(170)
+            f |= {"lat0_deg": lat, "lon0_deg": lon, "lat1_deg": lat + 5.5, "lon1_deg": lon / 2 + 3}
+            f |= {
+                "height_m": 1.0,
+                "half_width_m": 3.0,
+                "profile": str(rng.choice(["round", "sharp"])),
+            }
+        else:
+            f |= {"amplitude_m": 0.5, "frequency_per_m": 0.01, "octaves": int(rng.integers(1, 13))}
+            f |= {"gain": float(rng.uniform(0.1, 1)), "seed": int(rng.integers(0, 2**32))}
+        feats.append(f)
+    return {"name": "random", "radius_m": 5000.0, "tolerance_m": 5.0, "features": feats}
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_feature_rows_equal_core_features_on_random_worlds(api: Api, seed: int) -> None:
+    d = _random_world(np.random.default_rng(seed), 300)
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    rows = api.array("gm_world_features", 16 * 300, np.float64, w).reshape(-1, 16)
+    api.lib.gm_world_destroy(w)
+    assert same(rows, parse_spec(d).core_features())
+
+
+def test_height_and_gradient_equal_python_field(api: Api) -> None:
+    spec = load_spec(DEMO)
+    status, w, msg = api.world(DEMO.read_bytes())
+    assert status == OK, msg
+    dirs = np.random.default_rng(7).normal(size=(2000, 3))
+    ptr = dirs.ctypes.data_as(C.c_void_p)
+    h = api.array("gm_world_height", 2000, np.float64, w, ptr, C.c_size_t(2000))
+    g = api.array("gm_world_gradient", 6000, np.float64, w, ptr, C.c_size_t(2000))
+    fld = globemill.field(spec)
+    assert same(h, fld.height(dirs))
+    assert same(g.reshape(-1, 3), fld.gradient(dirs))
+    # a zero direction is refused, as Field.height refuses it
+    dirs[5] = 0
+    err = Error()
+    out = np.zeros(2000)
+    s = api.lib.gm_world_height(
+        out.ctypes.data_as(C.c_void_p), C.c_size_t(2000), w, ptr, C.c_size_t(2000), C.byref(err)
+    )
+    assert s == INVALID_ARGUMENT and b"directions[5]" in err.message
+    with pytest.raises(ValueError, match=r"directions\[5\]"):
+        fld.height(dirs)
+    api.lib.gm_world_destroy(w)
+
+
+def test_world_info_holds_the_spec_defaults(api: Api) -> None:
+    d = {"name": "plain", "radius_m": 300, "tolerance_m": 2}
+    spec = parse_spec(d)
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    info = api.info("gm_world_get_info", WorldInfo, w)
+    api.lib.gm_world_destroy(w)
+    assert info.name == b"plain" and info.radius_m == 300 and info.tolerance_m == 2
+    assert (info.levels, info.ratio, info.chunk_level) == (
+        spec.lod.levels,
+        spec.lod.ratio,
+        spec.lod.chunk_level,
+    )
+    assert info.chunk_count == 20 * 4**spec.lod.chunk_level
+    assert info.max_triangles == spec.max_triangles
+    assert info.collision_tolerance_m == 4 * spec.tolerance_m  # bake.py's default
+    assert info.collision_max_triangles_per_chunk == spec.collision.max_triangles_per_chunk
+    assert info.offset == ["radial", "normal", "exact"].index(spec.offset)
+    assert info.collision_bias == ["none", "centered"].index(spec.collision.bias)
+    assert info.seams == ["stitch", "skirt"].index(spec.lod.seams)
+
+
+# --------------------------------------------------------------------------------------------
+# baking: the same arrays as globemill.bake
+
+
+def compare_bake(api: Api, b: C.c_void_p, r: BakeResult) -> None:
+    """Every array of a C bake equals the Python bake's, bit for bit."""
+    bi = api.info("gm_bake_get_info", BakeInfo, b)
+    V = bi.vertex_count
+    assert V == len(r.vertices) and bi.level_count == len(r.levels)
+
+    def pool(which: int, n: int) -> np.ndarray:
+        a = api.array("gm_bake_vertex_data", n * V, np.float64, b, C.c_int32(which))
+        return a.reshape(V, 3) if n == 3 else a
+
+    assert same(pool(POSITION, 3), r.vertices)
+    assert same(pool(DIRECTION, 3), r.directions)
+    assert same(pool(NORMAL, 3), r.normals)
+    try:
+        from globemill.attributes import vertex_attributes
+    except ImportError:  # attributes are another module's; compare when it is there
+        vertex_attributes = None
+    if vertex_attributes is not None:
+        va = vertex_attributes(r.spec, r.directions)
+        assert same(pool(SLOPE, 1), va.slope_deg)
+        assert same(pool(ALTITUDE, 1), va.altitude_m)
+        assert same(pool(COLOR, 3), va.color)
+        assert same(api.array("gm_bake_vertex_layers", V, np.uint8, b), va.layer)
+    for k, lr in enumerate(r.levels):
+        lk = C.c_uint32(k)
+        li = api.info("gm_bake_level_info", LevelInfo, b, lk)
+        T = li.triangle_count
+        assert li.vertex_count == lr.report["vertices"] and T == lr.report["triangles"]
+        assert li.max_error_m == lr.report["max_error_m"] and li.tolerance_m == lr.tolerance_m
+        assert li.repaired == lr.report["repaired"]
+        tris = api.array("gm_bake_level_triangles", 3 * T, np.uint32, b, lk).reshape(-1, 3)
+        assert same(tris, lr.triangles)
+        assert same(api.array("gm_bake_level_triangle_chunks", T, np.uint32, b, lk), lr.chunk)
+        assert same(api.array("gm_bake_level_errors", T, np.float32, b, lk), lr.errors)
+        morph = api.array("gm_bake_level_morph", 3 * V, np.float64, b, lk).reshape(-1, 3)
+        assert same(morph, lr.morph)
+        present = api.array("gm_bake_level_present", V, np.uint8, b, lk)
+        assert same(present.astype(bool), lr.present)
+        for cm in lr.chunks:
+            c = C.c_uint32(cm.chunk)
+            ci = api.info("gm_chunk_get_info", ChunkInfo, b, lk, c)
+            n = ci.vertex_count
+            ids = api.array("gm_chunk_vertex_ids", ci.surface_vertex_count, np.uint32, b, lk, c)
+            assert same(ids, cm.vertex_ids)
+            for which, want in ((POSITION, cm.positions), (NORMAL, cm.normals), (MORPH, cm.morph)):
+                got = api.array("gm_chunk_vertex_data", 3 * n, np.float64, b, lk, c, which)
+                assert same(got.reshape(-1, 3), want)
+            t = api.array("gm_chunk_triangles", 3 * ci.triangle_count, np.uint32, b, lk, c)
+            assert same(t.reshape(-1, 3), cm.triangles)
+            assert ci.interior_count == cm.interior
+            for mask in range(1, 8):
+                m = ci.stitched_triangle_count[mask]
+                st = api.array("gm_chunk_stitched", 3 * m, np.uint32, b, lk, c, C.c_uint32(mask))
+                want_st = cm.stitched.get(mask, np.zeros((0, 3), np.uint32))
+                assert same(st.reshape(-1, 3), want_st)
+            sk = api.array("gm_chunk_skirt", 3 * ci.skirt_triangle_count, np.uint32, b, lk, c)
+            assert same(sk.reshape(-1, 3), cm.skirt.reshape(-1, 3))
+            assert list(ci.neighbors) == list(r.chunk_neighbors[cm.chunk])
+            assert list(ci.corners) == list(r.chunk_corners[cm.chunk])
+    assert bool(bi.has_colliders) == bool(r.colliders)
+    if r.colliders:
+        col = r.report["collision"]
+        assert bi.collision_tolerance_m == col["tolerance_m"]
+        assert bi.collision_max_error_m == col["max_error_m"]
+        assert bi.collision_triangles == col["triangles"]
+        assert bi.collision_max_triangles_per_chunk == col["max_triangles_per_chunk"]
+        for cl in r.colliders:
+            c = C.c_uint32(cl.chunk)
+            nv, nt = C.c_uint64(), C.c_uint64()
+            assert api.lib.gm_collider_counts(C.byref(nv), C.byref(nt), b, c, None) == OK
+            pos = api.array("gm_collider_positions", 3 * nv.value, np.float64, b, c)
+            assert same(pos.reshape(-1, 3), cl.positions)
+            tri = api.array("gm_collider_triangles", 3 * nt.value, np.uint32, b, c)
+            assert same(tri.reshape(-1, 3), cl.triangles)
+
+
+def test_bake_equals_python_bake_on_demo_world(
+    api: Api, demo_c: C.c_void_p, demo_py: BakeResult
+) -> None:
+    # stitched seams, centered collider bias (bake._bias_vertices ported in the same order)
+    assert demo_py.report["collision"]["bias"] == "centered"
+    compare_bake(api, demo_c, demo_py)
+
+
+@pytest.fixture(scope="module")
+def small_spec() -> dict[str, Any]:
+    return json.loads((CORPUS / "valid_small.json").read_text())
+
+
+def test_skirt_seams_and_unbiased_colliders_equal_python(
+    api: Api, small_spec: dict[str, Any]
+) -> None:
+    d = copy.deepcopy(small_spec)
+    d["lod"]["seams"] = "skirt"
+    d["lod"]["skirt_depth_m"] = 0.0  # 0: twice the coarsest tolerance, as bake.py
+    d["collision"]["bias"] = "none"
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    status, b, msg = api.bake(w)
+    assert status == OK, msg
+    r = globemill.bake(parse_spec(d))
+    assert any(len(cm.skirt) for cm in r.levels[0].chunks)
+    compare_bake(api, b, r)
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
+
+
+def test_bake_options_act_like_python_keywords(api: Api, small_spec: dict[str, Any]) -> None:
+    status, w, msg = api.world(json.dumps(small_spec))
+    assert status == OK, msg
+    opts = {"tolerance_m": 6.0, "levels": 2, "ratio": 3.0, "chunk_level": 1, "offset": 2}
+    status, b, msg = api.bake(w, collision=0, **opts)
+    assert status == OK, msg
+    r = globemill.bake(
+        parse_spec(small_spec),
+        offset="exact",
+        collision=False,
+        **{k: v for k, v in opts.items() if k != "offset"},
+    )
+    compare_bake(api, b, r)
+    err = Error()
+    assert api.lib.gm_collider_counts(None, None, b, 0, C.byref(err)) == INVALID_ARGUMENT
+    assert b"no colliders" in err.message
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
+
+
+def test_empty_feature_list_bakes_the_bare_sphere_like_python(api: Api) -> None:
+    d = {"name": "bare", "radius_m": 100, "tolerance_m": 5, "features": []}
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    assert api.info("gm_world_get_info", WorldInfo, w).feature_count == 0
+    status, b, msg = api.bake(w)
+    assert status == OK, msg
+    compare_bake(api, b, globemill.bake(parse_spec(d)))
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
+
+
+def test_thousands_of_features(api: Api) -> None:
+    rng = np.random.default_rng(11)
+    feats = [
+        {
+            "kind": "hill",
+            "lat_deg": float(rng.uniform(-90, 90)),
+            "lon_deg": float(rng.uniform(-180, 180)),
+            "amplitude_m": float(rng.uniform(0.05, 0.2)),
+            "sigma_m": float(rng.uniform(5, 40)),
+        }
+        for _ in range(3000)
+    ]
+    d = {"name": "many", "radius_m": 1000, "tolerance_m": 4, "features": feats}
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    rows = api.array("gm_world_features", 16 * 3000, np.float64, w).reshape(-1, 16)
+    spec = parse_spec(d)
+    assert same(rows, spec.core_features())
+    status, b, msg = api.bake(w, levels=1, collision=0)
+    assert status == OK, msg
+    r = globemill.bake(spec, levels=1, collision=False)
+    li = api.info("gm_bake_level_info", LevelInfo, b, C.c_uint32(0))
+    assert (
+        li.triangle_count == len(r.triangles) and li.vertex_count == r.report["lods"][0]["vertices"]
+    )
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
+
+
+def test_progress_reports_the_same_rounds_as_python(api: Api, small_spec: dict[str, Any]) -> None:
+    seen_c: list[tuple[int, int]] = []
+    seen_py: list[tuple[int, int]] = []
+    cb = PROGRESS(lambda _user, rnd, tris: seen_c.append((rnd, tris)))
+    status, w, msg = api.world(json.dumps(small_spec))
+    assert status == OK, msg
+    status, b, msg = api.bake(w, progress=cb, collision=0)
+    assert status == OK, msg
+    globemill.bake(
+        parse_spec(small_spec),
+        collision=False,
+        progress=lambda rnd, tris: seen_py.append((rnd, tris)),
+    )
+    assert seen_c and seen_c == seen_py
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
+
+
+def test_concurrent_bakes_of_one_world_agree(api: Api, small_spec: dict[str, Any]) -> None:
+    # the header: several gm_bake_create calls on one world may run at once (ctypes releases
+    # the GIL around each foreign call, so these overlap)
+    status, w, msg = api.world(json.dumps(small_spec))
+    assert status == OK, msg
+    results: list[tuple[int, C.c_void_p, str]] = []
+    lock = threading.Lock()
+
+    def run() -> None:
+        res = api.bake(w, threads=1)
+        with lock:
+            results.append(res)
+
+    threads = [threading.Thread(target=run) for _ in range(3)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    api.lib.gm_world_destroy(w)
+    arrays = []
+    for status, b, msg in results:
+        assert status == OK, msg
+        li = api.info("gm_bake_level_info", LevelInfo, b, C.c_uint32(0))
+        arrays.append(
+            api.array("gm_bake_level_triangles", 3 * li.triangle_count, np.uint32, b, C.c_uint32(0))
+        )
+        api.lib.gm_bake_destroy(b)
+    assert len(arrays) == 3 and all(same(a, arrays[0]) for a in arrays)
+
+
+# --------------------------------------------------------------------------------------------
+# failures: a status and a message, the same problems as Python
+
+
+def _mutations() -> list[tuple[str, Callable[[dict[str, Any]], Any]]]:
+    def feat(i: int, **kw: Any) -> Callable[[dict[str, Any]], Any]:
+        return lambda d: d["features"][i].update(**kw)
+
+    cases: list[tuple[str, Callable[[dict[str, Any]], Any]]] = [
+        ("types and unknown key", lambda d: d.update(zz=1, name=3, radius_m="x")),
+        ("name pattern", lambda d: d.update(name="a\n")),
+        ("sigma negative", feat(1, sigma_m=-1)),
+        ("blend width text", feat(1, blend_width_m="a")),
+        ("blend unknown", feat(1, blend="zz")),
+        ("blend null", feat(1, blend=None)),
+        ("kind unknown", feat(1, kind="volcano")),
+        ("kind number", feat(1, kind=5)),
+        ("kind object", feat(1, kind={"k": "it's"})),
+        ("kind missing", lambda d: d["features"][1].pop("kind") and None),
+        ("kind switched", feat(1, kind="mesa")),
+        ("feature not a table", lambda d: d["features"].__setitem__(1, 3)),
+        ("features not a list", lambda d: d.update(features={})),
+        ("lod null", lambda d: d.update(lod=None)),
+        ("octaves float", feat(0, octaves=4.0)),
+        ("octaves bool", feat(0, octaves=True)),
+        ("seed too big", feat(0, seed=2**40)),
+        ("amplitude zero", feat(1, amplitude_m=0)),
+        ("huge integer for a float", feat(1, sigma_m=10**400)),
+        ("huge integer for an integer", lambda d: d.update(max_triangles=-(10**30))),
+        ("color short", lambda d: d["layers"][0].update(color=[0.1, 0.2])),
+        ("color empty", lambda d: d["layers"][0].update(color=[])),
+        ("color long", lambda d: d["layers"][0].update(color=[0.1, 0.2, 0.3, 0.4])),
+        ("color items", lambda d: d["layers"][0].update(color=[0.1, "a", 2])),
+        ("slope short", lambda d: d["layers"][0].update(slope_deg=[1])),
+        ("slope long", lambda d: d["layers"][0].update(slope_deg=[1, 2, 3])),
+        ("bands reversed", lambda d: d["layers"][0].update(slope_deg=[50, 10], altitude_m=[5, 1])),
+        ("layer name empty", lambda d: d["layers"][0].update(name="")),
+        ("tolerance above R/10", lambda d: d.update(tolerance_m=1000)),
+        ("corner above half size", feat(4, corner_m=100)),
+        ("amplitude sum", feat(1, amplitude_m=5000)),
+        ("ridge ends equal", feat(17, lat1_deg=0, lon1_deg=-100)),
+        ("ridge ends opposite", feat(17, lat1_deg=0, lon1_deg=80)),
+        ("smooth blend without width", feat(1, blend="smooth_max")),
+        ("lod fields", lambda d: d.update(lod={"levels": 0, "ratio": 1, "seams": "q", "zz": 1})),
+        ("collision fields", lambda d: d.update(collision={"bias": "q", "tolerance_m": 0})),
+        ("top level list", lambda d: []),
+        ("number formats", lambda d: d.update(tolerance_m=1e16, radius_m=1.5e-7)),
+        ("unicode", lambda d: d.update({"ключ": "é", "\U0001f600": [1, 2]})),
+        ("block too wide", lambda d: d["features"][14].update(half_x_m=3000, wall_m=50)),
+        ("too many layers", lambda d: d.update(layers=[d["layers"][0]] * (MAX_LAYERS + 1))),
+    ]
+    return cases
+
+
+@pytest.mark.parametrize("label, mutate", _mutations(), ids=[m[0] for m in _mutations()])
+def test_invalid_specs_list_the_same_problems_as_python(
+    api: Api, label: str, mutate: Callable[[dict[str, Any]], Any]
+) -> None:
+    d = json.loads(DEMO.read_text())
+    out = mutate(d)
+    d = d if out is None else out
+    with pytest.raises(SpecError) as info:
+        parse_spec(d)
+    status, message = api.spec_check(json.dumps(d, ensure_ascii=False).encode())
+    assert status == SPEC
+    assert c_problems(message) == info.value.problems
+    status, w, short = api.world(json.dumps(d))
+    assert status == SPEC and w.value is None
+    assert message.startswith(short.rstrip(".")[:200])
+
+
+def c_problems(message: str) -> list[str]:
+    """The problem lines of a C message (the same layout as SpecError's)."""
+    head = "invalid world spec: "
+    if message.startswith(head):
+        return [message[len(head) :]]
+    first, *rest = message.split("\n")
+    assert re.fullmatch(r"invalid world spec \(\d+ problems\):", first)
+    return [line[4:] for line in rest]
+
+
+@pytest.mark.parametrize(
+    "text, where",
+    [
+        ('{"name": "a", }', "line 1, column 15"),
+        ('{"name" "a"}', "line 1, column 9"),
+        ('{\n  "name": "a",\n  "radius_m": ]', "line 3, column 15"),
+        ('{"name": "a"} x', "line 1, column 15"),
+        ("", "line 1, column 1"),
+        ('{"a": [1, 2,]}', "line 1, column 13"),
+    ],
+)
+def test_malformed_json_names_the_line_and_column_python_does(
+    api: Api, text: str, where: str
+) -> None:
+    # the position Python's json module reports for the same text
+    with pytest.raises(json.JSONDecodeError) as info:
+        json.loads(text)
+    assert where == f"line {info.value.lineno}, column {info.value.colno}"
+    status, message = api.spec_check(text.encode())
+    assert status == PARSE
+    assert message.startswith(f"cannot read world spec: malformed JSON at {where}: ")
+
+
+@pytest.mark.parametrize(
+    "text, what",
+    [
+        (b'{"radius_m": NaN}', "NaN and Infinity are not JSON numbers"),
+        (b'{"radius_m": -Infinity}', "NaN and Infinity are not JSON numbers"),
+        (b'{"a": 1, "a": 2}', 'duplicate key "a"'),
+        (b"[" * 65 + b"]" * 65, "nested deeper than 64 levels"),
+        (b'{"name": "\\ud800"}', "lone UTF-16 surrogate"),
+        (b'\xef\xbb\xbf{"name": "a"}', "byte order mark"),
+        (b'{"name": "\xc3\x28"}', "not UTF-8"),
+        (b'{"name": "a\x01"}', "control character"),
+        (b'{"name": "\\x"}', "invalid escape"),
+        (b'{"n": 01}', "expecting ',' or '}'"),
+        (b'{"n": 1.}', "invalid number"),
+        (b'{"n": 1} // comment', "extra data"),
+    ],
+)
+def test_malformed_json_is_a_parse_error_never_a_crash(api: Api, text: bytes, what: str) -> None:
+    status, message = api.spec_check(text)
+    assert status == PARSE and what in message
+    status, w, short = api.world(text)
+    assert status == PARSE and w.value is None and what in short
+
+
+def test_limits_of_the_reader(api: Api) -> None:
+    # within the limits: 64 levels of nesting read fine (the spec is then invalid, not malformed)
+    status, message = api.spec_check(b"[" * 64 + b"]" * 64)
+    assert status == SPEC and "(top level): must be a table" in message
+    big = b'{"name": "' + b"x" * (8 * 1024 * 1024) + b'"}'
+    status, message = api.spec_check(big)
+    assert status == PARSE and "more than the limit of 8388608" in message
+    many = b"[" + b"0," * 1_000_000 + b"0]"
+    status, message = api.spec_check(many)
+    assert status == PARSE and "more than 1000000 values" in message
+
+
+def test_long_messages_are_cut_cleanly_and_listed_in_full_by_spec_check(api: Api) -> None:
+    d = {"name": "x", "radius_m": 100, "tolerance_m": 1, "features": [{"kind": "hill"}] * 1500}
+    with pytest.raises(SpecError) as info:
+        parse_spec(d)
+    status, message = api.spec_check(json.dumps(d).encode())
+    assert status == SPEC
+    lines = c_problems(message)
+    # the first 1000 of Python's 6000 problem lines, then one line counting the rest
+    assert lines[:1000] == info.value.problems[:1000]
+    assert lines[1000:] == ["... and 5000 more problems"]
+    assert message.startswith("invalid world spec (6000 problems):")
+    err = Error()
+    w = C.c_void_p()
+    text = json.dumps(d).encode()
+    assert api.lib.gm_world_create(C.byref(w), text, C.c_size_t(len(text)), C.byref(err)) == SPEC
+    assert err.truncated == 1 and message.startswith(err.message.decode())
+    # a cut never splits a UTF-8 character: an unknown key of 600 two-byte letters
+    d2 = {"name": "x", "radius_m": 100, "tolerance_m": 1, "é" * 600: 1}
+    text = json.dumps(d2, ensure_ascii=False).encode()
+    assert api.lib.gm_world_create(C.byref(w), text, C.c_size_t(len(text)), C.byref(err)) == SPEC
+    cut = err.message.decode()  # raises if a character was split
+    assert err.truncated == 1 and cut.startswith("invalid world spec: ééé") and len(cut) > 400
+
+
+def test_huge_numbers_read_as_python_reads_them(api: Api) -> None:
+    text = (CORPUS / "invalid_huge_numbers.json").read_bytes()
+    with pytest.raises(SpecError) as info:
+        parse_spec(json.loads(text))
+    status, message = api.spec_check(text)
+    assert status == SPEC and c_problems(message) == info.value.problems
+
+
+def test_bad_options_are_refused_with_python_messages(api: Api) -> None:
+    d = coarse_demo()
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    spec = parse_spec(d)
+    with pytest.raises(ValueError) as info:
+        globemill.bake(spec, tolerance_m=1e9)
+    status, b, message = api.bake(w, tolerance_m=1e9)
+    assert status == INVALID_ARGUMENT and b.value is None and message == str(info.value)
+    with pytest.raises(ValueError) as info:
+        globemill.bake(spec, tolerance_m=float("nan"))
+    status, b, message = api.bake(w, tolerance_m=float("nan"))
+    assert status == INVALID_ARGUMENT and message == str(info.value)
+    for kw, text in [
+        ({"levels": 13}, "levels: must be an integer in 1..12"),
+        ({"ratio": 17.0}, "ratio: must be > 1 and <= 16"),
+        ({"chunk_level": 6}, "chunk_level: must be an integer in 0..5"),
+        ({"threads": 5000}, "threads: must be an integer in 0..1024"),
+        ({"offset": 3}, "offset: must be one of"),
+        ({"chunk_level": 5, "max_triangles": 1000}, "chunk_level: 5 makes 20480 chunks"),
+    ]:
+        status, b, message = api.bake(w, **kw)
+        assert status == INVALID_ARGUMENT and message.startswith(text), (kw, message)
+    # the triangle budget: the core's own message, as Python raises it
+    with pytest.raises(ValueError) as info:
+        globemill.bake(spec.model_copy(update={"max_triangles": 1000}))
+    status, b, message = api.bake(w, max_triangles=1000)
+    assert status == BUDGET and message == str(info.value)
+    o = api.options()
+    o.struct_size = 0
+    err = Error()
+    assert api.lib.gm_bake_create(C.byref(b), w, C.byref(o), C.byref(err)) == INVALID_ARGUMENT
+    api.lib.gm_world_destroy(w)
+
+
+def test_buffers_handles_and_indices_are_checked(api: Api, demo_c: C.c_void_p) -> None:
+    b = demo_c
+    li = api.info("gm_bake_level_info", LevelInfo, b, C.c_uint32(0))
+    n = 3 * li.triangle_count
+    short = np.full(n, 7, np.uint32)
+    err = Error()
+    s = api.lib.gm_bake_level_triangles(
+        short.ctypes.data_as(C.c_void_p), C.c_size_t(n - 1), b, C.c_uint32(0), C.byref(err)
+    )
+    assert s == BUFFER_TOO_SMALL and f"writes {n} elements".encode() in err.message
+    assert np.all(short == 7)  # nothing written
+    assert api.lib.gm_bake_level_triangles(None, C.c_size_t(n), b, 0, C.byref(err)) == 1
+    bi = api.info("gm_bake_get_info", BakeInfo, b)
+    one = C.c_uint32()
+    for call in (
+        lambda: api.lib.gm_bake_level_triangles(C.byref(one), 0, b, bi.level_count, C.byref(err)),
+        lambda: api.lib.gm_chunk_triangles(C.byref(one), 0, b, 0, bi.chunk_count, C.byref(err)),
+        lambda: api.lib.gm_chunk_stitched(C.byref(one), 0, b, 0, 0, 8, C.byref(err)),
+        lambda: api.lib.gm_chunk_stitched(C.byref(one), 0, b, 0, 0, 0, C.byref(err)),
+        lambda: api.lib.gm_bake_vertex_data(C.byref(one), 0, b, 99, C.byref(err)),
+        lambda: api.lib.gm_bake_vertex_data(C.byref(one), 0, b, MORPH, C.byref(err)),
+        lambda: api.lib.gm_bake_get_info(C.byref(bi), None, C.byref(err)),
+        lambda: api.lib.gm_world_get_info(None, None, C.byref(err)),
+        lambda: api.lib.gm_world_create(None, b"{}", 2, C.byref(err)),
+        lambda: api.lib.gm_bake_create(None, None, None, C.byref(err)),
+    ):
+        assert call() == INVALID_ARGUMENT and err.status == INVALID_ARGUMENT
+        assert err.message
+    # err may be NULL; destroy accepts NULL
+    assert api.lib.gm_bake_level_triangles(None, 0, b, 99, None) == INVALID_ARGUMENT
+    api.lib.gm_world_destroy(None)
+    api.lib.gm_bake_destroy(None)
+    assert api.lib.gm_vertex_data_components(NORMAL) == 3
+    assert api.lib.gm_vertex_data_components(SLOPE) == 1
+    assert api.lib.gm_vertex_data_components(42) == 0
+
+
+def test_fuzz_corpus_agrees_with_the_python_loader(api: Api) -> None:
+    """Every corpus file: both loaders accept it, or both refuse it with the same problems;
+    where only the C reader refuses, it is one of its documented strict rules."""
+    files = sorted(CORPUS.iterdir())
+    assert len(files) >= 20
+    strict = ("NaN and Infinity", "surrogate", "nested deeper")
+    for path in files:
+        status, message = api.spec_check(path.read_bytes())
+        try:
+            load_spec(path)
+            py: tuple[str, list[str]] = ("ok", [])
+        except SpecError as exc:
+            kind = "parse" if str(exc).startswith("cannot read") else "spec"
+            py = (kind, exc.problems)
+        if status == OK:
+            assert py[0] == "ok", path.name
+        elif status == SPEC:
+            assert py == ("spec", c_problems(message)), path.name
+        else:
+            assert status == PARSE, path.name
+            assert py[0] == "parse" or any(s in message for s in strict), (path.name, message)
+
+
+# --------------------------------------------------------------------------------------------
+# host examples
+
+
+def summary_expected(r: BakeResult) -> dict[str, Any]:
+    """What the examples' summary must say for a Python bake of the same spec."""
+    levels = []
+    for lr in r.levels:
+        levels.append(
+            {
+                "vertices": lr.report["vertices"],
+                "triangles": lr.report["triangles"],
+                "chunk_vertices": sum(len(cm.positions) for cm in lr.chunks),
+                "chunk_triangles": sum(len(cm.triangles) for cm in lr.chunks),
+                "stitched_triangles": sum(len(t) for cm in lr.chunks for t in cm.stitched.values()),
+                "tolerance_m": lr.tolerance_m,
+            }
+        )
+    return {
+        "pool_vertices": len(r.vertices),
+        "chunks": len(r.chunk_corners),
+        "levels": levels,
+        "collider_vertices": sum(len(c.positions) for c in r.colliders),
+        "collider_triangles": r.report["collision"]["triangles"],
+        "collider_tolerance_m": r.report["collision"]["tolerance_m"],
+    }
+
+
+def summary_parse(text: str) -> dict[str, Any]:
+    out: dict[str, Any] = {"levels": []}
+    for line in text.splitlines():
+        words = line.split()
+        fields = dict(zip(words[::2], words[1::2], strict=False))
+        if words[0] == "pool_vertices":
+            out["pool_vertices"] = int(fields["pool_vertices"])
+            out["chunks"] = int(fields["chunks"])
+        elif words[0] == "level":
+            lv = {
+                k: int(fields[k])
+                for k in (
+                    "vertices",
+                    "triangles",
+                    "chunk_vertices",
+                    "chunk_triangles",
+                    "stitched_triangles",
+                )
+            }
+            lv["tolerance_m"] = float(fields["tolerance_m"])
+            out["levels"].append(lv)
+        elif words[0] == "colliders":
+            fields = dict(zip(words[1::2], words[2::2], strict=False))
+            out["collider_vertices"] = int(fields["vertices"])
+            out["collider_triangles"] = int(fields["triangles"])
+            out["collider_tolerance_m"] = float(fields["tolerance_m"])
+    return out
+
+
+@pytest.fixture(scope="module")
+def demo_file(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    path = tmp_path_factory.mktemp("spec") / "coarse.json"
+    path.write_text(json.dumps(coarse_demo()))
+    return path
+
+
+def test_c_example_summary_equals_python_counts(
+    api: Api, demo_py: BakeResult, demo_file: Path, tmp_path: Path
+) -> None:
+    if not (shutil.which("cmake") and (shutil.which("cc") or shutil.which("gcc"))):
+        pytest.skip("cmake and a C compiler are needed to build the C example")
+    build = tmp_path / "build"
+    subprocess.run(
+        [
+            "cmake",
+            "-S",
+            str(EXAMPLES / "c"),
+            "-B",
+            str(build),
+            "-DCMAKE_BUILD_TYPE=Release",
+            f"-DGLOBEMILL_ROOT={api.path.parent}",
+            f"-DGLOBEMILL_INCLUDE_DIR={HEADER.parent}",
+        ],
+        check=True,
+        capture_output=True,
+    )
+    subprocess.run(["cmake", "--build", str(build)], check=True, capture_output=True)
+    run = subprocess.run(
+        [str(build / "globemill_bake_summary"), str(demo_file)],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    assert run.stdout.startswith(f"globemill {globemill.__version__}\n")
+    assert summary_parse(run.stdout) == summary_expected(demo_py)
+    # a bad spec: exit status 1 and the library's message
+    bad = tmp_path / "bad.json"
+    bad.write_text('{"name": "x", "radius_m": 10, "tolerance_m": -1}')
+    run = subprocess.run(
+        [str(build / "globemill_bake_summary"), str(bad)], capture_output=True, text=True
+    )
+    assert run.returncode == 1
+    assert "tolerance_m: must be > 0 (allowed: > 0 and <= radius_m / 10), got -1" in run.stderr
+
+
+def test_csharp_example_summary_equals_python_counts(
+    api: Api, demo_py: BakeResult, demo_file: Path, tmp_path: Path
+) -> None:
+    if not (shutil.which("mcs") and shutil.which("mono")):
+        pytest.skip("mono (Debian: mono-mcs, mono-runtime) is needed for the C# example")
+    exe = tmp_path / "BakeSummary.exe"
+    subprocess.run(
+        [
+            "mcs",
+            f"-out:{exe}",
+            str(EXAMPLES / "csharp" / "Globemill.cs"),
+            str(EXAMPLES / "csharp" / "BakeSummary.cs"),
+        ],
+        check=True,
+        capture_output=True,
+    )
+    env = dict(os.environ, LD_LIBRARY_PATH=str(api.path.parent))
+    run = subprocess.run(
+        ["mono", str(exe), str(demo_file)], capture_output=True, text=True, env=env, check=True
+    )
+    assert run.stdout.startswith(f"globemill {globemill.__version__}\n")
+    assert summary_parse(run.stdout) == summary_expected(demo_py)
+
+
+def test_cython_example_arrays_equal_python(api: Api, demo_py: BakeResult, tmp_path: Path) -> None:
+    try:
+        import Cython  # noqa: F401
+    except ImportError:
+        pytest.skip("Cython is needed to build the Cython example (pip install cython)")
+    for name in ("globemill_cy.pyx", "setup.py"):
+        shutil.copy(EXAMPLES / "cython" / name, tmp_path / name)
+    # -O0: the generated C is large and only its behaviour is tested here
+    env = dict(
+        os.environ,
+        GLOBEMILL_ROOT=str(api.path.parent),
+        GLOBEMILL_INCLUDE=str(HEADER.parent),
+        CFLAGS="-O0",
+    )
+    subprocess.run(
+        [sys.executable, "setup.py", "build_ext", "--inplace"],
+        cwd=tmp_path,
+        env=env,
+        check=True,
+        capture_output=True,
+    )
+    sys.path.insert(0, str(tmp_path))
+    try:
+        import globemill_cy  # type: ignore[import-not-found]
+    finally:
+        sys.path.remove(str(tmp_path))
+    assert globemill_cy.version() == globemill.__version__
+    bk = globemill_cy.Bake(json.dumps(coarse_demo()))
+    r = demo_py
+    assert same(bk.vertices(), r.vertices)
+    assert same(bk.directions(), r.directions)
+    assert same(bk.normals(), r.normals)
+    assert bk.level_count == len(r.levels)
+    for k, lr in enumerate(r.levels):
+        assert same(bk.level_triangles(k), lr.triangles)
+        assert same(bk.level_chunks(k), lr.chunk)
+        assert same(bk.level_morph(k), lr.morph)
+        for cm in lr.chunks[::7]:
+            ch = bk.chunk(k, cm.chunk)
+            assert same(ch["vertex_ids"], cm.vertex_ids)
+            assert same(ch["positions"], cm.positions) and same(ch["normals"], cm.normals)
+            assert same(ch["morph"], cm.morph) and same(ch["triangles"], cm.triangles)
+            assert ch["interior"] == cm.interior
+            assert sorted(ch["stitched"]) == sorted(cm.stitched)
+            assert all(same(ch["stitched"][m], cm.stitched[m]) for m in cm.stitched)
+    for cl in r.colliders:
+        pos, tris = bk.collider(cl.chunk)
+        assert same(pos, cl.positions) and same(tris, cl.triangles)
+    with pytest.raises(globemill_cy.GlobemillError, match="invalid world spec") as info:
+        globemill_cy.Bake('{"name": "x"}')
+    assert info.value.status == SPEC
