@@ -484,7 +484,9 @@ std::uint64_t estimate_triangles(const Field& field, double tol) {
         double h2 = 8 * tol / std::max(curvature, 1e-300);
         return 1.0 / (0.35 * h2);
     };
-    double total = 4 * kPi * R * R * per_area(1.0 / R);
+    // the base sphere; bisection triangles, the probes' margin and the verification's margin
+    // make about three times the count of an ideal equilateral mesh (measured on bare spheres)
+    double total = 3 * 4 * kPi * R * R * per_area(1.0 / R);
     double global_density = 0;
     for (std::size_t i = 0; i < field.size(); ++i) {
         const Feature& f = field.feature(i);
@@ -516,7 +518,10 @@ std::uint64_t estimate_triangles(const Field& field, double tol) {
             case Kind::Noise: {
                 double a = std::fabs(p[0]), k = 2 * kPi * p[1], curv = 0;
                 for (int o = 0; o < static_cast<int>(p[2]); ++o, a *= p[3], k *= 2) curv += a * k * k;
-                global_density += per_area(curv);
+                // gradient noise bends far less than a sine of the same amplitude and frequency
+                // everywhere: measured on the demo world, 0.2 of this bound keeps the estimate
+                // within about twice the real count
+                global_density += per_area(0.2 * curv);
                 break;
             }
         }
