@@ -581,6 +581,17 @@ bool Field::touches(std::size_t fi, const Cap& cap) const {
     return dot(f.cap_c, cap.c) >= std::cos(sum) - 1e-12;
 }
 
+double Field::finest_wavelength(double amplitude_m) const {
+    double best = std::numeric_limits<double>::infinity();
+    for (const Feature& f : features_) {
+        if (f.kind != Kind::Noise) continue;
+        double a = std::fabs(f.prm[0]), lam = 1.0 / f.prm[1];
+        for (int k = 0; k < static_cast<int>(f.prm[2]); ++k, a *= f.prm[3], lam *= 0.5)
+            if (a > amplitude_m) best = std::min(best, lam);
+    }
+    return best;
+}
+
 bool Field::has_creases(std::size_t fi) const {
     const Feature& f = features_[fi];
     return f.kind == Kind::Crater || (f.kind == Kind::Ridge && f.prm[2] != 0);

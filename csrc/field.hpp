@@ -79,6 +79,10 @@ public:
 
     bool has_steps() const { return has_steps_; }
 
+    // the shortest wavelength (m) of any noise octave whose amplitude exceeds `amplitude_m`
+    // (infinity when none): samples spaced well below it see every bump that matters
+    double finest_wavelength(double amplitude_m) const;
+
     // creases: lines where H is continuous but not differentiable (the crest, tips and foot of
     // a sharp ridge, a crater's rim). writes points of feature f's creases near direction c:
     // on each crease the nearest point and 16 more spread over +-`reach` (radians) along it, up

@@ -399,13 +399,16 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                 if (!in[i] && (n.parent == kNone || in[n.parent])) leaves.push_back(i);
             }
             if (verify_order <= 0) break;
+            // the same sampling as the hierarchy's own verification: measurements are cached
+            const double spacing = verify_spacing(field, h.tolerance);
             parallel_for(leaves.size(), threads, [&](std::size_t b, std::size_t e) {
                 for (std::size_t k = b; k < e; ++k) {
                     Node& t = h.nodes[leaves[k]];
                     if (t.err >= 0) continue;
                     double m2s, s2m;
-                    t.err = static_cast<float>(triangle_deviation(
-                        field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), verify_order, m2s, s2m));
+                    t.err = static_cast<float>(triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]),
+                                                                  h.pos(t.v[2]), verify_order, m2s, s2m,
+                                                                  spacing));
                     t.m2s = static_cast<float>(m2s);
                     t.s2m = static_cast<float>(s2m);
                 }

@@ -15,9 +15,10 @@ struct Deviation {
     std::uint64_t samples = 0;
 };
 
-// largest deviation of one triangle over a barycentric grid of the given order
+// largest deviation of one triangle over a barycentric grid of the given order, raised (up to
+// 32) so that samples are at most `spacing_m` apart along the edges (0: no such bound)
 double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
-                          double& mesh_to_surface, double& surface_to_mesh);
+                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m = 0);
 
 // samples every triangle on a barycentric grid of the given order (order+1)(order+2)/2 points;
 // mesh -> surface by projection onto the surface (and vertical walls), surface -> mesh as the

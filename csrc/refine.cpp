@@ -397,6 +397,8 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
     for (std::size_t i = 0; i < tris.size(); ++i)
         if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
     std::vector<std::uint8_t> bad;
+    // samples a quarter of the shortest noise wavelength that matters apart, at most
+    const double spacing = verify_spacing(F, tol);
     while (!check.empty()) {
         bad.assign(check.size(), 0);
         parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
@@ -404,7 +406,7 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
                 Node& t = tris[check[i]];
                 double m2s, s2m;
                 double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
-                                              opt.verify_order, m2s, s2m);
+                                              opt.verify_order, m2s, s2m, spacing);
                 t.err = static_cast<float>(w);
                 t.m2s = static_cast<float>(m2s);
                 t.s2m = static_cast<float>(s2m);
@@ -531,6 +533,11 @@ std::uint64_t estimate_triangles(const Field& field, double tol) {
     return static_cast<std::uint64_t>(total) + 20;
 }
 
+double verify_spacing(const Field& field, double tolerance_m) {
+    double lam = field.finest_wavelength(0.25 * tolerance_m);
+    return std::isfinite(lam) ? lam / 4 : 0.0;
+}
+
 Cap node_cap(const Hierarchy& h, const Node& t) {
     Vec3 c = normalize(h.dir[t.v[0]] + h.dir[t.v[1]] + h.dir[t.v[2]]);
     double cmin = std::min({dot(c, h.dir[t.v[0]]), dot(c, h.dir[t.v[1]]), dot(c, h.dir[t.v[2]])});
@@ -547,6 +554,7 @@ Status build_hierarchy(const Field& field, const RefineOptions& options, Hierarc
                        RefineStats& stats, std::string& error) {
     h = Hierarchy{};
     h.min_level = options.min_level;
+    h.tolerance = options.tolerance_m;
     Refiner r(field, options, h);
     return r.run(stats, error);
 }

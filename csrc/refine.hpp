@@ -70,6 +70,7 @@ struct Hierarchy {
     std::vector<std::uint32_t> pool;      // candidate feature lists
     std::uint32_t chunks = 0;
     int min_level = 0;  // the chunk level: every node above it is split
+    double tolerance = 0;  // the finest tolerance the hierarchy was built for
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
 };
 
@@ -100,6 +101,10 @@ void icosahedron(std::vector<Vec3>& vertices, std::vector<std::uint32_t>& faces)
 
 // run fn(begin, end) over [0, n) in blocks on up to `threads` threads (0: hardware threads)
 void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn);
+
+// verification sample spacing for a tolerance: a quarter of the shortest noise wavelength whose
+// amplitude is over a quarter of the tolerance (0: no bound)
+double verify_spacing(const Field& field, double tolerance_m);
 
 // a node's footprint cap and the size floor shared by refinement and level extraction
 Cap node_cap(const Hierarchy& h, const Node& t);
