@@ -1,0 +1,129 @@
+"""The tolerance guarantee, measured independently of the mesher (tests/independent_error.py:
+mesh -> surface by sampling inside triangles and projecting onto the true surface; surface -> mesh
+by exact closest points of a dense surface sample, scipy cKDTree candidates)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+from independent_error import feature_directions, measure, step_walls
+
+import globemill
+
+DEMO = Path(__file__).resolve().parents[1] / "examples" / "pebblemoor.toml"
+
+
+def _independent(spec: globemill.WorldSpec, level_mesh: tuple) -> float:
+    field = globemill.field(spec)
+    cf = spec.core_features()
+    r = float(spec.radius_m)
+    v, t = level_mesh
+    res = measure(
+        field,
+        r,
+        v,
+        t,
+        surface_samples=60_000,
+        extra_directions=feature_directions(cf, r),
+        walls=step_walls(cf, field, r),
+        refine_worst=64,
+    )
+    return float(res["max"])
+
+
+def test_demo_world_levels_are_within_tolerance() -> None:
+    spec = globemill.load_spec(DEMO)
+    result = globemill.bake(spec, tolerance_m=2.0, levels=2, collision=False)
+    for k in range(2):
+        tol = result.levels[k].tolerance_m
+        assert _independent(spec, result.mesh(k)) <= tol
+
+
+_kinds = st.sampled_from(["hill", "mesa", "crater", "ridge", "block"])
+
+
+@st.composite
+def worlds(draw: st.DrawFn) -> dict:
+    feats = []
+    for _ in range(draw(st.integers(1, 5))):
+        kind = draw(_kinds)
+        lat = draw(st.floats(-60, 60))
+        lon = draw(st.floats(-170, 170))
+        f: dict = {"kind": kind, "blend": draw(st.sampled_from(["add", "max", "min"]))}
+        if kind == "hill":
+            f.update(
+                lat_deg=lat,
+                lon_deg=lon,
+                amplitude_m=draw(st.floats(-20, 20).filter(lambda a: abs(a) > 0.5)),
+                sigma_m=draw(st.floats(5, 60)),
+            )
+        elif kind == "mesa":
+            f.update(
+                lat_deg=lat,
+                lon_deg=lon,
+                height_m=draw(st.floats(-15, 15)),
+                radius_m=draw(st.floats(10, 60)),
+                wall_m=draw(st.sampled_from([0.0, 4.0, 15.0])),
+            )
+        elif kind == "crater":
+            f.update(
+                lat_deg=lat,
+                lon_deg=lon,
+                radius_m=draw(st.floats(10, 50)),
+                depth_m=draw(st.floats(0, 10)),
+                rim_height_m=draw(st.floats(0, 4)),
+                rim_width_m=draw(st.floats(5, 20)),
+            )
+        elif kind == "block":
+            f.update(
+                lat_deg=lat,
+                lon_deg=lon,
+                height_m=draw(st.floats(-10, 10)),
+                half_x_m=draw(st.floats(8, 40)),
+                half_y_m=draw(st.floats(8, 40)),
+                heading_deg=draw(st.floats(-90, 90)),
+                corner_m=4.0,
+                wall_m=draw(st.sampled_from([0.0, 5.0])),
+            )
+        else:
+            f.update(
+                lat0_deg=lat,
+                lon0_deg=lon,
+                lat1_deg=lat + draw(st.floats(2, 10)),
+                lon1_deg=lon + draw(st.floats(2, 10)),
+                height_m=draw(st.floats(-8, 12)),
+                half_width_m=draw(st.floats(8, 30)),
+                profile=draw(st.sampled_from(["round", "sharp"])),
+            )
+        feats.append(f)
+    if draw(st.booleans()):
+        feats.append(
+            {
+                "kind": "noise",
+                "amplitude_m": draw(st.floats(0.5, 3)),
+                "frequency_per_m": draw(st.floats(0.002, 0.02)),
+                "octaves": 3,
+                "seed": draw(st.integers(0, 1000)),
+            }
+        )
+    return {
+        "name": "random",
+        "radius_m": 600.0,
+        "tolerance_m": 1.0,
+        "features": feats,
+        "lod": {"levels": 1, "chunk_level": 0},
+    }
+
+
+@settings(
+    max_examples=8, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow]
+)
+@given(worlds())
+def test_random_worlds_are_within_tolerance(data: dict) -> None:
+    spec = globemill.parse_spec(data)
+    result = globemill.bake(spec, collision=False)
+    assert np.isfinite(result.report["lods"][0]["max_error_m"])
+    assert _independent(spec, result.mesh(0)) <= spec.tolerance_m
