@@ -28,23 +28,26 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
     double s2m_max = 0;
     // pass 1: the radial bound and surface -> mesh at every sample but the corners (which lie
     // on the surface)
+    // one sample: surface -> mesh now, its radial bound kept for pass 2
+    auto sample = [&](Vec3 p) {
+        double pn = norm(p);
+        if (!(pn > 0) || n == kMaxSamples) return;
+        Vec3 u = (1.0 / pn) * p;
+        double H = field.eval(u, nullptr);
+        Vec3 S = (R + H) * u;
+        s2m_max = std::max(s2m_max, norm(S - closest_on_triangle(S, V0, V1, V2)));
+        px[n] = p.x;
+        py[n] = p.y;
+        pz[n] = p.z;
+        radial[n] = std::fabs(pn - R - H);
+        idx[n] = n;
+        ++n;
+    };
     for (int i = 0; i <= order; ++i) {
         for (int j = 0; j <= order - i; ++j) {
             if ((i == 0 && j == 0) || i == order || j == order) continue;
             double b1 = static_cast<double>(i) / order, b2 = static_cast<double>(j) / order;
-            Vec3 p = (1 - b1 - b2) * V0 + b1 * V1 + b2 * V2;
-            double pn = norm(p);
-            if (!(pn > 0) || n == kMaxSamples) continue;
-            Vec3 u = (1.0 / pn) * p;
-            double H = field.eval(u, nullptr);
-            Vec3 S = (R + H) * u;
-            s2m_max = std::max(s2m_max, norm(S - closest_on_triangle(S, V0, V1, V2)));
-            px[n] = p.x;
-            py[n] = p.y;
-            pz[n] = p.z;
-            radial[n] = std::fabs(pn - R - H);
-            idx[n] = n;
-            ++n;
+            sample((1 - b1 - b2) * V0 + b1 * V1 + b2 * V2);
         }
     }
     // the creases of features near the triangle: samples on a grid miss a crest line or a tip
@@ -67,20 +70,9 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
         for (int j = 0; j < nf; ++j) {
             Vec3 cp[Field::kMaxCreasePoints];
             int k = field.crease_points(feats[j], cen, reach, cp);
-            for (int i = 0; i < k && n < kMaxSamples; ++i) {
+            for (int i = 0; i < k; ++i) {
                 Vec3 p;
-                if (!ray_hits_triangle(cp[i], V0, V1, V2, p)) continue;
-                double pn = norm(p);
-                Vec3 u = (1.0 / pn) * p;
-                double H = field.eval(u, nullptr);
-                Vec3 S = (R + H) * u;
-                s2m_max = std::max(s2m_max, norm(S - closest_on_triangle(S, V0, V1, V2)));
-                px[n] = p.x;
-                py[n] = p.y;
-                pz[n] = p.z;
-                radial[n] = std::fabs(pn - R - H);
-                idx[n] = n;
-                ++n;
+                if (ray_hits_triangle(cp[i], V0, V1, V2, p)) sample(p);
             }
         }
     }
