@@ -154,6 +154,18 @@ def _validate_options(
         raise ValueError(f"ratio: must be > 1 and <= 16, got {ratio!r}")
 
 
+def _chunk_pieces(tris: U32, chunk: U32, nchunks: int) -> list[tuple[U32, U32]]:
+    """Per chunk: its vertex ids (ascending, into the global buffer) and its triangles in local
+    indices. tris (T, 3) global ids grouped by chunk; chunk (T,) ascending."""
+    starts = np.searchsorted(chunk, np.arange(nchunks + 1))
+    out = []
+    for c in range(nchunks):
+        t = tris[starts[c] : starts[c + 1]]
+        ids = np.unique(t).astype(np.uint32)
+        out.append((ids, np.searchsorted(ids, t).astype(np.uint32)))
+    return out
+
+
 def _split_chunks(
     level: int,
     lv: dict[str, Any],
@@ -162,16 +174,10 @@ def _split_chunks(
     nchunks: int,
     skirt_depth: float | None,
 ) -> list[ChunkMesh]:
-    tris = lv["triangles"]
-    chunk = lv["chunk"]
-    starts = np.searchsorted(chunk, np.arange(nchunks + 1))
     offs = lv["stitch_offsets"]
     stitch = lv["stitch"]
     out = []
-    for c in range(nchunks):
-        t = tris[starts[c] : starts[c + 1]]
-        ids = np.unique(t).astype(np.uint32)
-        local = np.searchsorted(ids, t).astype(np.uint32)
+    for c, (ids, local) in enumerate(_chunk_pieces(lv["triangles"], lv["chunk"], nchunks)):
         stitched: dict[int, U32] = {}
         for mask in range(1, 8):
             a, b = int(offs[c * 8 + mask]), int(offs[c * 8 + mask + 1])
@@ -409,12 +415,10 @@ def _colliders(
     if centered:
         pos = _bias_vertices(fld, vertices, tris, limit=tol / 3)
     dev = _core.measure(fld._core, pos, tris, MEASURE_ORDER, threads)
-    starts = np.searchsorted(lv["chunk"], np.arange(nchunks + 1))
-    out = []
-    for c in range(nchunks):
-        t = tris[starts[c] : starts[c + 1]]
-        ids = np.unique(t)
-        out.append(Collider(c, pos[ids], np.searchsorted(ids, t).astype(np.uint32)))
+    out = [
+        Collider(c, pos[ids], local)
+        for c, (ids, local) in enumerate(_chunk_pieces(tris, lv["chunk"], nchunks))
+    ]
     p = pos[tris]
     area2 = np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1)
     angles = []
