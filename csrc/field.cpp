@@ -140,6 +140,8 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
     features_.clear();
     perms_.clear();
     has_steps_ = false;
+    steps_.clear();
+    creases_.clear();
     const double R = radius_m;
     for (std::size_t i = 0; i < n; ++i) {
         const double* r = rows + i * kFeatureColumns;
@@ -260,7 +262,9 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
             }
         }
         has_steps_ = has_steps_ || f.step;
+        if (f.step) steps_.push_back(static_cast<std::uint32_t>(features_.size()));
         features_.push_back(f);
+        if (has_creases(features_.size() - 1)) creases_.push_back(static_cast<std::uint32_t>(features_.size() - 1));
     }
     build_index();
     return Status::Ok;
@@ -643,13 +647,18 @@ int Field::crease_points(std::size_t fi, Vec3 c, double reach, Vec3* out) const 
     return n;
 }
 
-double Field::wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count) const {
+double Field::reach_angle(std::size_t i) const {
+    const Feature& f = features_[i];
+    return f.step ? f.cap_angle + std::fabs(f.amp_m) / radius_ : f.cap_angle;
+}
+
+double Field::wall_distance(Vec3 p) const {
     double best = std::numeric_limits<double>::infinity();
     const double R = radius_;
     Vec3 u = normalize(p);
-    for (std::size_t i = 0; i < count; ++i) {
-        const Feature& f = features_[list[i]];
-        if (!f.step) continue;
+    for (std::uint32_t fi : steps_) {
+        const Feature& f = features_[fi];
+        if (f.cap_angle < kPi && angle(u, f.cap_c) > reach_angle(fi)) continue;
         Vec3 w;  // direction of the closest rim point
         if (f.kind == Kind::Mesa) {
             Vec3 t = u - dot(u, f.c) * f.c;
@@ -685,8 +694,8 @@ double Field::wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count
         const std::uint32_t* cl;
         std::size_t cc;
         candidates(w, cl, cc);
-        double h_in = eval(w, cl, cc, nullptr, static_cast<int>(list[i]), 1.0);
-        double h_out = eval(w, cl, cc, nullptr, static_cast<int>(list[i]), 0.0);
+        double h_in = eval(w, cl, cc, nullptr, static_cast<int>(fi), 1.0);
+        double h_out = eval(w, cl, cc, nullptr, static_cast<int>(fi), 0.0);
         double lo = R + std::min(h_in, h_out), hi = R + std::max(h_in, h_out);
         double t = std::min(std::max(dot(p, w), lo), hi);
         best = std::min(best, norm(p - t * w));

@@ -74,10 +74,18 @@ public:
     bool touches(std::size_t f, const Cap& cap) const;
 
     // vertical walls: an upper bound on the distance from point p to the surface through the
-    // walls of step features in the list (infinity when none applies)
-    double wall_distance(Vec3 p, const std::uint32_t* list, std::size_t count) const;
+    // walls of the step features whose footprint, widened by the wall's height, holds p
+    // (infinity when none does). a pure function of p and the features: it does not depend on
+    // how the footprint index happens to group them.
+    double wall_distance(Vec3 p) const;
+    // how far feature i reaches (angle from its footprint centre, radians): its footprint, and
+    // for a step feature the wall's height more, where its wall still counts in wall_distance.
+    // a feature changes nothing that is computed beyond its reach.
+    double reach_angle(std::size_t i) const;
 
     bool has_steps() const { return has_steps_; }
+    // the features with creases (has_creases), ascending
+    const std::vector<std::uint32_t>& crease_features() const { return creases_; }
 
     // the shortest wavelength (m) of any noise octave whose amplitude exceeds `amplitude_m`
     // (infinity when none): samples spaced well below it see every bump that matters
@@ -100,6 +108,8 @@ private:
 
     double radius_ = 1;
     bool has_steps_ = false;
+    std::vector<std::uint32_t> steps_;    // the step features, ascending
+    std::vector<std::uint32_t> creases_;  // the features with creases, ascending
     std::vector<Feature> features_;
     std::vector<std::array<std::uint8_t, 512>> perms_;
     // cube-map grid: 6 * n_ * n_ cells, each with a list of features that may reach it

@@ -53,23 +53,11 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
     // the creases of features near the triangle: samples on a grid miss a crest line or a tip
     {
         Vec3 cen = normalize(V0 + V1 + V2);
-        std::uint32_t feats[64];
-        int nf = 0;
-        for (Vec3 q : {cen, normalize(V0), normalize(V1), normalize(V2)}) {
-            const std::uint32_t* list;
-            std::size_t cnt;
-            field.candidates(q, list, cnt);
-            for (std::size_t i = 0; i < cnt && nf < 64; ++i) {
-                if (!field.has_creases(list[i])) continue;
-                bool seen = false;
-                for (int j = 0; j < nf; ++j) seen = seen || feats[j] == list[i];
-                if (!seen) feats[nf++] = list[i];
-            }
-        }
         double reach = std::max({angle(cen, normalize(V0)), angle(cen, normalize(V1)), angle(cen, normalize(V2))});
-        for (int j = 0; j < nf; ++j) {
+        for (std::uint32_t fi : field.crease_features()) {
+            if (!field.touches(fi, Cap{cen, reach + 1e-12})) continue;
             Vec3 cp[Field::kMaxCreasePoints];
-            int k = field.crease_points(feats[j], cen, reach, cp);
+            int k = field.crease_points(fi, cen, reach, cp);
             for (int i = 0; i < k; ++i) {
                 Vec3 p;
                 if (ray_hits_triangle(cp[i], V0, V1, V2, p)) sample(p);
@@ -85,12 +73,7 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
         if (radial[s] <= m2s_max) break;
         Vec3 ps{px[s], py[s], pz[s]};
         double d = std::min(radial[s], project_distance(field, ps, nullptr, 0, 4));
-        if (field.has_steps()) {
-            const std::uint32_t* list;
-            std::size_t cnt;
-            field.candidates(normalize(ps), list, cnt);
-            d = std::min(d, field.wall_distance(ps, list, cnt));
-        }
+        if (field.has_steps()) d = std::min(d, field.wall_distance(ps));
         m2s_max = std::max(m2s_max, d);
     }
     mesh_to_surface = m2s_max;
