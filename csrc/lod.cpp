@@ -365,7 +365,8 @@ bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
 
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
-                      ChunkInfo& chunks, std::string& error) {
+                      ChunkInfo& chunks, std::string& error, const Hierarchy* previous,
+                      const std::vector<Level>* previous_levels) {
     const std::size_t nn = h.nodes.size(), nv = h.dir.size();
     const std::size_t L = tolerances.size();
     if (L == 0) {
@@ -514,11 +515,30 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
         for (std::uint32_t e : cand)
             if (e != kNone && on_edge(eo, a, e) && on_edge(eo, b, e)) eo.cedge[v] = e;
     }
+    // incremental: the previous vertex of every vertex and back
+    const bool memo = previous && previous_levels && previous_levels->size() == L &&
+                      h.vorigin.size() == nv;
+    std::vector<std::uint32_t> to_new;
+    if (memo) {
+        to_new.assign(previous->dir.size(), kNone);
+        for (std::uint32_t v = 0; v < nv; ++v)
+            if (h.vorigin[v] != kNone) to_new[h.vorigin[v]] = v;
+    }
     // stitched variants per level (all but the coarsest), chunk and edge mask
     for (std::size_t li = 0; li < L; ++li) {
         Level& lv = levels[li];
         lv.stitch_offsets.assign(static_cast<std::size_t>(nc) * 8 + 1, 0);
         lv.interior.assign(nc, 0);
+        lv.same.assign(nc, 0);
+        lv.failed.assign(nc, 0);
+        const Level* ol = memo ? &(*previous_levels)[li] : nullptr;
+        std::vector<std::size_t> ostart;
+        if (ol) {
+            ostart.assign(static_cast<std::size_t>(nc) + 1, ol->chunk.size());
+            for (std::size_t t = ol->chunk.size(); t-- > 0;) ostart[ol->chunk[t]] = t;
+            for (std::size_t c = nc; c-- > 0;) ostart[c] = std::min(ostart[c], ostart[c + 1]);
+        }
+        std::vector<std::uint32_t> verts;
         const std::size_t nt = lv.chunk.size();
         const bool last = li + 1 == L;
         std::vector<std::uint8_t> removed(nv, 0);
@@ -544,6 +564,67 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                                                   lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t1));
             std::vector<float> chunk_err(lv.errors.begin() + static_cast<std::ptrdiff_t>(t0),
                                          lv.errors.begin() + static_cast<std::ptrdiff_t>(t1));
+            // write the chunk back: interior first, then the border
+            auto write_back = [&]() {
+                std::size_t w = t0, ni = 0;
+                for (int pass = 0; pass < 2; ++pass)
+                    for (std::size_t t = 0; t < t1 - t0; ++t) {
+                        if (in_border[t] != pass) continue;
+                        for (int k = 0; k < 3; ++k)
+                            lv.triangles[3 * w + static_cast<std::size_t>(k)] = chunk_tris[3 * t + static_cast<std::size_t>(k)];
+                        lv.errors[w] = chunk_err[t];
+                        ++w;
+                        if (pass == 0) ++ni;
+                    }
+                lv.interior[c] = static_cast<std::uint32_t>(ni);
+            };
+            // incremental: the same chunk as before takes its previous stitching
+            bool same = ol && ol->failed.size() == nc && ol->failed[c] == 0 &&
+                        ostart[c + 1] - ostart[c] == t1 - t0;
+            if (same) {
+                std::size_t o = ostart[c], ni = 0;
+                for (int pass = 0; pass < 2 && same; ++pass)
+                    for (std::size_t t = 0; t < t1 - t0 && same; ++t) {
+                        if (in_border[t] != pass) continue;
+                        for (int k = 0; k < 3; ++k) {
+                            std::uint32_t v = chunk_tris[3 * t + static_cast<std::size_t>(k)];
+                            if (h.vorigin[v] != ol->triangles[3 * o + static_cast<std::size_t>(k)]) same = false;
+                        }
+                        ++o;
+                        if (pass == 0) ++ni;
+                    }
+                same = same && ni == ol->interior[c];
+            }
+            if (same) {
+                // vertices: same positions, morph targets and coarser-level membership, and
+                // their ids in the same order (stitching breaks ties by id)
+                verts.assign(chunk_tris.begin(), chunk_tris.end());
+                std::sort(verts.begin(), verts.end());
+                verts.erase(std::unique(verts.begin(), verts.end()), verts.end());
+                const Level* on = last ? nullptr : &(*previous_levels)[li + 1];
+                std::uint32_t prev_ov = 0;
+                for (std::size_t i = 0; i < verts.size() && same; ++i) {
+                    std::uint32_t v = verts[i], ov = h.vorigin[v];
+                    same = ov != kNone && (i == 0 || ov > prev_ov) && h.rad[v] == previous->rad[ov] &&
+                           (last || levels[li + 1].present[v] == on->present[ov]);
+                    for (int k = 0; k < 3 && same; ++k)
+                        same = lv.morph[3 * v + static_cast<std::size_t>(k)] ==
+                               ol->morph[3 * ov + static_cast<std::size_t>(k)];
+                    prev_ov = ov;
+                }
+            }
+            if (same) {
+                for (int mask = 0; mask < 8; ++mask) {
+                    const std::size_t ci = static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask);
+                    lv.stitch_offsets[ci] = lv.stitch.size() / 3;
+                    for (std::uint64_t i = 3 * ol->stitch_offsets[ci]; i < 3 * ol->stitch_offsets[ci + 1]; ++i)
+                        lv.stitch.push_back(to_new[ol->stitch[i]]);
+                }
+                write_back();
+                lv.same[c] = 1;
+                t0 = t1;
+                continue;
+            }
             for (int grow = 0;; ++grow) {
                 lv.stitch.resize(stitch_start);
                 std::vector<std::uint32_t> btris, itris;
@@ -572,18 +653,8 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                 }
                 if (failures == 0 || grow == 3) {
                     lv.stitch_failures += failures;
-                    // write the chunk back: interior first, then the border
-                    std::size_t w = t0, ni = 0;
-                    for (int pass = 0; pass < 2; ++pass)
-                        for (std::size_t t = 0; t < t1 - t0; ++t) {
-                            if (in_border[t] != pass) continue;
-                            for (int k = 0; k < 3; ++k)
-                                lv.triangles[3 * w + static_cast<std::size_t>(k)] = chunk_tris[3 * t + static_cast<std::size_t>(k)];
-                            lv.errors[w] = chunk_err[t];
-                            ++w;
-                            if (pass == 0) ++ni;
-                        }
-                    lv.interior[c] = static_cast<std::uint32_t>(ni);
+                    lv.failed[c] = static_cast<std::uint8_t>(failures);
+                    write_back();
                     break;
                 }
                 std::vector<std::uint8_t> touch(nv, 0);

@@ -29,6 +29,10 @@ struct Level {
     std::vector<std::uint64_t> stitch_offsets;  // chunks * 8 + 1
     std::uint64_t stitch_failures = 0;          // variants left unstitched (never seen; counted)
     std::uint64_t repaired = 0;
+    // after an incremental extraction: per chunk, 1 when its triangles, vertex positions, morph
+    // targets and stitched borders are those of the previous extraction (vertex ids mapped)
+    std::vector<std::uint8_t> same;
+    std::vector<std::uint8_t> failed;  // per chunk: stitched variants left unstitched
     double max_error_m = 0, mesh_to_surface_m = 0, surface_to_mesh_m = 0;
 };
 
@@ -40,8 +44,15 @@ struct ChunkInfo {
 
 // extract one level per tolerance (ascending, the first equal to the hierarchy's); coarser levels
 // are computed first and nested: every vertex of a coarser level is a vertex of the finer ones
+//
+// incremental: with `previous` (the hierarchy h was rebuilt from, see RefineOptions::previous) and
+// `previous_levels` (extracted from it with the same tolerances and stitch flag), a chunk whose
+// triangles, vertex positions and coarser-level vertices map one to one, in the same order, onto
+// the previous ones takes its stitched borders from there instead of stitching again (the same
+// result: stitching depends on nothing else), and is marked in Level::same.
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
-                      ChunkInfo& chunks, std::string& error);
+                      ChunkInfo& chunks, std::string& error, const Hierarchy* previous = nullptr,
+                      const std::vector<Level>* previous_levels = nullptr);
 
 }  // namespace gm

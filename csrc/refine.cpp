@@ -53,6 +53,8 @@ private:
     std::vector<Node>& tris;
     std::vector<std::uint32_t>& pool;
     std::uint64_t leaves = 0;
+    // incremental rebuild: per node, may it take its counterpart's numbers
+    std::vector<std::uint8_t> reuse;
 
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
     Cap cap_of(const Node& t) const { return node_cap(h, t); }
@@ -65,6 +67,7 @@ private:
     double midpoint_radius(const Node& t) const;
     void split(std::uint32_t t);
     void bisect_pair(std::uint32_t t, std::uint32_t n);
+    void adopt(std::uint32_t id, std::uint32_t old);
     void relink(std::uint32_t x, std::uint32_t from, std::uint32_t to) {
         if (x == kNone) return;
         for (auto& e : tris[x].nb)
@@ -88,6 +91,31 @@ void Refiner::assign_list(Node& t, std::uint32_t off, std::uint32_t cnt) {
         t.list_off = start;
     }
     t.list_cnt = n;
+}
+
+// incremental rebuild: record node id's counterpart `old` in the previous hierarchy and, when the
+// node lies clear of every changed cap, take the numbers that depend only on the field near it
+void Refiner::adopt(std::uint32_t id, std::uint32_t old) {
+    if (!opt.previous) return;
+    h.origin.resize(tris.size(), kNone);
+    reuse.resize(tris.size(), 0);
+    h.origin[id] = old;
+    if (old == kNone) return;
+    Node& t = tris[id];
+    const Node& o = opt.previous->nodes[old];
+    // the field is read inside the node's cap and, by projections onto the ground, up to about
+    // its measured deviation beyond it
+    Cap cap = cap_of(t);
+    const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * std::max(0.0f, o.err) + 2 * o.tau) / R;
+    for (const Cap& c : opt.changed)
+        if (angle(cap.c, c.c) <= reach + c.angle) return;
+    reuse[id] = 1;
+    if (!std::isnan(o.mid_r)) t.mid_r = o.mid_r;
+    if (o.err >= 0) {
+        t.err = o.err;
+        t.m2s = o.m2s;
+        t.s2m = o.s2m;
+    }
 }
 
 double Refiner::midpoint_radius(const Node& t) const {
@@ -157,7 +185,7 @@ double Refiner::critical_tolerance(const Node& t) const {
             } else if (opt.mode == OffsetMode::Exact) {
                 off = std::min(radial, project_distance(F, p, nullptr, 0, 6));
             }
-            if (walls && off / m > tau) off = std::min(off, F.wall_distance(p, list, cnt));
+            if (walls && off / m > tau) off = std::min(off, F.wall_distance(p));
             tau = std::max(tau, off / m);
         }
         if (opt.mode == OffsetMode::Radial) return;
@@ -245,6 +273,17 @@ void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
     relink(N.nb[1], n, n0);
     relink(N.nb[2], n, n1);
     leaves += 2;
+    if (opt.previous) {
+        const std::vector<Node>& old = opt.previous->nodes;
+        std::uint32_t ot = h.origin[t], on = h.origin[n];
+        std::uint32_t oc = ot != kNone ? old[ot].child : kNone;
+        std::uint32_t onc = on != kNone ? old[on].child : kNone;
+        h.vorigin.push_back(oc != kNone ? old[oc].v[0] : kNone);
+        adopt(c0, oc);
+        adopt(c1, oc != kNone ? oc + 1 : kNone);
+        adopt(n0, onc);
+        adopt(n1, onc != kNone ? onc + 1 : kNone);
+    }
 }
 
 bool find_matching(const std::vector<std::array<std::uint32_t, 3>>& adj, std::vector<int>& mate,
@@ -338,6 +377,15 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
     pool = all;
     for (auto& t : tris) assign_list(t, 0, static_cast<std::uint32_t>(all.size()));
     leaves = 20;
+    if (opt.previous) {
+        if (opt.previous->nodes.size() < 20 || opt.previous->dir.size() < 12) {
+            error = "internal: the previous hierarchy is empty";
+            return Status::Internal;
+        }
+        h.vorigin.resize(dir.size());
+        for (std::uint32_t i = 0; i < dir.size(); ++i) h.vorigin[i] = i;
+        for (std::uint32_t i = 0; i < 20; ++i) adopt(i, i);
+    }
 
     auto clock0 = std::chrono::steady_clock::now();
     std::vector<std::uint32_t> active(20);
@@ -348,12 +396,20 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
             for (std::size_t i = b; i < e; ++i) {
                 Node& t = tris[active[i]];
-                t.tau = critical_tolerance(t);
+                const Node* o = nullptr;
+                if (opt.previous && reuse[active[i]]) {
+                    o = &opt.previous->nodes[h.origin[active[i]]];
+                    if (!o->tested) o = nullptr;
+                }
+                t.tau = o ? o->tau : critical_tolerance(t);
                 t.tested = 1;
-                if (wants_split(t)) t.mid_r = midpoint_radius(t);
+                if (wants_split(t) && std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
             }
         });
         stats.tested += active.size();
+        if (opt.previous)
+            for (std::uint32_t id : active)
+                if (reuse[id] && opt.previous->nodes[h.origin[id]].tested) ++stats.reused;
         // split serially in index order: the result does not depend on the thread count
         std::size_t first_new = tris.size();
         for (std::uint32_t id : active) {
@@ -404,13 +460,15 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
         parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
             for (std::size_t i = b; i < e; ++i) {
                 Node& t = tris[check[i]];
-                double m2s, s2m;
-                double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
-                                              opt.verify_order, m2s, s2m, spacing);
-                t.err = static_cast<float>(w);
-                t.m2s = static_cast<float>(m2s);
-                t.s2m = static_cast<float>(s2m);
-                if (w > kVerifyMargin * tol && !at_floor(h, t, tol)) {
+                if (t.err < 0) {  // (an incremental rebuild may have it already)
+                    double m2s, s2m;
+                    double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
+                                                  opt.verify_order, m2s, s2m, spacing);
+                    t.err = static_cast<float>(w);
+                    t.m2s = static_cast<float>(m2s);
+                    t.s2m = static_cast<float>(s2m);
+                }
+                if (t.err > kVerifyMargin * tol && !at_floor(h, t, tol)) {
                     bad[i] = 1;
                     if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
                 }

@@ -16,6 +16,8 @@ constexpr std::uint32_t kNone = 0xFFFFFFFFu;
 // dense but the deviation can still peak between them
 constexpr double kVerifyMargin = 0.9;
 
+struct Hierarchy;
+
 struct RefineOptions {
     double tolerance_m = 1;  // the finest tolerance the hierarchy must reach
     OffsetMode mode = OffsetMode::Normal;
@@ -30,12 +32,23 @@ struct RefineOptions {
     int verify_order = 3;
     // called between rounds on the calling thread: (round, leaf triangles so far)
     std::function<void(int, std::uint64_t)> progress;
+    // incremental rebuild: a hierarchy built before with the same options on a field that differs
+    // from this one only inside the `changed` caps. a node of the new hierarchy that has a
+    // counterpart there (same place in the tree) and lies clear of every changed cap (its own cap
+    // widened to twice its radius plus `changed_margin_m`) takes the counterpart's critical
+    // tolerance, midpoint and measurements instead of computing them: the same numbers, since
+    // every one depends only on the field near the node. the result is the hierarchy a fresh
+    // build would make, bit for bit.
+    const Hierarchy* previous = nullptr;
+    std::vector<Cap> changed;
+    double changed_margin_m = 0;
 };
 
 struct RefineStats {
     std::uint64_t estimate = 0;        // triangles predicted before refining
     std::uint64_t tested = 0;          // triangle tests run (each triangle at most once)
     std::uint64_t repaired = 0;        // triangles split because verification found them too far
+    std::uint64_t reused = 0;          // triangle tests taken from a previous hierarchy
     int rounds = 0;
     int max_level = 0;
     double refine_seconds = 0;  // probing and splitting
@@ -71,6 +84,9 @@ struct Hierarchy {
     std::uint32_t chunks = 0;
     int min_level = 0;  // the chunk level: every node above it is split
     double tolerance = 0;  // the finest tolerance the hierarchy was built for
+    // after an incremental rebuild: per node and per vertex, its counterpart in the previous
+    // hierarchy (kNone: new there); empty after a fresh build
+    std::vector<std::uint32_t> origin, vorigin;
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
 };
 

@@ -119,13 +119,29 @@ public:
             py::gil_scoped_release nogil;
             for (std::size_t i = 0; i < n; ++i) {
                 Vec3 q{p[3 * i], p[3 * i + 1], p[3 * i + 2]};
-                const std::uint32_t* list;
-                std::size_t cnt;
-                field_.candidates(normalize(q), list, cnt);
-                out[i] = field_.wall_distance(q, list, cnt);
+                out[i] = field_.wall_distance(q);
             }
         }
         return to_numpy(std::move(out), {static_cast<py::ssize_t>(n)});
+    }
+
+    // per feature: its reach, (x, y, z, angle in radians): the footprint cap, widened for a
+    // vertical wall by its height; beyond it the feature changes nothing the mesher computes
+    py::array_t<double> footprints() const {
+        std::vector<double> out(4 * field_.size());
+        for (std::size_t i = 0; i < field_.size(); ++i) {
+            const Feature& f = field_.feature(i);
+            out[4 * i] = f.cap_c.x;
+            out[4 * i + 1] = f.cap_c.y;
+            out[4 * i + 2] = f.cap_c.z;
+            out[4 * i + 3] = field_.reach_angle(i);
+        }
+        return to_numpy(std::move(out), {static_cast<py::ssize_t>(field_.size()), 4});
+    }
+
+    // the numbers every node's tests depend on beyond the field near the node
+    py::tuple globals(double tolerance) const {
+        return py::make_tuple(verify_spacing(field_, tolerance), field_.has_steps());
     }
 
 private:
@@ -161,6 +177,7 @@ py::dict stats_dict(const RefineStats& stats) {
     st["rounds"] = stats.rounds;
     st["max_level"] = stats.max_level;
     st["repaired"] = stats.repaired;
+    st["reused"] = stats.reused;
     st["refine_seconds"] = stats.refine_seconds;
     st["verify_seconds"] = stats.verify_seconds;
     return st;
@@ -198,16 +215,27 @@ public:
                 std::function<void(int, std::uint64_t)> progress)
         : field_(f), threads_(threads), verify_order_(verify_order) {
         if (chunk_level < 0 || chunk_level > 10) throw py::value_error("chunk_level must be in 0..10");
-        RefineOptions opt = make_options(tolerance, mode, max_triangles, threads, verify_order,
-                                         2 * chunk_level, progress);
-        opt.tau_cap = tau_cap;
-        std::string err;
-        Status s;
-        {
-            py::gil_scoped_release nogil;
-            s = build_hierarchy(f.field(), opt, h_, stats_, err);
+        opt_ = make_options(tolerance, mode, max_triangles, threads, verify_order, 2 * chunk_level,
+                            progress);
+        opt_.tau_cap = tau_cap;
+        build(nullptr, {}, 0);
+        opt_.progress = nullptr;
+    }
+
+    // the same options over `f`, a field that differs from this hierarchy's only inside the
+    // caps `changed` ((n, 4): centre x, y, z and angle in radians): nodes clear of them take
+    // their tests from this hierarchy. the result is what a fresh build over `f` makes.
+    std::unique_ptr<PyHierarchy> rebuild(const PyField& f, const Doubles& changed, double margin_m) const {
+        if (changed.ndim() != 2 || changed.shape(1) != 4) throw py::value_error("changed must have shape (n, 4)");
+        std::vector<Cap> caps;
+        for (py::ssize_t i = 0; i < changed.shape(0); ++i) {
+            const double* r = changed.data() + 4 * i;
+            caps.push_back({Vec3{r[0], r[1], r[2]}, r[3]});
         }
-        raise_status(s, err);
+        if (!(margin_m >= 0) || !std::isfinite(margin_m)) throw py::value_error("margin_m must be finite and >= 0");
+        std::unique_ptr<PyHierarchy> out(new PyHierarchy(f, opt_, threads_, verify_order_));
+        out->build(&h_, std::move(caps), margin_m);
+        return out;
     }
 
     py::dict stats() const { return stats_dict(stats_); }
@@ -232,7 +260,36 @@ public:
                               to_numpy(std::move(vp), {V, 2}));
     }
 
-    py::dict extract(std::vector<double> tolerances, bool stitch) {
+    // per node: critical tolerance, measured deviation (-1: never measured), first child
+    // (kNone: leaf) and bisection level; for inspection and tests
+    py::tuple nodes() const {
+        const std::size_t n = h_.nodes.size();
+        std::vector<double> tau(n);
+        std::vector<float> err(n);
+        std::vector<std::uint32_t> child(n);
+        std::vector<std::uint8_t> level(n);
+        for (std::size_t i = 0; i < n; ++i) {
+            tau[i] = h_.nodes[i].tau;
+            err[i] = h_.nodes[i].err;
+            child[i] = h_.nodes[i].child;
+            level[i] = h_.nodes[i].level;
+        }
+        const py::ssize_t N = static_cast<py::ssize_t>(n);
+        std::vector<std::uint32_t> origin(h_.origin);
+        origin.resize(n, kNone);
+        return py::make_tuple(to_numpy(std::move(tau), {N}), to_numpy(std::move(err), {N}),
+                              to_numpy(std::move(child), {N}), to_numpy(std::move(level), {N}),
+                              to_numpy(std::move(origin), {N}));
+    }
+
+    // per vertex, its counterpart in the hierarchy this one was rebuilt from (kNone: new)
+    py::array_t<std::uint32_t> vertex_origin() const {
+        std::vector<std::uint32_t> v(h_.vorigin);
+        return to_numpy(std::move(v), {static_cast<py::ssize_t>(v.size())});
+    }
+
+    py::dict extract(std::vector<double> tolerances, bool stitch, bool keep,
+                     const PyHierarchy* previous) {
         for (std::size_t i = 0; i < tolerances.size(); ++i) {
             if (!(tolerances[i] > 0) || !std::isfinite(tolerances[i]))
                 throw py::value_error("tolerances must be finite and > 0");
@@ -245,10 +302,18 @@ public:
         Status s;
         {
             py::gil_scoped_release nogil;
+            const bool memo = previous && !previous->kept_.empty() &&
+                              previous->kept_tolerances_ == tolerances && previous->kept_stitch_ == stitch;
             s = extract_levels(field_.field(), h_, tolerances, verify_order_, threads_, stitch,
-                               levels, chunks, err);
+                               levels, chunks, err, memo ? &previous->h_ : nullptr,
+                               memo ? &previous->kept_ : nullptr);
         }
         raise_status(s, err);
+        if (keep) {
+            kept_ = levels;
+            kept_tolerances_ = tolerances;
+            kept_stitch_ = stitch;
+        }
         const py::ssize_t V = static_cast<py::ssize_t>(h_.dir.size());
         const py::ssize_t C = static_cast<py::ssize_t>(h_.chunks);
         py::list lvls;
@@ -266,6 +331,7 @@ public:
             d["stitch"] = to_numpy(std::move(lv.stitch), {S, 3});
             d["stitch_offsets"] = to_numpy(std::move(lv.stitch_offsets), {C * 8 + 1});
             d["stitch_failures"] = lv.stitch_failures;
+            d["same"] = to_numpy(std::move(lv.same), {C});
             d["repaired"] = lv.repaired;
             d["max_error_m"] = lv.max_error_m;
             d["mesh_to_surface_m"] = lv.mesh_to_surface_m;
@@ -283,10 +349,31 @@ public:
     }
 
 private:
+    PyHierarchy(const PyField& f, const RefineOptions& opt, int threads, int verify_order)
+        : field_(f), threads_(threads), verify_order_(verify_order), opt_(opt) {}
+
+    void build(const Hierarchy* previous, std::vector<Cap> changed, double margin_m) {
+        RefineOptions opt = opt_;
+        opt.previous = previous;
+        opt.changed = std::move(changed);
+        opt.changed_margin_m = margin_m;
+        std::string err;
+        Status s;
+        {
+            py::gil_scoped_release nogil;
+            s = build_hierarchy(field_.field(), opt, h_, stats_, err);
+        }
+        raise_status(s, err);
+    }
+
     const PyField& field_;
     int threads_, verify_order_;
+    RefineOptions opt_;
     Hierarchy h_;
     RefineStats stats_;
+    std::vector<Level> kept_;  // the last extraction, kept for an incremental one
+    std::vector<double> kept_tolerances_;
+    bool kept_stitch_ = false;
 };
 
 py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& triangles, int order,
@@ -324,7 +411,9 @@ PYBIND11_MODULE(_core, m) {
         .def_property_readonly("radius_m", &PyField::radius)
         .def("height", &PyField::height, py::arg("directions"))
         .def("gradient", &PyField::gradient, py::arg("directions"))
-        .def("wall_distance", &PyField::wall_distance, py::arg("points"));
+        .def("wall_distance", &PyField::wall_distance, py::arg("points"))
+        .def("footprints", &PyField::footprints)
+        .def("globals", &PyField::globals, py::arg("tolerance_m"));
     m.def("refine", &refine_py, py::arg("field"), py::arg("tolerance_m"), py::arg("offset"),
           py::arg("max_triangles"), py::arg("threads") = 0, py::arg("verify_order") = 3,
           py::arg("progress") = nullptr);
@@ -338,7 +427,12 @@ PYBIND11_MODULE(_core, m) {
         .def_property_readonly("vertex_count", &PyHierarchy::vertex_count)
         .def_property_readonly("chunk_count", &PyHierarchy::chunk_count)
         .def("vertices", &PyHierarchy::vertices)
-        .def("extract", &PyHierarchy::extract, py::arg("tolerances"), py::arg("stitch") = true);
+        .def("rebuild", &PyHierarchy::rebuild, py::arg("field"), py::arg("changed"),
+             py::arg("margin_m"), py::keep_alive<0, 2>())
+        .def("vertex_origin", &PyHierarchy::vertex_origin)
+        .def("nodes", &PyHierarchy::nodes)
+        .def("extract", &PyHierarchy::extract, py::arg("tolerances"), py::arg("stitch") = true,
+             py::arg("keep") = false, py::arg("previous") = nullptr);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
           py::arg("order") = 6, py::arg("threads") = 0);
     m.def("estimate_triangles",
