@@ -154,15 +154,18 @@ def _validate_options(
         raise ValueError(f"ratio: must be > 1 and <= 16, got {ratio!r}")
 
 
-def _chunk_pieces(tris: U32, chunk: U32, nchunks: int) -> list[tuple[U32, U32]]:
-    """Per chunk: its vertex ids (ascending, into the global buffer) and its triangles in local
-    indices. tris (T, 3) global ids grouped by chunk; chunk (T,) ascending."""
+def _chunk_pieces(
+    tris: U32, chunk: U32, nchunks: int, only: list[int] | None = None
+) -> dict[int, tuple[U32, U32]]:
+    """Per chunk (all, or those in `only`): its vertex ids (ascending, into the global buffer) and
+    its triangles in local indices. tris (T, 3) global ids grouped by chunk; chunk (T,)
+    ascending."""
     starts = np.searchsorted(chunk, np.arange(nchunks + 1))
-    out = []
-    for c in range(nchunks):
+    out = {}
+    for c in range(nchunks) if only is None else only:
         t = tris[starts[c] : starts[c + 1]]
         ids = np.unique(t).astype(np.uint32)
-        out.append((ids, np.searchsorted(ids, t).astype(np.uint32)))
+        out[c] = (ids, np.searchsorted(ids, t).astype(np.uint32))
     return out
 
 
@@ -173,11 +176,12 @@ def _split_chunks(
     normals: F64,
     nchunks: int,
     skirt_depth: float | None,
-) -> list[ChunkMesh]:
+    only: list[int] | None = None,
+) -> dict[int, ChunkMesh]:
     offs = lv["stitch_offsets"]
     stitch = lv["stitch"]
-    out = []
-    for c, (ids, local) in enumerate(_chunk_pieces(lv["triangles"], lv["chunk"], nchunks)):
+    out = {}
+    for c, (ids, local) in _chunk_pieces(lv["triangles"], lv["chunk"], nchunks, only).items():
         stitched: dict[int, U32] = {}
         for mask in range(1, 8):
             a, b = int(offs[c * 8 + mask]), int(offs[c * 8 + mask + 1])
@@ -189,19 +193,17 @@ def _split_chunks(
         skirt = np.zeros((0, 3), np.uint32)
         if skirt_depth is not None:
             pos, nrm, morph, skirt = _add_skirt(local, pos, nrm, morph, skirt_depth)
-        out.append(
-            ChunkMesh(
-                chunk=c,
-                level=level,
-                vertex_ids=ids,
-                positions=pos,
-                normals=nrm,
-                morph=morph,
-                triangles=local,
-                interior=int(lv["interior"][c]),
-                stitched=stitched,
-                skirt=skirt,
-            )
+        out[c] = ChunkMesh(
+            chunk=c,
+            level=level,
+            vertex_ids=ids,
+            positions=pos,
+            normals=nrm,
+            morph=morph,
+            triangles=local,
+            interior=int(lv["interior"][c]),
+            stitched=stitched,
+            skirt=skirt,
         )
     return out
 
@@ -260,6 +262,147 @@ def _bias_vertices(fld: Field, vertices: F64, tris: U32, limit: float) -> F64:
     return vertices * ((r + shift) / r)[:, None]
 
 
+@dataclass(frozen=True)
+class _Plan:
+    """The resolved options of one bake."""
+
+    tolerance_m: float
+    offset: str
+    tolerances: list[float]
+    chunk_level: int
+    collision_m: float
+    stitch: bool
+    skirt_depth: float | None
+    collision: bool
+    threads: int
+
+    @property
+    def finest(self) -> float:
+        return min(self.tolerance_m, self.collision_m)
+
+    @property
+    def tau_cap(self) -> float:
+        return TAU_HEADROOM * max(self.tolerances[-1], self.collision_m)
+
+
+def _plan(
+    spec: WorldSpec,
+    tolerance_m: float | None,
+    offset: str | None,
+    levels: int | None,
+    ratio: float | None,
+    chunk_level: int | None,
+    collision: bool,
+    threads: int,
+) -> _Plan:
+    tol = float(spec.tolerance_m if tolerance_m is None else tolerance_m)
+    mode = spec.offset if offset is None else offset
+    nlev = spec.lod.levels if levels is None else levels
+    rat = float(spec.lod.ratio if ratio is None else ratio)
+    clev = spec.lod.chunk_level if chunk_level is None else chunk_level
+    _validate_options(tol, mode, threads, spec.radius_m, nlev, rat)
+    if not isinstance(clev, int) or not 0 <= clev <= 5:
+        raise ValueError(f"chunk_level: must be an integer in 0..5, got {clev!r}")
+    if 20 * 4**clev > spec.max_triangles:
+        raise ValueError(
+            f"chunk_level: {clev} makes {20 * 4**clev} chunks, more than "
+            f"max_triangles={spec.max_triangles}"
+        )
+    tolerances = [tol * rat**k for k in range(nlev)]
+    col_tol = (
+        float(spec.collision.tolerance_m) if spec.collision.tolerance_m is not None else 4.0 * tol
+    )
+    stitch = spec.lod.seams == "stitch"
+    skirt_depth = None
+    if not stitch:
+        skirt_depth = spec.lod.skirt_depth_m or 2.0 * tolerances[-1]
+    return _Plan(tol, mode, tolerances, clev, col_tol, stitch, skirt_depth, collision, threads)
+
+
+def _hierarchy(fld: Field, spec: WorldSpec, plan: _Plan, progress: Progress | None) -> Any:
+    return _core.Hierarchy(
+        fld._core,
+        plan.finest,
+        OFFSET_MODES[plan.offset],
+        int(spec.max_triangles),
+        plan.threads,
+        MEASURE_ORDER,
+        plan.chunk_level,
+        plan.tau_cap,
+        progress,
+    )
+
+
+def _level_results(
+    plan: _Plan,
+    ext: dict[str, Any],
+    vertices: F64,
+    normals: F64,
+    nchunks: int,
+    seconds: tuple[float, float],
+    reuse: Callable[[int, dict[str, Any]], dict[int, ChunkMesh]] | None = None,
+) -> list[LevelResult]:
+    """Every level with its chunks. `reuse(level, lv)` may hand back chunks known to be
+    unchanged; the others are cut from the level's arrays."""
+    t_build, t_extract = seconds
+    out: list[LevelResult] = []
+    for k, lv in enumerate(ext["levels"]):
+        present = lv["present"].astype(bool)
+        kept = reuse(k, lv) if reuse is not None else {}
+        todo = [c for c in range(nchunks) if c not in kept]
+        made = _split_chunks(k, lv, vertices, normals, nchunks, plan.skirt_depth, todo)
+        chunks = [kept[c] if c in kept else made[c] for c in range(nchunks)]
+        rep = {
+            "level": k,
+            "tolerance_m": lv["tolerance_m"],
+            "chunks": nchunks,
+            "vertices": int(present.sum()),
+            "triangles": int(len(lv["triangles"])),
+            "max_error_m": float(lv["max_error_m"]),
+            "mesh_to_surface_m": float(lv["mesh_to_surface_m"]),
+            "surface_to_mesh_m": float(lv["surface_to_mesh_m"]),
+            "repaired": int(lv["repaired"]),
+            "stitch_failures": int(lv["stitch_failures"]),
+            "seconds": (t_build if k == 0 else 0.0) + t_extract / len(plan.tolerances),
+        }
+        out.append(
+            LevelResult(
+                level=k,
+                tolerance_m=float(lv["tolerance_m"]),
+                triangles=lv["triangles"],
+                chunk=lv["chunk"],
+                errors=lv["errors"],
+                morph=lv["morph"],
+                present=present,
+                chunks=chunks,
+                report=rep,
+            )
+        )
+    return out
+
+
+def _report(
+    spec: WorldSpec,
+    plan: _Plan,
+    hier: Any,
+    levels: list[LevelResult],
+    col_report: dict[str, Any] | None,
+    total: float,
+) -> dict[str, Any]:
+    return {
+        "planet": spec.name,
+        "radius_m": spec.radius_m,
+        "tolerance_m": plan.tolerance_m,
+        "offset": plan.offset,
+        "chunk_level": plan.chunk_level,
+        "seams": spec.lod.seams,
+        "lods": [lr.report for lr in levels],
+        "collision": col_report,
+        "refine": dict(hier.stats()),
+        "seconds_total": total,
+    }
+
+
 def bake(
     spec: WorldSpec,
     *,
@@ -279,96 +422,43 @@ def bake(
     `progress(round, triangles)` is called between refinement rounds.
     Raises ValueError for bad options or a tolerance that would exceed `spec.max_triangles`.
     """
-    tol = float(spec.tolerance_m if tolerance_m is None else tolerance_m)
-    mode = spec.offset if offset is None else offset
-    nlev = spec.lod.levels if levels is None else levels
-    rat = float(spec.lod.ratio if ratio is None else ratio)
-    clev = spec.lod.chunk_level if chunk_level is None else chunk_level
-    _validate_options(tol, mode, threads, spec.radius_m, nlev, rat)
-    if not isinstance(clev, int) or not 0 <= clev <= 5:
-        raise ValueError(f"chunk_level: must be an integer in 0..5, got {clev!r}")
-    if 20 * 4**clev > spec.max_triangles:
-        raise ValueError(
-            f"chunk_level: {clev} makes {20 * 4**clev} chunks, more than "
-            f"max_triangles={spec.max_triangles}"
-        )
-    tolerances = [tol * rat**k for k in range(nlev)]
-    col_tol = (
-        float(spec.collision.tolerance_m) if spec.collision.tolerance_m is not None else 4.0 * tol
-    )
-    finest = min(tol, col_tol)
+    plan = _plan(spec, tolerance_m, offset, levels, ratio, chunk_level, collision, threads)
     t0 = time.perf_counter()
     fld = Field(spec)
-    hier = _core.Hierarchy(
-        fld._core,
-        finest,
-        OFFSET_MODES[mode],
-        int(spec.max_triangles),
-        threads,
-        MEASURE_ORDER,
-        clev,
-        TAU_HEADROOM * max(tolerances[-1], col_tol),
-        progress,
-    )
-    t_build = time.perf_counter() - t0
+    hier = _hierarchy(fld, spec, plan, progress)
     vertices, directions, _parents = hier.vertices()
     normals = fld.normals(directions)
-    nchunks = hier.chunk_count
-    stitch = spec.lod.seams == "stitch"
-    skirt_depth = None
-    if not stitch:
-        skirt_depth = spec.lod.skirt_depth_m or 2.0 * tolerances[-1]
     t1 = time.perf_counter()
-    ext = hier.extract(tolerances, stitch)
+    ext = hier.extract(plan.tolerances, plan.stitch)
     t_extract = time.perf_counter() - t1
-    level_results: list[LevelResult] = []
-    for k, lv in enumerate(ext["levels"]):
-        present = lv["present"].astype(bool)
-        chunks = _split_chunks(k, lv, vertices, normals, nchunks, skirt_depth)
-        rep = {
-            "level": k,
-            "tolerance_m": lv["tolerance_m"],
-            "chunks": nchunks,
-            "vertices": int(present.sum()),
-            "triangles": int(len(lv["triangles"])),
-            "max_error_m": float(lv["max_error_m"]),
-            "mesh_to_surface_m": float(lv["mesh_to_surface_m"]),
-            "surface_to_mesh_m": float(lv["surface_to_mesh_m"]),
-            "repaired": int(lv["repaired"]),
-            "stitch_failures": int(lv["stitch_failures"]),
-            "seconds": (t_build if k == 0 else 0.0) + t_extract / len(tolerances),
-        }
-        level_results.append(
-            LevelResult(
-                level=k,
-                tolerance_m=float(lv["tolerance_m"]),
-                triangles=lv["triangles"],
-                chunk=lv["chunk"],
-                errors=lv["errors"],
-                morph=lv["morph"],
-                present=present,
-                chunks=chunks,
-                report=rep,
-            )
-        )
+    return _assemble(spec, plan, fld, hier, ext, (vertices, directions, normals), t0, t_extract)
+
+
+def _assemble(
+    spec: WorldSpec,
+    plan: _Plan,
+    fld: Field,
+    hier: Any,
+    ext: dict[str, Any],
+    verts: tuple[F64, F64, F64],
+    t0: float,
+    t_extract: float,
+    reuse: Callable[[int, dict[str, Any]], dict[int, ChunkMesh]] | None = None,
+) -> BakeResult:
+    """The result of a bake from its hierarchy and extracted levels: chunks (those `reuse`
+    hands back are kept as they are), colliders and the report. t0: when the bake began."""
+    vertices, directions, normals = verts
+    nchunks = hier.chunk_count
+    t_build = float(hier.stats()["refine_seconds"] + hier.stats()["verify_seconds"])
+    level_results = _level_results(
+        plan, ext, vertices, normals, nchunks, (t_build, t_extract), reuse
+    )
     colliders: list[Collider] = []
     col_report: dict[str, Any] | None = None
-    if collision:
-        colliders, col_report = _colliders(spec, fld, hier, vertices, col_tol, nchunks, threads)
-    total = time.perf_counter() - t0
-    stats = dict(hier.stats())
-    report: dict[str, Any] = {
-        "planet": spec.name,
-        "radius_m": spec.radius_m,
-        "tolerance_m": tol,
-        "offset": mode,
-        "chunk_level": clev,
-        "seams": spec.lod.seams,
-        "lods": [lr.report for lr in level_results],
-        "collision": col_report,
-        "refine": stats,
-        "seconds_total": total,
-    }
+    if plan.collision:
+        colliders, col_report = _colliders(
+            spec, fld, hier, vertices, plan.collision_m, nchunks, plan.threads
+        )
     return BakeResult(
         spec=spec,
         vertices=vertices,
@@ -378,7 +468,7 @@ def bake(
         colliders=colliders,
         chunk_corners=ext["chunks"]["corners"],
         chunk_neighbors=ext["chunks"]["neighbors"],
-        report=report,
+        report=_report(spec, plan, hier, level_results, col_report, time.perf_counter() - t0),
     )
 
 
@@ -417,7 +507,7 @@ def _colliders(
     dev = _core.measure(fld._core, pos, tris, MEASURE_ORDER, threads)
     out = [
         Collider(c, pos[ids], local)
-        for c, (ids, local) in enumerate(_chunk_pieces(tris, lv["chunk"], nchunks))
+        for c, (ids, local) in _chunk_pieces(tris, lv["chunk"], nchunks).items()
     ]
     p = pos[tris]
     area2 = np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1)

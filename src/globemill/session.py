@@ -1,0 +1,409 @@
+"""Live editing: keep a world's meshes and re-mesh only what a feature edit touches.
+
+An edit builds the world's bisection hierarchy again, but every node clear of the edited
+feature's old and new footprints takes its tests and measurements from the previous hierarchy
+instead of computing them (they depend only on the ground near the node, which did not change),
+and every chunk whose triangles, vertices and borders map one to one onto the previous ones keeps
+its stitched borders and its arrays. The result is, bit for bit, what `bake` makes of the edited
+spec; the edit reports the chunks whose arrays changed, so an engine uploads only those.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import numpy.typing as npt
+
+from .bake import BakeResult, ChunkMesh, Collider, _assemble, _hierarchy, _plan
+from .field import Field
+from .spec import Feature, Ridge, WorldSpec, parse_spec, unit_vector
+
+NONE = np.uint32(0xFFFFFFFF)
+# beyond a node's own cap and its measured deviation, the field it reads stays within this many
+# finest tolerances (and at least a metre): a safety ring, not a bound the tests rely on
+MARGIN_TOLERANCES = 4.0
+
+
+@dataclass
+class EditReport:
+    """What one edit changed.
+
+    changed : {level: [chunk, ...]} the chunks whose arrays (positions, normals, morph targets,
+        triangles, stitched borders, skirts) differ from before, ascending; levels with none
+        are left out
+    colliders : chunks whose collider changed (empty when the session has no colliders)
+    seconds : wall time of the edit
+    reused / tested : triangle tests taken from the previous hierarchy / run in all
+    """
+
+    changed: dict[int, list[int]]
+    colliders: list[int]
+    seconds: float
+    reused: int
+    tested: int
+    stats: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def chunk_count(self) -> int:
+        """Chunk meshes to upload (every level)."""
+        return sum(len(v) for v in self.changed.values())
+
+
+def _same_chunk(a: ChunkMesh, b: ChunkMesh) -> bool:
+    if a.interior != b.interior or a.stitched.keys() != b.stitched.keys():
+        return False
+    pairs = [
+        (a.positions, b.positions),
+        (a.normals, b.normals),
+        (a.morph, b.morph),
+        (a.triangles, b.triangles),
+        (a.skirt, b.skirt),
+    ] + [(a.stitched[m], b.stitched[m]) for m in a.stitched]
+    return all(x.shape == y.shape and np.array_equal(x, y) for x, y in pairs)
+
+
+def _same_collider(a: Collider, b: Collider) -> bool:
+    return (
+        a.positions.shape == b.positions.shape
+        and a.triangles.shape == b.triangles.shape
+        and np.array_equal(a.positions, b.positions)
+        and np.array_equal(a.triangles, b.triangles)
+    )
+
+
+def _rotation(a: npt.NDArray[np.float64], b: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
+    """The rotation (3, 3) taking unit vector a to unit vector b about their common normal
+    (Rodrigues' rotation formula); the identity when they coincide."""
+    v = np.cross(a, b)
+    s = float(np.linalg.norm(v))
+    c = float(np.dot(a, b))
+    if s < 1e-15:
+        if c > 0:
+            return np.eye(3)
+        # half turn about any axis perpendicular to a
+        p = np.cross(a, [1.0, 0.0, 0.0] if abs(a[0]) < 0.9 else [0.0, 1.0, 0.0])
+        p /= np.linalg.norm(p)
+        return 2.0 * np.outer(p, p) - np.eye(3)
+    k = v / s
+    kx = np.array([[0, -k[2], k[1]], [k[2], 0, -k[0]], [-k[1], k[0], 0]])
+    return np.eye(3) + s * kx + (1 - c) * (kx @ kx)
+
+
+def _to_lat_lon(u: npt.NDArray[np.float64]) -> tuple[float, float]:
+    """Latitude and longitude (degrees) of a unit vector: the inverse of spec.unit_vector,
+    u = (cos φ sin λ, sin φ, cos φ cos λ) (docs/terrain.md)."""
+    lat = math.degrees(math.asin(max(-1.0, min(1.0, float(u[1])))))
+    lon = math.degrees(math.atan2(float(u[0]), float(u[2])))
+    return lat, lon
+
+
+def _direction(direction: Any) -> npt.NDArray[np.float64]:
+    """A unit vector from (lat_deg, lon_deg) or an (x, y, z) direction."""
+    try:
+        d = np.asarray(direction, dtype=np.float64).reshape(-1)
+    except (TypeError, ValueError):
+        raise ValueError(
+            f"direction: must be (lat_deg, lon_deg) or a unit vector (x, y, z), got {direction!r}"
+        ) from None
+    if d.size == 2 and np.all(np.isfinite(d)):
+        if not (-90.0 <= d[0] <= 90.0 and -180.0 <= d[1] <= 180.0):
+            raise ValueError(
+                "direction: (lat_deg, lon_deg) must have lat in [-90, 90] and lon in "
+                f"[-180, 180], got {tuple(float(x) for x in d)}"
+            )
+        return np.asarray(unit_vector(float(d[0]), float(d[1])), dtype=np.float64)
+    if d.size == 3 and np.all(np.isfinite(d)) and np.linalg.norm(d) > 0:
+        return d / np.linalg.norm(d)
+    raise ValueError(
+        f"direction: must be (lat_deg, lon_deg) or a finite non-zero (x, y, z), got {direction!r}"
+    )
+
+
+class EditSession:
+    """A world kept in memory for live editing.
+
+    >>> s = EditSession(spec)                       # bakes once, like `bake(spec)`
+    >>> r = s.move_feature(3, (12.5, 20.0))         # feature 3's centre to lat 12.5, lon 20
+    >>> for level, chunks in r.changed.items():
+    ...     for c in chunks:
+    ...         upload(s.chunk(level, c))           # ChunkMesh: only these changed
+
+    Every edit validates the edited spec first (a bad value raises ValueError naming the field
+    and the allowed range, and the session stays as it was), then re-meshes: after any sequence
+    of edits `result` equals `bake(spec)` of the current spec, array for array, bit for bit.
+    Options are those of `bake` and stay fixed for the session; colliders are off by default
+    (with them, every edit rebuilds all colliders).
+    """
+
+    def __init__(
+        self,
+        spec: WorldSpec,
+        *,
+        tolerance_m: float | None = None,
+        offset: str | None = None,
+        levels: int | None = None,
+        ratio: float | None = None,
+        chunk_level: int | None = None,
+        collision: bool = False,
+        threads: int = 0,
+    ) -> None:
+        self._plan = _plan(
+            spec, tolerance_m, offset, levels, ratio, chunk_level, collision, threads
+        )
+        self._spec = spec
+        t0 = time.perf_counter()
+        fld = Field(spec)
+        hier = _hierarchy(fld, spec, self._plan, None)
+        self._install(spec, fld, hier, None, time.perf_counter() - t0)
+
+    # ---- reading ---------------------------------------------------------------------------
+
+    @property
+    def spec(self) -> WorldSpec:
+        """The current spec (with every edit so far)."""
+        return self._spec
+
+    @property
+    def result(self) -> BakeResult:
+        """The current meshes, as `bake(spec)` would return them."""
+        return self._result
+
+    @property
+    def chunk_count(self) -> int:
+        return len(self._result.chunk_corners)
+
+    def chunk(self, level: int, chunk: int) -> ChunkMesh:
+        """One chunk at one level (its arrays are shared, not copied; an edit replaces the
+        ChunkMesh of a changed chunk and leaves the old one as it was)."""
+        levels = self._result.levels
+        if not isinstance(level, int) or not 0 <= level < len(levels):
+            raise ValueError(f"level: must be an integer in 0..{len(levels) - 1}, got {level!r}")
+        n = self.chunk_count
+        if not isinstance(chunk, int) or not 0 <= chunk < n:
+            raise ValueError(f"chunk: must be an integer in 0..{n - 1}, got {chunk!r}")
+        return levels[level].chunks[chunk]
+
+    # ---- edits -----------------------------------------------------------------------------
+
+    def set_feature(self, index: int, **changes: Any) -> EditReport:
+        """Change fields of feature `index` (e.g. ``sigma_m=90.0``; ``kind`` too, with the
+        fields the new kind needs)."""
+        self._check_index(index)
+        if not changes:
+            raise ValueError("set_feature: give at least one field to change")
+        features = self._features()
+        features[index] = {**features[index], **changes}
+        return self._edit(features, [index], [index])
+
+    def add_feature(
+        self, feature: Mapping[str, Any] | Feature, *, index: int | None = None
+    ) -> EditReport:
+        """Insert a feature (a mapping as in the spec file, or a feature model) before `index`
+        (default: last, so it applies after every other)."""
+        features = self._features()
+        n = len(features)
+        at = n if index is None else index
+        if not isinstance(at, int) or isinstance(at, bool) or not 0 <= at <= n:
+            raise ValueError(f"index: must be an integer in 0..{n}, got {index!r}")
+        row = feature.model_dump(mode="json") if hasattr(feature, "model_dump") else dict(feature)
+        features.insert(at, row)
+        return self._edit(features, [], [at])
+
+    def remove_feature(self, index: int) -> EditReport:
+        """Remove feature `index`."""
+        self._check_index(index)
+        features = self._features()
+        del features[index]
+        return self._edit(features, [index], [])
+
+    def move_feature(self, index: int, direction: Any) -> EditReport:
+        """Move feature `index` so that its centre lies at `direction`: (lat_deg, lon_deg) or a
+        unit vector. A ridge moves as a whole (both ends turn about the same axis); a block
+        keeps its heading relative to north. Noise has no centre and cannot be moved."""
+        self._check_index(index)
+        target = _direction(direction)
+        f = self._spec.features[index]
+        row = f.model_dump(mode="json")
+        if isinstance(f, Ridge):
+            c0, c1 = (np.asarray(x, dtype=np.float64) for x in f.endpoints())
+            mid = c0 + c1
+            mid /= np.linalg.norm(mid)
+            rot = _rotation(mid, target)
+            (row["lat0_deg"], row["lon0_deg"]) = _to_lat_lon(rot @ c0)
+            (row["lat1_deg"], row["lon1_deg"]) = _to_lat_lon(rot @ c1)
+        elif "lat_deg" in row:
+            row["lat_deg"], row["lon_deg"] = _to_lat_lon(target)
+        else:
+            raise ValueError(f"features[{index}]: a {row['kind']} feature has no centre to move")
+        features = self._features()
+        features[index] = row
+        return self._edit(features, [index], [index])
+
+    def replace(self, spec: WorldSpec) -> EditReport:
+        """Take another spec of the same world (same radius, tolerance, levels and chunks; any
+        features): the footprints of every feature that differs are re-meshed."""
+        if spec.model_dump(exclude={"features", "layers", "name"}) != self._spec.model_dump(
+            exclude={"features", "layers", "name"}
+        ):
+            raise ValueError(
+                "spec: only features, layers and name may differ from the session's spec"
+            )
+        return self._apply(spec, None)
+
+    # ---- internals -------------------------------------------------------------------------
+
+    def _check_index(self, index: Any) -> None:
+        n = len(self._spec.features)
+        if not isinstance(index, int) or isinstance(index, bool) or not 0 <= index < n:
+            hi = f"0..{n - 1}" if n else "none (the spec has no features)"
+            raise ValueError(f"index: must be an integer in {hi}, got {index!r}")
+
+    def _features(self) -> list[dict[str, Any]]:
+        return [f.model_dump(mode="json", exclude_none=True) for f in self._spec.features]
+
+    def _edit(
+        self, features: list[dict[str, Any]], old: Sequence[int], new: Sequence[int]
+    ) -> EditReport:
+        data = self._spec.model_dump(mode="json", exclude_none=True)
+        data["features"] = features
+        spec = parse_spec(data, source="edit")
+        return self._apply(spec, (list(old), list(new)))
+
+    def _apply(self, spec: WorldSpec, touched: tuple[list[int], list[int]] | None) -> EditReport:
+        t0 = time.perf_counter()
+        old_fld = self._field
+        fld = Field(spec)
+        fa, fb = old_fld._core.footprints(), fld._core.footprints()
+        if touched is None:
+            # every feature whose row changed, by position; a different count: all of them
+            ra, rb = self._spec.core_features(), spec.core_features()
+            if len(ra) == len(rb):
+                diff = [i for i in range(len(ra)) if not np.array_equal(ra[i], rb[i])]
+                touched = (diff, diff)
+            else:
+                touched = (list(range(len(ra))), list(range(len(rb))))
+        caps = [fa[i] for i in touched[0]] + [fb[i] for i in touched[1]]
+        if old_fld._core.globals(self._plan.finest) != fld._core.globals(self._plan.finest):
+            # the verification's sample spacing (finest noise) or vertical walls changed: every
+            # node's tests change with them
+            caps = [np.array([0.0, 0.0, 1.0, 4.0])]
+        changed = np.array(caps, dtype=np.float64).reshape(-1, 4)
+        margin = max(1.0, MARGIN_TOLERANCES * self._plan.finest)
+        hier = self._hier.rebuild(fld._core, changed, margin)
+        return self._install(spec, fld, hier, changed, time.perf_counter() - t0)
+
+    def _install(
+        self,
+        spec: WorldSpec,
+        fld: Field,
+        hier: Any,
+        changed: npt.NDArray[np.float64] | None,
+        t_build: float,
+    ) -> EditReport:
+        """Extract levels (incrementally after an edit), assemble the result and swap it in."""
+        plan = self._plan
+        t1 = time.perf_counter()
+        prev: BakeResult | None = getattr(self, "_result", None)
+        vertices, directions, _parents = hier.vertices()
+        origin = hier.vertex_origin() if changed is not None else None
+        normals = self._normals(fld, directions, origin, changed)
+        nchunks = hier.chunk_count
+        previous = self._hier if changed is not None else None
+        ext = hier.extract(plan.tolerances, plan.stitch, keep=True, previous=previous)
+        t_extract = time.perf_counter() - t1
+
+        reuse = None
+        if prev is not None and origin is not None:
+            to_new = np.full(len(prev.vertices), NONE, np.uint32)
+            known = origin != NONE
+            to_new[origin[known]] = np.flatnonzero(known).astype(np.uint32)
+
+            def reuse(k: int, lv: dict[str, Any]) -> dict[int, ChunkMesh]:
+                kept = {}
+                for c in np.flatnonzero(lv["same"]).tolist():
+                    old = prev.levels[k].chunks[c]
+                    ids = to_new[old.vertex_ids]
+                    if not np.array_equal(normals[ids], old.normals[: len(ids)]):
+                        continue
+                    kept[c] = ChunkMesh(
+                        chunk=c,
+                        level=k,
+                        vertex_ids=ids,
+                        positions=old.positions,
+                        normals=old.normals,
+                        morph=old.morph,
+                        triangles=old.triangles,
+                        interior=old.interior,
+                        stitched=old.stitched,
+                        skirt=old.skirt,
+                    )
+                return kept
+
+        result = _assemble(
+            spec,
+            plan,
+            fld,
+            hier,
+            ext,
+            (vertices, directions, normals),
+            t1 - t_build,
+            t_extract,
+            reuse,
+        )
+        levels, colliders = result.levels, result.colliders
+        changed_chunks: dict[int, list[int]] = {}
+        changed_colliders: list[int] = []
+        if prev is not None:
+            for k, lv in enumerate(levels):
+                diff = [
+                    c
+                    for c in range(nchunks)
+                    if lv.chunks[c] is not prev.levels[k].chunks[c]
+                    and not _same_chunk(lv.chunks[c], prev.levels[k].chunks[c])
+                ]
+                if diff:
+                    changed_chunks[k] = diff
+            changed_colliders = [
+                c
+                for c in range(len(colliders))
+                if not _same_collider(colliders[c], prev.colliders[c])
+            ]
+        self._spec, self._field, self._hier, self._result = spec, fld, hier, result
+        stats = dict(hier.stats())
+        return EditReport(
+            changed=changed_chunks,
+            colliders=changed_colliders,
+            seconds=time.perf_counter() - t1 + t_build,
+            reused=int(stats.get("reused", 0)),
+            tested=int(stats["tested"]),
+            stats=stats,
+        )
+
+    def _normals(
+        self,
+        fld: Field,
+        directions: npt.NDArray[np.float64],
+        origin: npt.NDArray[np.uint32] | None,
+        changed: npt.NDArray[np.float64] | None,
+    ) -> npt.NDArray[np.float64]:
+        """Vertex normals; after an edit, those of vertices clear of the changed caps are the
+        previous ones (a normal depends only on the ground at its vertex)."""
+        if origin is None or changed is None:
+            return fld.normals(directions)
+        prev = self._result.normals
+        known = origin != NONE
+        slack = 1.0 / fld.radius_m  # a metre of ground, against rounding in the cap test
+        for c in changed:
+            cos = np.clip(directions @ c[:3], -1.0, 1.0)
+            known &= np.arccos(cos) > c[3] + slack
+        out = np.empty_like(directions)
+        out[known] = prev[origin[known]]
+        fresh = ~known
+        if fresh.any():
+            out[fresh] = fld.normals(directions[fresh])
+        return out
