@@ -32,10 +32,13 @@ std::uint64_t edge_key(std::uint32_t a, std::uint32_t b) {
 }
 
 // add node x and everything conforming bisection needs with it
-void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& stack) {
+// (every node taken off the stack, the starting ones too, is appended to `added` when given)
+void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& stack,
+               std::vector<std::uint32_t>* added = nullptr) {
     while (!stack.empty()) {
         std::uint32_t x = stack.back();
         stack.pop_back();
+        if (added) added->push_back(x);
         const Node& n = h.nodes[x];
         for (std::uint32_t y : {n.parent, n.pair}) {
             if (y != kNone && !in[y]) {
@@ -391,20 +394,23 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             }
         }
         close_set(h, in, stack);
-        // verification of this level's leaves (measurements are cached on the nodes)
-        std::vector<std::uint32_t> leaves;
-        for (;;) {
-            leaves.clear();
+        // verification of this level's leaves (measurements are cached on the nodes): first every
+        // leaf, then the new leaves under the nodes each repair adds
+        auto leaves_now = [&](std::vector<std::uint32_t>& out) {
+            out.clear();
             for (std::uint32_t i = 0; i < nn; ++i) {
                 const Node& n = h.nodes[i];
-                if (!in[i] && (n.parent == kNone || in[n.parent])) leaves.push_back(i);
+                if (!in[i] && (n.parent == kNone || in[n.parent])) out.push_back(i);
             }
-            if (verify_order <= 0) break;
-            // the same sampling as the hierarchy's own verification: measurements are cached
-            const double spacing = verify_spacing(field, h.tolerance);
-            parallel_for(leaves.size(), threads, [&](std::size_t b, std::size_t e) {
+        };
+        std::vector<std::uint32_t> leaves, check, added;
+        leaves_now(check);
+        // the same sampling as the hierarchy's own verification
+        const double spacing = verify_spacing(field, h.tolerance);
+        while (verify_order > 0 && !check.empty()) {
+            parallel_for(check.size(), threads, [&](std::size_t b, std::size_t e) {
                 for (std::size_t k = b; k < e; ++k) {
-                    Node& t = h.nodes[leaves[k]];
+                    Node& t = h.nodes[check[k]];
                     if (t.err >= 0) continue;
                     double m2s, s2m;
                     t.err = static_cast<float>(triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]),
@@ -414,25 +420,32 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                     t.s2m = static_cast<float>(s2m);
                 }
             });
-            bool more = false;
-            for (std::uint32_t id : leaves) {
+            for (std::uint32_t id : check) {
                 const Node& t = h.nodes[id];
                 if (t.err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
                     in[id] = 1;
                     stack.push_back(id);
                     ++lv.repaired;
-                    more = true;
                 }
             }
-            if (!more) break;
-            close_set(h, in, stack);
+            added.clear();
+            close_set(h, in, stack, &added);
+            check.clear();
+            for (std::uint32_t x : added) {
+                const std::uint32_t c = h.nodes[x].child;
+                if (c == kNone) continue;
+                if (!in[c]) check.push_back(c);
+                if (!in[c + 1]) check.push_back(c + 1);
+            }
+            std::sort(check.begin(), check.end());
         }
+        leaves_now(leaves);
         coarser = in;
-        // triangles grouped by chunk, in node order within a chunk
-        std::vector<std::uint32_t> order(leaves);
-        std::stable_sort(order.begin(), order.end(), [&](std::uint32_t a, std::uint32_t b) {
-            return h.nodes[a].chunk < h.nodes[b].chunk;
-        });
+        // triangles grouped by chunk, in node order within a chunk (a counting sort)
+        std::vector<std::uint32_t> first(static_cast<std::size_t>(h.chunks) + 1, 0), order(leaves.size());
+        for (std::uint32_t id : leaves) ++first[h.nodes[id].chunk + 1];
+        for (std::size_t c = 0; c < h.chunks; ++c) first[c + 1] += first[c];
+        for (std::uint32_t id : leaves) order[first[h.nodes[id].chunk]++] = id;
         lv.present.assign(nv, 0);
         lv.triangles.reserve(order.size() * 3);
         for (std::uint32_t id : order) {

@@ -58,7 +58,7 @@ private:
 
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
     Cap cap_of(const Node& t) const { return node_cap(h, t); }
-    void assign_list(Node& t, std::uint32_t parent_off, std::uint32_t parent_cnt);
+    void assign_list(Node& t, const Cap& cap, std::uint32_t parent_off, std::uint32_t parent_cnt);
     double critical_tolerance(const Node& t) const;
     bool wants_split(const Node& t) const {
         return t.level < opt.min_level || t.tau > opt.tolerance_m;
@@ -67,7 +67,7 @@ private:
     double midpoint_radius(const Node& t) const;
     void split(std::uint32_t t);
     void bisect_pair(std::uint32_t t, std::uint32_t n);
-    void adopt(std::uint32_t id, std::uint32_t old);
+    void adopt(std::uint32_t id, std::uint32_t old, const Cap& cap);
     void relink(std::uint32_t x, std::uint32_t from, std::uint32_t to) {
         if (x == kNone) return;
         for (auto& e : tris[x].nb)
@@ -75,8 +75,7 @@ private:
     }
 };
 
-void Refiner::assign_list(Node& t, std::uint32_t off, std::uint32_t cnt) {
-    Cap cap = cap_of(t);
+void Refiner::assign_list(Node& t, const Cap& cap, std::uint32_t off, std::uint32_t cnt) {
     std::uint32_t start = static_cast<std::uint32_t>(pool.size());
     for (std::uint32_t i = 0; i < cnt; ++i) {
         std::uint32_t f = pool[off + i];
@@ -95,7 +94,7 @@ void Refiner::assign_list(Node& t, std::uint32_t off, std::uint32_t cnt) {
 
 // incremental rebuild: record node id's counterpart `old` in the previous hierarchy and, when the
 // node lies clear of every changed cap, take the numbers that depend only on the field near it
-void Refiner::adopt(std::uint32_t id, std::uint32_t old) {
+void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     if (!opt.previous) return;
     h.origin.resize(tris.size(), kNone);
     reuse.resize(tris.size(), 0);
@@ -105,10 +104,11 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old) {
     const Node& o = opt.previous->nodes[old];
     // the field is read inside the node's cap and, by projections onto the ground, up to about
     // its measured deviation beyond it
-    Cap cap = cap_of(t);
     const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * std::max(0.0f, o.err) + 2 * o.tau) / R;
-    for (const Cap& c : opt.changed)
-        if (angle(cap.c, c.c) <= reach + c.angle) return;
+    for (const Cap& c : opt.changed) {
+        const double a = reach + c.angle;
+        if (a >= kPi || dot(cap.c, c.c) >= std::cos(a) - 1e-12) return;
+    }
     reuse[id] = 1;
     if (!std::isnan(o.mid_r)) t.mid_r = o.mid_r;
     if (o.err >= 0) {
@@ -256,10 +256,11 @@ void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
         if (c->level == opt.min_level) c->chunk = h.chunks++;
         else c->chunk = par.chunk;
     }
-    assign_list(C0, T.list_off, T.list_cnt);
-    assign_list(C1, T.list_off, T.list_cnt);
-    assign_list(N0, N.list_off, N.list_cnt);
-    assign_list(N1, N.list_off, N.list_cnt);
+    const Cap caps[4] = {cap_of(C0), cap_of(C1), cap_of(N0), cap_of(N1)};
+    assign_list(C0, caps[0], T.list_off, T.list_cnt);
+    assign_list(C1, caps[1], T.list_off, T.list_cnt);
+    assign_list(N0, caps[2], N.list_off, N.list_cnt);
+    assign_list(N1, caps[3], N.list_off, N.list_cnt);
     tris.push_back(C0);
     tris.push_back(C1);
     tris.push_back(N0);
@@ -279,10 +280,10 @@ void Refiner::bisect_pair(std::uint32_t t, std::uint32_t n) {
         std::uint32_t oc = ot != kNone ? old[ot].child : kNone;
         std::uint32_t onc = on != kNone ? old[on].child : kNone;
         h.vorigin.push_back(oc != kNone ? old[oc].v[0] : kNone);
-        adopt(c0, oc);
-        adopt(c1, oc != kNone ? oc + 1 : kNone);
-        adopt(n0, onc);
-        adopt(n1, onc != kNone ? onc + 1 : kNone);
+        adopt(c0, oc, caps[0]);
+        adopt(c1, oc != kNone ? oc + 1 : kNone, caps[1]);
+        adopt(n0, onc, caps[2]);
+        adopt(n1, onc != kNone ? onc + 1 : kNone, caps[3]);
     }
 }
 
@@ -375,7 +376,7 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
     std::vector<std::uint32_t> all(F.size());
     for (std::size_t i = 0; i < all.size(); ++i) all[i] = static_cast<std::uint32_t>(i);
     pool = all;
-    for (auto& t : tris) assign_list(t, 0, static_cast<std::uint32_t>(all.size()));
+    for (auto& t : tris) assign_list(t, cap_of(t), 0, static_cast<std::uint32_t>(all.size()));
     leaves = 20;
     if (opt.previous) {
         if (opt.previous->nodes.size() < 20 || opt.previous->dir.size() < 12) {
@@ -384,7 +385,7 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         }
         h.vorigin.resize(dir.size());
         for (std::uint32_t i = 0; i < dir.size(); ++i) h.vorigin[i] = i;
-        for (std::uint32_t i = 0; i < 20; ++i) adopt(i, i);
+        for (std::uint32_t i = 0; i < 20; ++i) adopt(i, i, cap_of(tris[i]));
     }
 
     auto clock0 = std::chrono::steady_clock::now();

@@ -318,6 +318,7 @@ class EditSession:
         t_extract = time.perf_counter() - t1
 
         reuse = None
+        kept_ids: set[tuple[int, int]] = set()
         if prev is not None and origin is not None:
             to_new = np.full(len(prev.vertices), NONE, np.uint32)
             known = origin != NONE
@@ -342,6 +343,7 @@ class EditSession:
                         stitched=old.stitched,
                         skirt=old.skirt,
                     )
+                    kept_ids.add((k, c))
                 return kept
 
         result = _assemble(
@@ -363,7 +365,7 @@ class EditSession:
                 diff = [
                     c
                     for c in range(nchunks)
-                    if lv.chunks[c] is not prev.levels[k].chunks[c]
+                    if (k, c) not in kept_ids
                     and not _same_chunk(lv.chunks[c], prev.levels[k].chunks[c])
                 ]
                 if diff:
@@ -399,8 +401,12 @@ class EditSession:
         known = origin != NONE
         slack = 1.0 / fld.radius_m  # a metre of ground, against rounding in the cap test
         for c in changed:
-            cos = np.clip(directions @ c[:3], -1.0, 1.0)
-            known &= np.arccos(cos) > c[3] + slack
+            if c[3] + slack >= math.pi:
+                known[:] = False
+                break
+            # (no matrix product: it would wake the BLAS threads for a dot per row)
+            cos = directions[:, 0] * c[0] + directions[:, 1] * c[1] + directions[:, 2] * c[2]
+            known &= cos < math.cos(c[3] + slack)
         out = np.empty_like(directions)
         out[known] = prev[origin[known]]
         fresh = ~known
