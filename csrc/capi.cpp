@@ -7,6 +7,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstddef>
 #include <cstring>
 #include <exception>
 #include <memory>
@@ -75,7 +76,33 @@ struct gm_bake {
     std::vector<ColliderOut> colliders;
 };
 
+// what an edit session keeps between updates: the options, the hierarchy and the levels as
+// extracted (for the incremental rebuild), the spec's feature rows and reaches (to find what an
+// update changed) and the current bake
+struct gm_edit {
+    gm_bake_options options{};
+    gm::SpecData spec;
+    std::vector<double> reach;  // 4 per feature: footprint centre and reach angle
+    double spacing = 0;         // verification spacing of the spec's field
+    bool steps = false;         // the field has vertical walls
+    gm::Hierarchy h;
+    std::vector<gm::Level> levels;
+    std::unique_ptr<gm_bake> bake;
+    std::vector<std::uint32_t> changed;  // (level, chunk) pairs of the last update
+};
+
 namespace {
+
+// an incremental bake: the previous session state, the caps that changed, and where to keep the
+// new hierarchy and levels for the next one
+struct Incremental {
+    const gm::Hierarchy* previous = nullptr;
+    const std::vector<gm::Level>* previous_levels = nullptr;
+    std::vector<gm::Cap> changed;
+    double margin_m = 0;
+    gm::Hierarchy* keep_h = nullptr;
+    std::vector<gm::Level>* keep_levels = nullptr;
+};
 
 // ---------------------------------------------------------------------------------------------
 // errors
@@ -338,7 +365,8 @@ std::vector<double> bias_vertices(const gm::Field& f, const std::vector<double>&
 
 std::string fmt_g(double x) { return gm::format_g(x, 6); }
 
-gm_status bake(const gm_world& w, const gm_bake_options& o, gm_bake& b, gm_error* err) {
+gm_status bake(const gm_world& w, const gm_bake_options& o, gm_bake& b, gm_error* err,
+               Incremental* inc = nullptr) {
     const gm::SpecData& spec = w.spec;
     const double R = spec.radius_m;
     // options, as bake.bake and bake._validate_options
@@ -389,6 +417,11 @@ gm_status bake(const gm_world& w, const gm_bake_options& o, gm_bake& b, gm_error
         gm_progress_fn fn = o.progress;
         void* user = o.progress_user;
         ro.progress = [fn, user](int round, std::uint64_t leaves) { fn(user, round, leaves); };
+    }
+    if (inc && inc->previous) {
+        ro.previous = inc->previous;
+        ro.changed = inc->changed;
+        ro.changed_margin_m = inc->margin_m;
     }
     gm::Hierarchy h;
     gm::RefineStats stats;
@@ -450,8 +483,10 @@ gm_status bake(const gm_world& w, const gm_bake_options& o, gm_bake& b, gm_error
     b.skirt = spec.skirt;
     b.skirt_depth = spec.skirt ? (spec.skirt_depth_m != 0 ? spec.skirt_depth_m : 2.0 * tolerances.back()) : 0.0;
     std::vector<gm::Level> levels;
-    st = gm::extract_levels(w.field, h, tolerances, kMeasureOrder, threads, !spec.skirt, levels, b.chunks, msg);
+    st = gm::extract_levels(w.field, h, tolerances, kMeasureOrder, threads, !spec.skirt, levels, b.chunks, msg,
+                            inc ? inc->previous : nullptr, inc ? inc->previous_levels : nullptr);
     if (st != gm::Status::Ok) return from_core(st, msg, err);
+    if (inc && inc->keep_levels) *inc->keep_levels = levels;
     b.levels.resize(levels.size());
     for (std::size_t li = 0; li < levels.size(); ++li) {
         LevelOut& L = b.levels[li];
@@ -531,6 +566,7 @@ gm_status bake(const gm_world& w, const gm_bake_options& o, gm_bake& b, gm_error
             t0 = t1;
         }
     }
+    if (inc && inc->keep_h) *inc->keep_h = std::move(h);
     return ok(err);
 }
 
@@ -994,3 +1030,188 @@ GM_API gm_status gm_collider_triangles(uint32_t* dst, size_t dst_capacity, const
 }
 
 }  // extern "C"
+
+// ---------------------------------------------------------------------------------------------
+// live editing
+
+namespace {
+
+// the finest tolerance a bake of this spec with these options builds its hierarchy to
+double finest_of(const gm::SpecData& spec, const gm_bake_options& o) {
+    const double tol = o.tolerance_m == 0 ? spec.tolerance_m : o.tolerance_m;
+    const double col = spec.has_collision_tolerance ? spec.collision_tolerance_m : 4.0 * tol;
+    return std::min(tol, col);
+}
+
+std::vector<double> reaches(const gm::Field& f) {
+    std::vector<double> out(4 * f.size());
+    for (std::size_t i = 0; i < f.size(); ++i) {
+        const gm::Feature& ft = f.feature(i);
+        out[4 * i] = ft.cap_c.x, out[4 * i + 1] = ft.cap_c.y, out[4 * i + 2] = ft.cap_c.z;
+        out[4 * i + 3] = f.reach_angle(i);
+    }
+    return out;
+}
+
+// everything but the features, the layers and the name
+bool same_settings(const gm::SpecData& a, const gm::SpecData& b) {
+    return a.radius_m == b.radius_m && a.tolerance_m == b.tolerance_m && a.offset == b.offset &&
+           a.max_triangles == b.max_triangles && a.levels == b.levels && a.ratio == b.ratio &&
+           a.chunk_level == b.chunk_level && a.skirt == b.skirt && a.skirt_depth_m == b.skirt_depth_m &&
+           a.has_collision_tolerance == b.has_collision_tolerance &&
+           a.collision_tolerance_m == b.collision_tolerance_m &&
+           a.collision_centered == b.collision_centered &&
+           a.max_triangles_per_chunk == b.max_triangles_per_chunk;
+}
+
+// do two bakes hold the same arrays for one chunk at one level (vertex ids aside)?
+bool same_chunk(const gm_bake& A, const gm_bake& B, std::uint32_t level, std::uint32_t c) {
+    const LevelOut& la = A.levels[level];
+    const LevelOut& lb = B.levels[level];
+    const ChunkMesh& a = la.chunks[c];
+    const ChunkMesh& b = lb.chunks[c];
+    if (a.ids.size() != b.ids.size() || a.interior != b.interior || a.tris != b.tris ||
+        a.stitched != b.stitched || a.skirt != b.skirt || a.skirt_src != b.skirt_src ||
+        a.skirt_pos != b.skirt_pos || a.skirt_morph != b.skirt_morph ||
+        !std::equal(std::begin(a.stitch_off), std::end(a.stitch_off), std::begin(b.stitch_off)))
+        return false;
+    for (std::size_t i = 0; i < a.ids.size(); ++i) {
+        const std::size_t u = a.ids[i], v = b.ids[i];
+        for (std::size_t k = 0; k < 3; ++k)
+            if (A.pos[3 * u + k] != B.pos[3 * v + k] || A.nrm[3 * u + k] != B.nrm[3 * v + k] ||
+                la.lv.morph[3 * u + k] != lb.lv.morph[3 * v + k])
+                return false;
+        if (A.slope[u] != B.slope[v] || A.alt[u] != B.alt[v]) return false;
+        if (A.layers_ok != B.layers_ok) return false;
+        if (A.layers_ok) {
+            if (A.layer[u] != B.layer[v]) return false;
+            for (std::size_t k = 0; k < 3; ++k)
+                if (A.color[3 * u + k] != B.color[3 * v + k]) return false;
+        }
+    }
+    return true;
+}
+
+bool same_collider(const gm_bake& A, const gm_bake& B, std::uint32_t c) {
+    return A.colliders[c].pos == B.colliders[c].pos && A.colliders[c].tris == B.colliders[c].tris;
+}
+
+}  // namespace
+
+GM_API gm_status gm_edit_create(gm_edit** out, const gm_world* world, const gm_bake_options* options,
+                                gm_error* err) {
+    return guarded(err, [&]() -> gm_status {
+        if (!out) return null_arg(err, "edit");
+        *out = nullptr;
+        if (!world) return null_arg(err, "world");
+        std::unique_ptr<gm_edit> e(new gm_edit);
+        gm_bake_options_init(&e->options);
+        if (options) {
+            if (options->struct_size < sizeof(std::uint32_t) || options->struct_size > 4096)
+                return fail(err, GM_ERROR_INVALID_ARGUMENT,
+                            "options->struct_size must be sizeof(gm_bake_options) (use gm_bake_options_init)");
+            std::memcpy(&e->options, options, std::min<std::size_t>(options->struct_size, sizeof e->options));
+        }
+        e->options.struct_size = sizeof e->options;
+        e->options.progress = nullptr;  // only the first bake would call it
+        e->bake.reset(new gm_bake);
+        Incremental keep;
+        keep.keep_h = &e->h;
+        keep.keep_levels = &e->levels;
+        gm_bake_options first = e->options;
+        if (options && options->struct_size >= offsetof(gm_bake_options, progress_user) + sizeof(void*)) {
+            first.progress = options->progress;
+            first.progress_user = options->progress_user;
+        }
+        gm_status s = bake(*world, first, *e->bake, err, &keep);
+        if (s != GM_OK) return s;
+        e->spec = world->spec;
+        e->reach = reaches(world->field);
+        e->spacing = gm::verify_spacing(world->field, finest_of(e->spec, e->options));
+        e->steps = world->field.has_steps();
+        *out = e.release();
+        return ok(err);
+    });
+}
+
+GM_API void gm_edit_destroy(gm_edit* edit) { delete edit; }
+
+GM_API gm_status gm_edit_update(gm_edit* e, const gm_world* world, gm_error* err) {
+    return guarded(err, [&]() -> gm_status {
+        if (!e) return null_arg(err, "edit");
+        if (!world) return null_arg(err, "world");
+        if (!same_settings(e->spec, world->spec))
+            return fail(err, GM_ERROR_INVALID_ARGUMENT,
+                        "world: only features, layers and name may differ from the session's spec "
+                        "(radius_m, tolerance_m, offset, max_triangles, lod and collision must match)");
+        // the caps that changed: the old and new reach of every feature whose row differs (all of
+        // them when the count differs, as an inserted feature shifts the rest)
+        const std::vector<double> now = reaches(world->field);
+        const std::vector<double>& rows0 = e->spec.features;
+        const std::vector<double>& rows1 = world->spec.features;
+        const std::size_t n0 = rows0.size() / 16, n1 = rows1.size() / 16;
+        std::vector<gm::Cap> caps;
+        auto cap = [](const std::vector<double>& r, std::size_t i) {
+            return gm::Cap{gm::Vec3{r[4 * i], r[4 * i + 1], r[4 * i + 2]}, r[4 * i + 3]};
+        };
+        for (std::size_t i = 0; i < std::max(n0, n1); ++i) {
+            const bool differs = n0 != n1 || !std::equal(rows0.begin() + static_cast<std::ptrdiff_t>(16 * i),
+                                                         rows0.begin() + static_cast<std::ptrdiff_t>(16 * i + 16),
+                                                         rows1.begin() + static_cast<std::ptrdiff_t>(16 * i));
+            if (!differs) continue;
+            if (i < n0) caps.push_back(cap(e->reach, i));
+            if (i < n1) caps.push_back(cap(now, i));
+        }
+        // the verification spacing or the presence of vertical walls changed: every test changes
+        const double finest = finest_of(e->spec, e->options);
+        const double spacing = gm::verify_spacing(world->field, finest);
+        if (spacing != e->spacing || world->field.has_steps() != e->steps)
+            caps.assign(1, gm::Cap{gm::Vec3{0, 0, 1}, 4.0});
+        Incremental inc;
+        inc.previous = &e->h;
+        inc.previous_levels = &e->levels;
+        inc.changed = std::move(caps);
+        inc.margin_m = std::max(1.0, 4.0 * finest);  // as session.py: MARGIN_TOLERANCES
+        gm::Hierarchy h;
+        std::vector<gm::Level> levels;
+        inc.keep_h = &h;
+        inc.keep_levels = &levels;
+        std::unique_ptr<gm_bake> nb(new gm_bake);
+        gm_status s = bake(*world, e->options, *nb, err, &inc);
+        if (s != GM_OK) return s;  // the session stays as it was
+        std::vector<std::uint32_t> changed;
+        const gm_bake& A = *e->bake;
+        for (std::uint32_t li = 0; li < nb->levels.size(); ++li)
+            for (std::uint32_t c = 0; c < nb->nchunks; ++c)
+                if (!same_chunk(A, *nb, li, c)) changed.insert(changed.end(), {li, c});
+        for (std::uint32_t c = 0; c < nb->colliders.size(); ++c)
+            if (!same_collider(A, *nb, c)) changed.insert(changed.end(), {GM_COLLIDER_LEVEL, c});
+        e->spec = world->spec;
+        e->reach = now;
+        e->spacing = spacing;
+        e->steps = world->field.has_steps();
+        e->h = std::move(h);
+        e->levels = std::move(levels);
+        e->bake = std::move(nb);
+        e->changed = std::move(changed);
+        return ok(err);
+    });
+}
+
+GM_API const gm_bake* gm_edit_bake(const gm_edit* edit) { return edit ? edit->bake.get() : nullptr; }
+
+GM_API gm_status gm_edit_changed_count(uint64_t* count, const gm_edit* edit, gm_error* err) {
+    return guarded(err, [&]() -> gm_status {
+        if (!count) return null_arg(err, "count");
+        if (!edit) return null_arg(err, "edit");
+        *count = edit->changed.size() / 2;
+        return ok(err);
+    });
+}
+
+GM_API gm_status gm_edit_changed(uint32_t* dst, size_t dst_capacity, const gm_edit* edit, gm_error* err) {
+    return guarded(err, [&]() -> gm_status {
+        if (!edit) return null_arg(err, "edit");
+        return copy_out(dst, dst_capacity, edit->changed.data(), edit->changed.size(), err, "changed");
+    });
+}

@@ -504,6 +504,61 @@ def test_bake_options_act_like_python_keywords(api: Api, small_spec: dict[str, A
     api.lib.gm_world_destroy(w)
 
 
+def _changed_pairs(api: Api, e: C.c_void_p) -> list[tuple[int, int]]:
+    n = C.c_uint64()
+    assert api.lib.gm_edit_changed_count(C.byref(n), e, None) == OK
+    pairs = api.array("gm_edit_changed", 2 * n.value, np.uint32, e).reshape(-1, 2)
+    return [(int(a), int(b)) for a, b in pairs]
+
+
+def test_edit_session_equals_the_python_session(api: Api) -> None:
+    """gm_edit_update gives the arrays and changed list of globemill.EditSession (which equals
+    a fresh bake: tests/test_session.py), with colliders."""
+    api.lib.gm_edit_bake.restype = C.c_void_p
+    api.lib.gm_edit_destroy.restype = None
+    d = coarse_demo()
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    e = C.c_void_p(1)
+    err = Error()
+    o = api.options()
+    assert api.lib.gm_edit_create(C.byref(e), w, C.byref(o), C.byref(err)) == OK, err.message
+    api.lib.gm_world_destroy(w)
+    assert _changed_pairs(api, e) == []
+    py = globemill.EditSession(parse_spec(d), collision=True)
+    hill = next(i for i, f in enumerate(py.spec.features) if f.kind == "hill")
+    mesa = next(i for i, f in enumerate(py.spec.features) if f.kind == "mesa")
+    h = py.spec.features[hill]
+    edits = [
+        lambda: py.move_feature(hill, (h.lat_deg + 0.5, h.lon_deg)),
+        lambda: py.set_feature(mesa, radius_m=py.spec.features[mesa].radius_m * 1.2),
+        lambda: py.remove_feature(hill),
+    ]
+    for edit in edits:
+        report = edit()
+        text = json.dumps(py.spec.model_dump(mode="json", exclude_none=True))
+        status, w, msg = api.world(text)
+        assert status == OK, msg
+        assert api.lib.gm_edit_update(e, w, C.byref(err)) == OK, err.message
+        api.lib.gm_world_destroy(w)
+        compare_bake(api, C.c_void_p(api.lib.gm_edit_bake(e)), py.result)
+        want = [(k, c) for k in sorted(report.changed) for c in report.changed[k]]
+        want += [(0xFFFFFFFF, c) for c in report.colliders]
+        assert _changed_pairs(api, e) == want
+    # a world with other settings is refused and leaves the session as it was
+    before = api.lib.gm_edit_bake(e)
+    other = dict(d, radius_m=d["radius_m"] + 1)
+    status, w, msg = api.world(json.dumps(other))
+    assert status == OK, msg
+    assert api.lib.gm_edit_update(e, w, C.byref(err)) == INVALID_ARGUMENT
+    assert b"only features, layers and name may differ" in err.message
+    assert api.lib.gm_edit_bake(e) == before
+    api.lib.gm_world_destroy(w)
+    assert api.lib.gm_edit_update(None, None, C.byref(err)) == INVALID_ARGUMENT
+    api.lib.gm_edit_destroy(e)
+    api.lib.gm_edit_destroy(None)
+
+
 def test_empty_feature_list_bakes_the_bare_sphere_like_python(api: Api) -> None:
     d = {"name": "bare", "radius_m": 100, "tolerance_m": 5, "features": []}
     status, w, msg = api.world(json.dumps(d))

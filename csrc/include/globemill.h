@@ -43,9 +43,10 @@
  *   indices, morph targets, normals and colliders equal the Python API's for the same spec and
  *   options. Attributes (slope, altitude, layer, colour) follow globemill.attributes.
  *
- * Live editing.  The edit session (re-meshing only the chunks a changed feature touches) does
- *   not exist yet in the core; its calls are not part of this version of the ABI and will be
- *   added under new names (gm_edit_*) without changing the calls below.
+ * Live editing.  A gm_edit session keeps a world's meshes and re-meshes, on gm_edit_update, only
+ *   what the changed features touch; the result equals a fresh gm_bake_create of the new world,
+ *   array for array, and gm_edit_changed lists the chunks whose arrays changed (see the end of
+ *   this header).
  *
  * Versioning.  GM_VERSION is the version of this header, gm_version() that of the library loaded
  *   at run time; hosts should check that their major versions agree. Structs that may grow carry a
@@ -430,6 +431,56 @@ GM_API gm_status gm_collider_positions(double* dst, size_t dst_capacity, const g
 /* Collider triangles, local indices. dst: room for 3 * triangle_count uint32. Thread-safe. */
 GM_API gm_status gm_collider_triangles(uint32_t* dst, size_t dst_capacity, const gm_bake* bake,
                                        uint32_t chunk, gm_error* err);
+
+/* ---------------------------------------------------------------------------------------------
+ * LIVE EDITING
+ *
+ * An edit session bakes a world once and keeps, besides the meshes, what an incremental re-mesh
+ * needs. gm_edit_update takes the edited world (a gm_world made from the edited spec JSON: the
+ * host edits the spec, e.g. moves a feature's lat_deg/lon_deg, and calls gm_world_create); only
+ * the tests and measurements near the features that differ are redone, and the result is, array
+ * for array and bit for bit, what gm_bake_create makes of the edited world with the session's
+ * options (the same contract as Python's globemill.EditSession).
+ */
+typedef struct gm_edit gm_edit;
+
+/* Level number that marks a collider in gm_edit_changed's pairs. */
+#define GM_COLLIDER_LEVEL 0xFFFFFFFFu
+
+/* Bake `world` with `options` (NULL: defaults; progress is called during this first bake only)
+ * and keep it for editing. Fails as gm_bake_create does. The world may be destroyed afterwards.
+ * Thread-safe as gm_bake_create. */
+GM_API gm_status gm_edit_create(gm_edit** edit, const gm_world* world,
+                                const gm_bake_options* options, gm_error* err);
+
+/* Release a session; NULL is ignored. Not while another call uses it (or its gm_edit_bake). */
+GM_API void gm_edit_destroy(gm_edit* edit);
+
+/* Re-mesh for `world`, which may differ from the session's current spec only in its features,
+ * layers and name (anything else fails with GM_ERROR_INVALID_ARGUMENT naming the rule). The
+ * features are compared row by row with the current ones (gm_world_features): a changed row
+ * re-meshes around its old and new footprint; a different feature count re-meshes around every
+ * feature. Fails as gm_bake_create does (e.g. GM_ERROR_BUDGET); on failure the session, its bake
+ * and its changed list stay exactly as they were. The bake handle from gm_edit_bake taken before
+ * a successful update is released by it. Not thread-safe: one call at a time per session, and no
+ * reader of its bake while it runs. */
+GM_API gm_status gm_edit_update(gm_edit* edit, const gm_world* world, gm_error* err);
+
+/* The session's current meshes, to read with every gm_bake_* / gm_chunk_* / gm_collider_* call
+ * (NULL when edit is NULL). Owned by the session: valid until the next successful
+ * gm_edit_update or gm_edit_destroy. */
+GM_API const gm_bake* gm_edit_bake(const gm_edit* edit);
+
+/* Number of (level, chunk) pairs the last gm_edit_update changed (0 after gm_edit_create).
+ * Thread-safe with other readers. */
+GM_API gm_status gm_edit_changed_count(uint64_t* count, const gm_edit* edit, gm_error* err);
+
+/* The pairs themselves, 2 * count uint32: level then chunk, by level then chunk ascending; a
+ * chunk is listed when any of its arrays (vertex data, attributes, morph targets, triangles,
+ * stitched variants, skirt) differs from before. Colliders that changed follow as
+ * (GM_COLLIDER_LEVEL, chunk). Upload exactly these. Thread-safe with other readers. */
+GM_API gm_status gm_edit_changed(uint32_t* dst, size_t dst_capacity, const gm_edit* edit,
+                                 gm_error* err);
 
 #ifdef __cplusplus
 } /* extern "C" */
