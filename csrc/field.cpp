@@ -263,6 +263,8 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
         }
         has_steps_ = has_steps_ || f.step;
         if (f.step) steps_.push_back(static_cast<std::uint32_t>(features_.size()));
+        f.cap_cos = std::cos(std::min(f.cap_angle, kPi));
+        f.cap_sin = std::sin(std::min(f.cap_angle, kPi));
         features_.push_back(f);
         if (has_creases(features_.size() - 1)) creases_.push_back(static_cast<std::uint32_t>(features_.size() - 1));
     }
@@ -578,11 +580,15 @@ double Field::eval(Vec3 u, Vec3* grad) const {
 }
 
 bool Field::touches(std::size_t fi, const Cap& cap) const {
+    return touches(fi, cap, std::cos(cap.angle), std::sin(cap.angle));
+}
+
+bool Field::touches(std::size_t fi, const Cap& cap, double cap_cos, double cap_sin) const {
     const Feature& f = features_[fi];
     if (f.cap_angle >= kPi) return true;
-    double sum = f.cap_angle + cap.angle;
-    if (sum >= kPi) return true;
-    return dot(f.cap_c, cap.c) >= std::cos(sum) - 1e-12;
+    if (f.cap_angle + cap.angle >= kPi) return true;
+    // cos(a + b) = cos a cos b - sin a sin b
+    return dot(f.cap_c, cap.c) >= f.cap_cos * cap_cos - f.cap_sin * cap_sin - 1e-12;
 }
 
 double Field::finest_wavelength(double amplitude_m) const {

@@ -26,6 +26,7 @@ struct Feature {
     Vec3 ax, ay;           // block local axes; ridge: ax = great-circle pole
     Vec3 cap_c;            // footprint cap centre
     double cap_angle = 0;  // footprint cap angular radius (rad); >= pi means everywhere
+    double cap_cos = 1, cap_sin = 0;  // of cap_angle
     double scale_m = 0;    // smallest length a probe grid must resolve to see the feature
     double amp_m = 0;      // largest change of H the feature can make (m)
     bool step = false;     // wall of width zero: H jumps across the rim
@@ -72,6 +73,8 @@ public:
     // candidate features for a point (ascending indices)
     void candidates(Vec3 u, const std::uint32_t*& list, std::size_t& count) const;
     bool touches(std::size_t f, const Cap& cap) const;
+    // the same for many features against one cap: cap_cos, cap_sin are cos and sin of cap.angle
+    bool touches(std::size_t f, const Cap& cap, double cap_cos, double cap_sin) const;
 
     // vertical walls: an upper bound on the distance from point p to the surface through the
     // walls of the step features whose footprint, widened by the wall's height, holds p

@@ -385,15 +385,24 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
         Level& lv = levels[li];
         lv.tolerance_m = eps;
         in = coarser;
-        for (std::uint32_t i = 0; i < nn; ++i) {
+        // the closure in one pass from the last node down (a parent comes before its children, so
+        // it is reached after them); a pair already passed goes through close_set. 2 marks nodes
+        // new to this level (the coarser level's set is closed already).
+        for (std::uint32_t i = static_cast<std::uint32_t>(nn); i-- > 0;) {
             const Node& n = h.nodes[i];
-            if (n.child == kNone || in[i]) continue;
-            if (n.level < h.min_level || n.tau > eps) {
-                in[i] = 1;
-                stack.push_back(i);
+            if (!in[i]) {
+                if (n.child == kNone || !(n.level < h.min_level || n.tau > eps)) continue;
+                in[i] = 2;
+            }
+            if (in[i] != 2) continue;
+            if (n.parent != kNone && !in[n.parent]) in[n.parent] = 2;
+            if (n.pair != kNone && !in[n.pair]) {
+                in[n.pair] = 2;
+                if (n.pair > i) stack.push_back(n.pair);
             }
         }
         close_set(h, in, stack);
+        for (std::uint8_t& x : in) x = x ? 1 : 0;
         // verification of this level's leaves (measurements are cached on the nodes): first every
         // leaf, then the new leaves under the nodes each repair adds
         auto leaves_now = [&](std::vector<std::uint32_t>& out) {

@@ -76,10 +76,11 @@ private:
 };
 
 void Refiner::assign_list(Node& t, const Cap& cap, std::uint32_t off, std::uint32_t cnt) {
+    const double cc = std::cos(cap.angle), sc = std::sin(cap.angle);
     std::uint32_t start = static_cast<std::uint32_t>(pool.size());
     for (std::uint32_t i = 0; i < cnt; ++i) {
         std::uint32_t f = pool[off + i];
-        if (F.touches(f, cap)) pool.push_back(f);
+        if (F.touches(f, cap, cc, sc)) pool.push_back(f);
     }
     std::uint32_t n = static_cast<std::uint32_t>(pool.size()) - start;
     if (n == cnt) {

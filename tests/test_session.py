@@ -283,3 +283,25 @@ def test_chunk_reader_checks_its_arguments() -> None:
         s.chunk(7, 0)
     with pytest.raises(ValueError, match="chunk"):
         s.chunk(0, 80)
+
+
+def test_the_live_edit_example_prints_latencies_and_writes_frames(tmp_path) -> None:
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[1]
+    out = subprocess.run(
+        [sys.executable, str(root / "examples" / "live_edit.py"), "--tolerance-m", "4"]
+        + ["--steps", "2", "--out", str(tmp_path)],
+        capture_output=True,
+        text=True,
+        timeout=900,
+    )
+    assert out.returncode == 0, out.stderr
+    steps = [line for line in out.stdout.splitlines() if line.startswith("step ")]
+    assert len(steps) == 2 and all(" ms, " in line for line in steps)
+    assert "latency per edit: median" in out.stdout
+    frames = sorted(tmp_path.glob("frame_*.png"))
+    assert [f.name for f in frames] == ["frame_000.png", "frame_001.png"]
+    assert all(f.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for f in frames)
