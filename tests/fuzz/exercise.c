@@ -120,6 +120,21 @@ int gm_exercise(const char* text, size_t size, uint64_t max_triangles, int threa
         opt.max_triangles = wi.max_triangles < max_triangles ? wi.max_triangles : max_triangles;
         s = gm_bake_create(&bake, world, &opt, &err);
         check_error(s, &err);
+        if (s == GM_OK) {
+            /* an edit session: an update with the same world changes nothing */
+            gm_edit* edit = NULL;
+            uint64_t changed = 99;
+            gm_status es = gm_edit_create(&edit, world, &opt, &err);
+            check_error(es, &err);
+            CHECK(es == GM_OK && edit != NULL && gm_edit_bake(edit) != NULL);
+            es = gm_edit_update(edit, world, &err);
+            check_error(es, &err);
+            CHECK(es == GM_OK);
+            es = gm_edit_changed_count(&changed, edit, &err);
+            CHECK(es == GM_OK && changed == 0);
+            CHECK(gm_edit_update(NULL, world, &err) == GM_ERROR_INVALID_ARGUMENT);
+            gm_edit_destroy(edit);
+        }
     }
     gm_world_destroy(world); /* a bake does not refer to its world */
     if (s != GM_OK) {
