@@ -560,134 +560,152 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             for (std::size_t t = ol->chunk.size(); t-- > 0;) ostart[ol->chunk[t]] = t;
             for (std::size_t c = nc; c-- > 0;) ostart[c] = std::min(ostart[c], ostart[c + 1]);
         }
-        std::vector<std::uint32_t> verts;
         const std::size_t nt = lv.chunk.size();
         const bool last = li + 1 == L;
-        std::vector<std::uint8_t> removed(nv, 0);
-        std::size_t t0 = 0;
-        for (std::uint32_t c = 0; c < nc; ++c) {
-            std::size_t t1 = t0;
-            while (t1 < nt && lv.chunk[t1] == c) ++t1;
-            auto edge_index = [&](std::uint32_t v) {
-                if (last || levels[li + 1].present[v] || eo.corner[v] || eo.cedge[v] == kNone) return -1;
-                for (int i = 0; i < 3; ++i)
-                    if (eo.cedge[v] == chunks.edge_ids[3 * c + static_cast<std::uint32_t>(i)]) return i;
-                return -1;
-            };
-            // the border: triangles around the boundary vertices the coarser level lacks. if a
-            // variant cannot be stitched inside it (its holes would enclose interior triangles),
-            // the border grows by a ring of triangles and every variant is made again
-            const std::size_t stitch_start = lv.stitch.size();
-            std::vector<std::uint8_t> in_border(t1 - t0, 0);
-            for (std::size_t t = t0; t < t1; ++t)
-                for (int k = 0; k < 3; ++k)
-                    if (edge_index(lv.triangles[3 * t + static_cast<std::size_t>(k)]) >= 0) in_border[t - t0] = 1;
-            std::vector<std::uint32_t> chunk_tris(lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t0),
-                                                  lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t1));
-            std::vector<float> chunk_err(lv.errors.begin() + static_cast<std::ptrdiff_t>(t0),
-                                         lv.errors.begin() + static_cast<std::ptrdiff_t>(t1));
-            // write the chunk back: interior first, then the border
-            auto write_back = [&]() {
-                std::size_t w = t0, ni = 0;
-                for (int pass = 0; pass < 2; ++pass)
-                    for (std::size_t t = 0; t < t1 - t0; ++t) {
-                        if (in_border[t] != pass) continue;
-                        for (int k = 0; k < 3; ++k)
-                            lv.triangles[3 * w + static_cast<std::size_t>(k)] = chunk_tris[3 * t + static_cast<std::size_t>(k)];
-                        lv.errors[w] = chunk_err[t];
-                        ++w;
-                        if (pass == 0) ++ni;
-                    }
-                lv.interior[c] = static_cast<std::uint32_t>(ni);
-            };
-            // incremental: the same chunk as before takes its previous stitching
-            bool same = ol && ol->failed.size() == nc && ol->failed[c] == 0 &&
-                        ostart[c + 1] - ostart[c] == t1 - t0;
-            if (same) {
-                std::size_t o = ostart[c], ni = 0;
-                for (int pass = 0; pass < 2 && same; ++pass)
-                    for (std::size_t t = 0; t < t1 - t0 && same; ++t) {
-                        if (in_border[t] != pass) continue;
-                        for (int k = 0; k < 3; ++k) {
-                            std::uint32_t v = chunk_tris[3 * t + static_cast<std::size_t>(k)];
-                            if (h.vorigin[v] != ol->triangles[3 * o + static_cast<std::size_t>(k)]) same = false;
-                        }
-                        ++o;
-                        if (pass == 0) ++ni;
-                    }
-                same = same && ni == ol->interior[c];
-            }
-            if (same) {
-                // vertices: same positions, morph targets and coarser-level membership, and
-                // their ids in the same order (stitching breaks ties by id)
-                verts.assign(chunk_tris.begin(), chunk_tris.end());
-                std::sort(verts.begin(), verts.end());
-                verts.erase(std::unique(verts.begin(), verts.end()), verts.end());
-                const Level* on = last ? nullptr : &(*previous_levels)[li + 1];
-                std::uint32_t prev_ov = 0;
-                for (std::size_t i = 0; i < verts.size() && same; ++i) {
-                    std::uint32_t v = verts[i], ov = h.vorigin[v];
-                    same = ov != kNone && (i == 0 || ov > prev_ov) && h.rad[v] == previous->rad[ov] &&
-                           (last || levels[li + 1].present[v] == on->present[ov]);
-                    for (int k = 0; k < 3 && same; ++k)
-                        same = lv.morph[3 * v + static_cast<std::size_t>(k)] ==
-                               ol->morph[3 * ov + static_cast<std::size_t>(k)];
-                    prev_ov = ov;
-                }
-            }
-            if (same) {
-                for (int mask = 0; mask < 8; ++mask) {
-                    const std::size_t ci = static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask);
-                    lv.stitch_offsets[ci] = lv.stitch.size() / 3;
-                    for (std::uint64_t i = 3 * ol->stitch_offsets[ci]; i < 3 * ol->stitch_offsets[ci + 1]; ++i)
-                        lv.stitch.push_back(to_new[ol->stitch[i]]);
-                }
-                write_back();
-                lv.same[c] = 1;
-                t0 = t1;
-                continue;
-            }
-            for (int grow = 0;; ++grow) {
-                lv.stitch.resize(stitch_start);
-                std::vector<std::uint32_t> btris, itris;
-                for (std::size_t t = 0; t < t1 - t0; ++t)
-                    (in_border[t] ? btris : itris).insert((in_border[t] ? btris : itris).end(),
-                                                          {chunk_tris[3 * t], chunk_tris[3 * t + 1], chunk_tris[3 * t + 2]});
-                std::uint64_t failures = 0;
-                for (int mask = 0; mask < 8; ++mask) {
-                    lv.stitch_offsets[static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask)] =
-                        lv.stitch.size() / 3;
-                    if (mask == 0 || !stitch || last) continue;
-                    bool any = false;
-                    for (std::uint32_t v : btris) {
-                        int ei = edge_index(v);
-                        removed[v] = (ei >= 0 && ((mask >> ei) & 1)) ? 1 : 0;
-                        any = any || removed[v];
-                    }
-                    std::size_t before = lv.stitch.size();
-                    bool ok = !any || stitch_variant(h, eo, corner_edges, btris, removed, lv.stitch);
-                    if (!ok) {
-                        ++failures;
-                        lv.stitch.resize(before);
-                    }
-                    if (!any || !ok) lv.stitch.insert(lv.stitch.end(), btris.begin(), btris.end());
-                    for (std::uint32_t v : btris) removed[v] = 0;
-                }
-                if (failures == 0 || grow == 3) {
-                    lv.stitch_failures += failures;
-                    lv.failed[c] = static_cast<std::uint8_t>(failures);
-                    write_back();
-                    break;
-                }
-                std::vector<std::uint8_t> touch(nv, 0);
-                for (std::size_t t = 0; t < t1 - t0; ++t)
-                    if (in_border[t])
-                        for (int k = 0; k < 3; ++k) touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]] = 1;
-                for (std::size_t t = 0; t < t1 - t0; ++t)
+        std::vector<std::size_t> start(static_cast<std::size_t>(nc) + 1, nt);
+        for (std::size_t t = nt; t-- > 0;) start[lv.chunk[t]] = t;
+        for (std::size_t c = nc; c-- > 0;) start[c] = std::min(start[c], start[c + 1]);
+        // every chunk on its own (in parallel: each writes only its own triangles and piece),
+        // then the pieces in chunk order
+        struct Piece {
+            std::vector<std::uint32_t> stitch;
+            std::uint64_t off[8] = {};
+            std::uint64_t failures = 0;
+        };
+        std::vector<Piece> pieces(nc);
+        parallel_for(nc, threads, [&](std::size_t cb, std::size_t ce) {
+            // scratch per thread: all zero between uses
+            thread_local std::vector<std::uint8_t> removed;
+            if (removed.size() != nv) removed.assign(nv, 0);
+            std::vector<std::uint32_t> verts;
+            for (std::uint32_t c = static_cast<std::uint32_t>(cb); c < ce; ++c) {
+                Piece& pc = pieces[c];
+                const std::size_t t0 = start[c], t1 = start[c + 1];
+                auto edge_index = [&](std::uint32_t v) {
+                    if (last || levels[li + 1].present[v] || eo.corner[v] || eo.cedge[v] == kNone) return -1;
+                    for (int i = 0; i < 3; ++i)
+                        if (eo.cedge[v] == chunks.edge_ids[3 * c + static_cast<std::uint32_t>(i)]) return i;
+                    return -1;
+                };
+                // the border: triangles around the boundary vertices the coarser level lacks. if
+                // a variant cannot be stitched inside it (its holes would enclose interior
+                // triangles), the border grows by a ring of triangles and every variant is made again
+                std::vector<std::uint8_t> in_border(t1 - t0, 0);
+                for (std::size_t t = t0; t < t1; ++t)
                     for (int k = 0; k < 3; ++k)
-                        if (touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]]) in_border[t] = 1;
+                        if (edge_index(lv.triangles[3 * t + static_cast<std::size_t>(k)]) >= 0) in_border[t - t0] = 1;
+                std::vector<std::uint32_t> chunk_tris(lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t0),
+                                                      lv.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t1));
+                std::vector<float> chunk_err(lv.errors.begin() + static_cast<std::ptrdiff_t>(t0),
+                                             lv.errors.begin() + static_cast<std::ptrdiff_t>(t1));
+                // write the chunk back: interior first, then the border
+                auto write_back = [&]() {
+                    std::size_t w = t0, ni = 0;
+                    for (int pass = 0; pass < 2; ++pass)
+                        for (std::size_t t = 0; t < t1 - t0; ++t) {
+                            if (in_border[t] != pass) continue;
+                            for (int k = 0; k < 3; ++k)
+                                lv.triangles[3 * w + static_cast<std::size_t>(k)] = chunk_tris[3 * t + static_cast<std::size_t>(k)];
+                            lv.errors[w] = chunk_err[t];
+                            ++w;
+                            if (pass == 0) ++ni;
+                        }
+                    lv.interior[c] = static_cast<std::uint32_t>(ni);
+                };
+                // incremental: the same chunk as before takes its previous stitching
+                bool same = ol && ol->failed.size() == nc && ol->failed[c] == 0 &&
+                            ostart[c + 1] - ostart[c] == t1 - t0;
+                if (same) {
+                    std::size_t o = ostart[c], ni = 0;
+                    for (int pass = 0; pass < 2 && same; ++pass)
+                        for (std::size_t t = 0; t < t1 - t0 && same; ++t) {
+                            if (in_border[t] != pass) continue;
+                            for (int k = 0; k < 3; ++k) {
+                                std::uint32_t v = chunk_tris[3 * t + static_cast<std::size_t>(k)];
+                                if (h.vorigin[v] != ol->triangles[3 * o + static_cast<std::size_t>(k)]) same = false;
+                            }
+                            ++o;
+                            if (pass == 0) ++ni;
+                        }
+                    same = same && ni == ol->interior[c];
+                }
+                if (same) {
+                    // vertices: same positions, morph targets and coarser-level membership, and
+                    // their ids in the same order (stitching breaks ties by id)
+                    verts.assign(chunk_tris.begin(), chunk_tris.end());
+                    std::sort(verts.begin(), verts.end());
+                    verts.erase(std::unique(verts.begin(), verts.end()), verts.end());
+                    const Level* on = last ? nullptr : &(*previous_levels)[li + 1];
+                    std::uint32_t prev_ov = 0;
+                    for (std::size_t i = 0; i < verts.size() && same; ++i) {
+                        std::uint32_t v = verts[i], ov = h.vorigin[v];
+                        same = ov != kNone && (i == 0 || ov > prev_ov) && h.rad[v] == previous->rad[ov] &&
+                               (last || levels[li + 1].present[v] == on->present[ov]);
+                        for (int k = 0; k < 3 && same; ++k)
+                            same = lv.morph[3 * v + static_cast<std::size_t>(k)] ==
+                                   ol->morph[3 * ov + static_cast<std::size_t>(k)];
+                        prev_ov = ov;
+                    }
+                }
+                if (same) {
+                    for (int mask = 0; mask < 8; ++mask) {
+                        const std::size_t ci = static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask);
+                        pc.off[mask] = pc.stitch.size() / 3;
+                        for (std::uint64_t i = 3 * ol->stitch_offsets[ci]; i < 3 * ol->stitch_offsets[ci + 1]; ++i)
+                            pc.stitch.push_back(to_new[ol->stitch[i]]);
+                    }
+                    write_back();
+                    lv.same[c] = 1;
+                    continue;
+                }
+                for (int grow = 0;; ++grow) {
+                    pc.stitch.clear();
+                    std::vector<std::uint32_t> btris, itris;
+                    for (std::size_t t = 0; t < t1 - t0; ++t)
+                        (in_border[t] ? btris : itris).insert((in_border[t] ? btris : itris).end(),
+                                                              {chunk_tris[3 * t], chunk_tris[3 * t + 1], chunk_tris[3 * t + 2]});
+                    std::uint64_t failures = 0;
+                    for (int mask = 0; mask < 8; ++mask) {
+                        pc.off[mask] = pc.stitch.size() / 3;
+                        if (mask == 0 || !stitch || last) continue;
+                        bool any = false;
+                        for (std::uint32_t v : btris) {
+                            int ei = edge_index(v);
+                            removed[v] = (ei >= 0 && ((mask >> ei) & 1)) ? 1 : 0;
+                            any = any || removed[v];
+                        }
+                        std::size_t before = pc.stitch.size();
+                        bool ok = !any || stitch_variant(h, eo, corner_edges, btris, removed, pc.stitch);
+                        if (!ok) {
+                            ++failures;
+                            pc.stitch.resize(before);
+                        }
+                        if (!any || !ok) pc.stitch.insert(pc.stitch.end(), btris.begin(), btris.end());
+                        for (std::uint32_t v : btris) removed[v] = 0;
+                    }
+                    if (failures == 0 || grow == 3) {
+                        pc.failures = failures;
+                        lv.failed[c] = static_cast<std::uint8_t>(failures);
+                        write_back();
+                        break;
+                    }
+                    std::vector<std::uint8_t> touch(nv, 0);
+                    for (std::size_t t = 0; t < t1 - t0; ++t)
+                        if (in_border[t])
+                            for (int k = 0; k < 3; ++k) touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]] = 1;
+                    for (std::size_t t = 0; t < t1 - t0; ++t)
+                        for (int k = 0; k < 3; ++k)
+                            if (touch[chunk_tris[3 * t + static_cast<std::size_t>(k)]]) in_border[t] = 1;
+                }
             }
-            t0 = t1;
+        }, 1);
+        for (std::uint32_t c = 0; c < nc; ++c) {
+            const Piece& pc = pieces[c];
+            const std::uint64_t base = lv.stitch.size() / 3;
+            for (int mask = 0; mask < 8; ++mask)
+                lv.stitch_offsets[static_cast<std::size_t>(c) * 8 + static_cast<std::size_t>(mask)] = base + pc.off[mask];
+            lv.stitch.insert(lv.stitch.end(), pc.stitch.begin(), pc.stitch.end());
+            lv.stitch_failures += pc.failures;
         }
         lv.stitch_offsets[static_cast<std::size_t>(nc) * 8] = lv.stitch.size() / 3;
     }

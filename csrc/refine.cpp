@@ -496,11 +496,12 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
 
 }  // namespace
 
-void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn) {
+void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn,
+                  std::size_t block) {
     if (n == 0) return;
     int hw = static_cast<int>(std::max(1u, std::thread::hardware_concurrency()));
     int nt = threads <= 0 ? hw : threads;
-    const std::size_t block = 256;
+    block = std::max<std::size_t>(block, 1);
     std::size_t blocks = (n + block - 1) / block;
     nt = static_cast<int>(std::min<std::size_t>(static_cast<std::size_t>(nt), blocks));
     if (nt <= 1) {

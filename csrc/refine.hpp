@@ -115,8 +115,10 @@ Status refine(const Field& field, const RefineOptions& options, Mesh& out, Refin
 // the base icosahedron: 12 unit vertices, 20 outward counter-clockwise faces
 void icosahedron(std::vector<Vec3>& vertices, std::vector<std::uint32_t>& faces);
 
-// run fn(begin, end) over [0, n) in blocks on up to `threads` threads (0: hardware threads)
-void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn);
+// run fn(begin, end) over [0, n) in blocks of `block` on up to `threads` threads (0: hardware
+// threads)
+void parallel_for(std::size_t n, int threads, const std::function<void(std::size_t, std::size_t)>& fn,
+                  std::size_t block = 256);
 
 // verification sample spacing for a tolerance: a quarter of the shortest noise wavelength whose
 // amplitude is over a quarter of the tolerance (0: no bound)
