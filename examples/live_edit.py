@@ -2,6 +2,7 @@
 
     python examples/live_edit.py                       # 12 steps, frames in out/live/
     python examples/live_edit.py --steps 30 --tolerance-m 0.5 --out out/live
+    python examples/live_edit.py --no-frames            # latencies only (no matplotlib needed)
 
 Opens an EditSession on the demo world, moves the hill "Gorse Knoll" east in small steps (a tenth
 of its width each, like a designer dragging it) and, after every step, prints the edit's latency
@@ -50,7 +51,15 @@ def main() -> None:
     ap.add_argument("--no-frames", action="store_true", help="only print the latencies")
     args = ap.parse_args()
 
-    from matplotlib.image import imsave
+    imsave = None
+    if not args.no_frames:
+        try:
+            from matplotlib.image import imsave
+        except ImportError:
+            raise SystemExit(
+                "live_edit: writing frames needs matplotlib: pip install '.[preview]' "
+                "(or run with --no-frames)"
+            ) from None
 
     spec = globemill.load_spec(args.spec)
     names = [f.name for f in spec.features]
@@ -83,7 +92,7 @@ def main() -> None:
             f"{report.chunk_count:3d} of {nchunks * len(session.result.levels)} chunk meshes "
             f"changed ({per_level or 'none'}), {report.reused / report.tested:.1%} of tests reused"
         )
-        if not args.no_frames:
+        if imsave is not None:
             img = frame(session, report.changed.get(0, []), f"{lat},{lon}", extent)
             imsave(out / f"frame_{k:03d}.png", img)
     lat_ms = np.array(latencies) * 1000
