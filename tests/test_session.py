@@ -148,6 +148,14 @@ def test_moving_a_hill_changes_only_nearby_chunks(fresh: BakeResult) -> None:
     assert r.reused > 0.5 * r.tested
 
 
+def test_the_thread_count_changes_nothing() -> None:
+    # one worker in the session, two in the reference: the same bytes
+    s = EditSession(_spec(), threads=1)
+    s.move_feature(3, (30.0, -55.0))
+    s.set_feature(1, sigma_m=45.0)
+    assert_same(s.result, bake(s.spec, threads=2, **OPTIONS))
+
+
 def test_unchanged_chunks_share_their_arrays() -> None:
     s = EditSession(_spec())
     before = [lv.chunks for lv in s.result.levels]
@@ -207,12 +215,12 @@ def _apply(s: EditSession, edit: tuple) -> globemill.EditReport | None:
 
 
 @settings(
-    max_examples=6,
+    max_examples=10,
     deadline=None,
     derandomize=True,
     suppress_health_check=[HealthCheck.too_slow],
 )
-@given(st.lists(EDITS, min_size=1, max_size=3))
+@given(st.lists(EDITS, min_size=1, max_size=4))
 def test_random_edit_sequences_match_a_fresh_bake(edits: list[tuple]) -> None:
     s = EditSession(_spec())
     before = bake(s.spec, **OPTIONS)

@@ -260,28 +260,6 @@ public:
                               to_numpy(std::move(vp), {V, 2}));
     }
 
-    // per node: critical tolerance, measured deviation (-1: never measured), first child
-    // (kNone: leaf) and bisection level; for inspection and tests
-    py::tuple nodes() const {
-        const std::size_t n = h_.nodes.size();
-        std::vector<double> tau(n);
-        std::vector<float> err(n);
-        std::vector<std::uint32_t> child(n);
-        std::vector<std::uint8_t> level(n);
-        for (std::size_t i = 0; i < n; ++i) {
-            tau[i] = h_.nodes[i].tau;
-            err[i] = h_.nodes[i].err;
-            child[i] = h_.nodes[i].child;
-            level[i] = h_.nodes[i].level;
-        }
-        const py::ssize_t N = static_cast<py::ssize_t>(n);
-        std::vector<std::uint32_t> origin(h_.origin);
-        origin.resize(n, kNone);
-        return py::make_tuple(to_numpy(std::move(tau), {N}), to_numpy(std::move(err), {N}),
-                              to_numpy(std::move(child), {N}), to_numpy(std::move(level), {N}),
-                              to_numpy(std::move(origin), {N}));
-    }
-
     // per vertex, its counterpart in the hierarchy this one was rebuilt from (kNone: new)
     py::array_t<std::uint32_t> vertex_origin() const {
         std::vector<std::uint32_t> v(h_.vorigin);
@@ -430,7 +408,6 @@ PYBIND11_MODULE(_core, m) {
         .def("rebuild", &PyHierarchy::rebuild, py::arg("field"), py::arg("changed"),
              py::arg("margin_m"), py::keep_alive<0, 2>())
         .def("vertex_origin", &PyHierarchy::vertex_origin)
-        .def("nodes", &PyHierarchy::nodes)
         .def("extract", &PyHierarchy::extract, py::arg("tolerances"), py::arg("stitch") = true,
              py::arg("keep") = false, py::arg("previous") = nullptr);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
