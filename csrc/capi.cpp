@@ -77,14 +77,12 @@ struct gm_bake {
 };
 
 // what an edit session keeps between updates: the options, the hierarchy and the levels as
-// extracted (for the incremental rebuild), the spec's feature rows and reaches (to find what an
-// update changed) and the current bake
+// extracted (for the incremental rebuild), the spec and its field (to find what an update
+// changed) and the current bake
 struct gm_edit {
     gm_bake_options options{};
     gm::SpecData spec;
-    std::vector<double> reach;  // 4 per feature: footprint centre and reach angle
-    double spacing = 0;         // verification spacing of the spec's field
-    bool steps = false;         // the field has vertical walls
+    gm::Field field;  // the spec's terrain field
     gm::Hierarchy h;
     std::vector<gm::Level> levels;
     std::unique_ptr<gm_bake> bake;
@@ -1043,16 +1041,6 @@ double finest_of(const gm::SpecData& spec, const gm_bake_options& o) {
     return std::min(tol, col);
 }
 
-std::vector<double> reaches(const gm::Field& f) {
-    std::vector<double> out(4 * f.size());
-    for (std::size_t i = 0; i < f.size(); ++i) {
-        const gm::Feature& ft = f.feature(i);
-        out[4 * i] = ft.cap_c.x, out[4 * i + 1] = ft.cap_c.y, out[4 * i + 2] = ft.cap_c.z;
-        out[4 * i + 3] = f.reach_angle(i);
-    }
-    return out;
-}
-
 // everything but the features, the layers and the name
 bool same_settings(const gm::SpecData& a, const gm::SpecData& b) {
     return a.radius_m == b.radius_m && a.tolerance_m == b.tolerance_m && a.offset == b.offset &&
@@ -1126,9 +1114,7 @@ GM_API gm_status gm_edit_create(gm_edit** out, const gm_world* world, const gm_b
         gm_status s = bake(*world, first, *e->bake, err, &keep);
         if (s != GM_OK) return s;
         e->spec = world->spec;
-        e->reach = reaches(world->field);
-        e->spacing = gm::verify_spacing(world->field, finest_of(e->spec, e->options));
-        e->steps = world->field.has_steps();
+        e->field = world->field;
         *out = e.release();
         return ok(err);
     });
@@ -1144,34 +1130,10 @@ GM_API gm_status gm_edit_update(gm_edit* e, const gm_world* world, gm_error* err
             return fail(err, GM_ERROR_INVALID_ARGUMENT,
                         "world: only features, layers and name may differ from the session's spec "
                         "(radius_m, tolerance_m, offset, max_triangles, lod and collision must match)");
-        // the caps that changed: the old and new reach of every feature whose row differs (all of
-        // them when the count differs, as an inserted feature shifts the rest)
-        const std::vector<double> now = reaches(world->field);
-        const std::vector<double>& rows0 = e->spec.features;
-        const std::vector<double>& rows1 = world->spec.features;
-        const std::size_t n0 = rows0.size() / 16, n1 = rows1.size() / 16;
-        std::vector<gm::Cap> caps;
-        auto cap = [](const std::vector<double>& r, std::size_t i) {
-            return gm::Cap{gm::Vec3{r[4 * i], r[4 * i + 1], r[4 * i + 2]}, r[4 * i + 3]};
-        };
-        for (std::size_t i = 0; i < std::max(n0, n1); ++i) {
-            const bool differs = n0 != n1 || !std::equal(rows0.begin() + static_cast<std::ptrdiff_t>(16 * i),
-                                                         rows0.begin() + static_cast<std::ptrdiff_t>(16 * i + 16),
-                                                         rows1.begin() + static_cast<std::ptrdiff_t>(16 * i));
-            if (!differs) continue;
-            if (i < n0) caps.push_back(cap(e->reach, i));
-            if (i < n1) caps.push_back(cap(now, i));
-        }
-        // the verification spacing or the presence of vertical walls changed: every test changes
-        const double finest = finest_of(e->spec, e->options);
-        const double spacing = gm::verify_spacing(world->field, finest);
-        if (spacing != e->spacing || world->field.has_steps() != e->steps)
-            caps.assign(1, gm::Cap{gm::Vec3{0, 0, 1}, 4.0});
         Incremental inc;
+        gm::edit_caps(e->field, world->field, finest_of(e->spec, e->options), inc.changed, inc.margin_m);
         inc.previous = &e->h;
         inc.previous_levels = &e->levels;
-        inc.changed = std::move(caps);
-        inc.margin_m = std::max(1.0, 4.0 * finest);  // as session.py: MARGIN_TOLERANCES
         gm::Hierarchy h;
         std::vector<gm::Level> levels;
         inc.keep_h = &h;
@@ -1187,9 +1149,7 @@ GM_API gm_status gm_edit_update(gm_edit* e, const gm_world* world, gm_error* err
         for (std::uint32_t c = 0; c < nb->colliders.size(); ++c)
             if (!same_collider(A, *nb, c)) changed.insert(changed.end(), {GM_COLLIDER_LEVEL, c});
         e->spec = world->spec;
-        e->reach = now;
-        e->spacing = spacing;
-        e->steps = world->field.has_steps();
+        e->field = world->field;
         e->h = std::move(h);
         e->levels = std::move(levels);
         e->bake = std::move(nb);

@@ -653,6 +653,14 @@ int Field::crease_points(std::size_t fi, Vec3 c, double reach, Vec3* out) const 
     return n;
 }
 
+bool Field::same_feature(std::size_t i, const Field& other, std::size_t j) const {
+    const Feature& a = features_[i];
+    const Feature& b = other.features_[j];
+    auto eq = [](Vec3 u, Vec3 v) { return u.x == v.x && u.y == v.y && u.z == v.z; };
+    return a.kind == b.kind && a.blend == b.blend && a.k == b.k && eq(a.c, b.c) && eq(a.c1, b.c1) &&
+           std::equal(std::begin(a.prm), std::end(a.prm), std::begin(b.prm));
+}
+
 double Field::reach_angle(std::size_t i) const {
     const Feature& f = features_[i];
     return f.step ? f.cap_angle + std::fabs(f.amp_m) / radius_ : f.cap_angle;

@@ -81,6 +81,8 @@ public:
     // (infinity when none does). a pure function of p and the features: it does not depend on
     // how the footprint index happens to group them.
     double wall_distance(Vec3 p) const;
+    // is feature i of this field defined exactly as feature j of `other` (the same row)?
+    bool same_feature(std::size_t i, const Field& other, std::size_t j) const;
     // how far feature i reaches (angle from its footprint centre, radians): its footprint, and
     // for a step feature the wall's height more, where its wall still counts in wall_distance.
     // a feature changes nothing that is computed beyond its reach.

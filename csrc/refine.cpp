@@ -599,6 +599,24 @@ double verify_spacing(const Field& field, double tolerance_m) {
     return std::isfinite(lam) ? lam / 4 : 0.0;
 }
 
+void edit_caps(const Field& before, const Field& after, double tolerance_m, std::vector<Cap>& caps,
+               double& margin_m) {
+    caps.clear();
+    // a safety ring beyond each node's own reach (see adopt): a few tolerances, at least a metre
+    margin_m = std::max(1.0, 4.0 * tolerance_m);
+    if (verify_spacing(before, tolerance_m) != verify_spacing(after, tolerance_m) ||
+        before.has_steps() != after.has_steps()) {
+        caps.push_back({Vec3{0, 0, 1}, 4.0});
+        return;
+    }
+    const std::size_t n0 = before.size(), n1 = after.size();
+    std::size_t head = 0, tail = 0;
+    while (head < std::min(n0, n1) && before.same_feature(head, after, head)) ++head;
+    while (tail < std::min(n0, n1) - head && before.same_feature(n0 - 1 - tail, after, n1 - 1 - tail)) ++tail;
+    for (std::size_t i = head; i < n0 - tail; ++i) caps.push_back({before.feature(i).cap_c, before.reach_angle(i)});
+    for (std::size_t i = head; i < n1 - tail; ++i) caps.push_back({after.feature(i).cap_c, after.reach_angle(i)});
+}
+
 Cap node_cap(const Hierarchy& h, const Node& t) {
     Vec3 c = normalize(h.dir[t.v[0]] + h.dir[t.v[1]] + h.dir[t.v[2]]);
     double cmin = std::min({dot(c, h.dir[t.v[0]]), dot(c, h.dir[t.v[1]]), dot(c, h.dir[t.v[2]])});

@@ -124,6 +124,15 @@ void parallel_for(std::size_t n, int threads, const std::function<void(std::size
 // amplitude is over a quarter of the tolerance (0: no bound)
 double verify_spacing(const Field& field, double tolerance_m);
 
+// incremental rebuild after an edit from `before` to `after` (same radius): the caps for
+// RefineOptions::changed and the margin for changed_margin_m. The edited features are those
+// outside the longest runs the two feature lists share at their start and at their end (so
+// changing, inserting or removing one feature names that one only); their reach before and
+// after is changed. When the verification spacing at `tolerance_m` or the presence of vertical
+// walls differs, every node's numbers change: the whole sphere is.
+void edit_caps(const Field& before, const Field& after, double tolerance_m, std::vector<Cap>& caps,
+               double& margin_m);
+
 // a node's footprint cap and the size floor shared by refinement and level extraction
 Cap node_cap(const Hierarchy& h, const Node& t);
 bool at_floor(const Hierarchy& h, const Node& t, double tolerance_m);

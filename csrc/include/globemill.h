@@ -458,9 +458,9 @@ GM_API void gm_edit_destroy(gm_edit* edit);
 
 /* Re-mesh for `world`, which may differ from the session's current spec only in its features,
  * layers and name (anything else fails with GM_ERROR_INVALID_ARGUMENT naming the rule). The
- * features are compared row by row with the current ones (gm_world_features): a changed row
- * re-meshes around its old and new footprint; a different feature count re-meshes around every
- * feature. Fails as gm_bake_create does (e.g. GM_ERROR_BUDGET); on failure the session, its bake
+ * features are compared with the current ones (gm_world_features): the rows outside the longest
+ * runs the two lists share at their start and end (one changed, inserted or removed feature)
+ * re-mesh around their old and new footprints. Fails as gm_bake_create does (e.g. GM_ERROR_BUDGET); on failure the session, its bake
  * and its changed list stay exactly as they were. The bake handle from gm_edit_bake taken before
  * a successful update is released by it. Not thread-safe: one call at a time per session, and no
  * reader of its bake while it runs. */

@@ -125,25 +125,6 @@ public:
         return to_numpy(std::move(out), {static_cast<py::ssize_t>(n)});
     }
 
-    // per feature: its reach, (x, y, z, angle in radians): the footprint cap, widened for a
-    // vertical wall by its height; beyond it the feature changes nothing the mesher computes
-    py::array_t<double> footprints() const {
-        std::vector<double> out(4 * field_.size());
-        for (std::size_t i = 0; i < field_.size(); ++i) {
-            const Feature& f = field_.feature(i);
-            out[4 * i] = f.cap_c.x;
-            out[4 * i + 1] = f.cap_c.y;
-            out[4 * i + 2] = f.cap_c.z;
-            out[4 * i + 3] = field_.reach_angle(i);
-        }
-        return to_numpy(std::move(out), {static_cast<py::ssize_t>(field_.size()), 4});
-    }
-
-    // the numbers every node's tests depend on beyond the field near the node
-    py::tuple globals(double tolerance) const {
-        return py::make_tuple(verify_spacing(field_, tolerance), field_.has_steps());
-    }
-
 private:
     Field field_;
 };
@@ -389,9 +370,20 @@ PYBIND11_MODULE(_core, m) {
         .def_property_readonly("radius_m", &PyField::radius)
         .def("height", &PyField::height, py::arg("directions"))
         .def("gradient", &PyField::gradient, py::arg("directions"))
-        .def("wall_distance", &PyField::wall_distance, py::arg("points"))
-        .def("footprints", &PyField::footprints)
-        .def("globals", &PyField::globals, py::arg("tolerance_m"));
+        .def("wall_distance", &PyField::wall_distance, py::arg("points"));
+    m.def(
+        "edit_caps",
+        [](const PyField& before, const PyField& after, double tolerance_m) {
+            std::vector<Cap> caps;
+            double margin = 0;
+            edit_caps(before.field(), after.field(), tolerance_m, caps, margin);
+            std::vector<double> out;
+            for (const Cap& c : caps) out.insert(out.end(), {c.c.x, c.c.y, c.c.z, c.angle});
+            return py::make_tuple(to_numpy(std::move(out), {static_cast<py::ssize_t>(caps.size()), 4}), margin);
+        },
+        py::arg("before"), py::arg("after"), py::arg("tolerance_m"),
+        "the caps an edit from field `before` to `after` changed ((n, 4): centre x, y, z, angle) and "
+        "the margin for Hierarchy.rebuild");
     m.def("refine", &refine_py, py::arg("field"), py::arg("tolerance_m"), py::arg("offset"),
           py::arg("max_triangles"), py::arg("threads") = 0, py::arg("verify_order") = 3,
           py::arg("progress") = nullptr);

@@ -12,21 +12,19 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 
+from . import _core
 from .bake import BakeResult, ChunkMesh, Collider, _assemble, _hierarchy, _plan
 from .field import Field
 from .spec import Feature, Ridge, WorldSpec, parse_spec, unit_vector
 
 NONE = np.uint32(0xFFFFFFFF)
-# beyond a node's own cap and its measured deviation, the field it reads stays within this many
-# finest tolerances (and at least a metre): a safety ring, not a bound the tests rely on
-MARGIN_TOLERANCES = 4.0
 
 
 @dataclass
@@ -198,7 +196,7 @@ class EditSession:
             raise ValueError("set_feature: give at least one field to change")
         features = self._features()
         features[index] = {**features[index], **changes}
-        return self._edit(features, [index], [index])
+        return self._edit(features)
 
     def add_feature(
         self, feature: Mapping[str, Any] | Feature, *, index: int | None = None
@@ -212,14 +210,14 @@ class EditSession:
             raise ValueError(f"index: must be an integer in 0..{n}, got {index!r}")
         row = feature.model_dump(mode="json") if hasattr(feature, "model_dump") else dict(feature)
         features.insert(at, row)
-        return self._edit(features, [], [at])
+        return self._edit(features)
 
     def remove_feature(self, index: int) -> EditReport:
         """Remove feature `index`."""
         self._check_index(index)
         features = self._features()
         del features[index]
-        return self._edit(features, [index], [])
+        return self._edit(features)
 
     def move_feature(self, index: int, direction: Any) -> EditReport:
         """Move feature `index` so that its centre lies at `direction`: (lat_deg, lon_deg) or a
@@ -242,7 +240,7 @@ class EditSession:
             raise ValueError(f"features[{index}]: a {row['kind']} feature has no centre to move")
         features = self._features()
         features[index] = row
-        return self._edit(features, [index], [index])
+        return self._edit(features)
 
     def replace(self, spec: WorldSpec) -> EditReport:
         """Take another spec of the same world (same radius, tolerance, levels and chunks; any
@@ -253,7 +251,7 @@ class EditSession:
             raise ValueError(
                 "spec: only features, layers and name may differ from the session's spec"
             )
-        return self._apply(spec, None)
+        return self._apply(spec)
 
     # ---- internals -------------------------------------------------------------------------
 
@@ -266,34 +264,16 @@ class EditSession:
     def _features(self) -> list[dict[str, Any]]:
         return [f.model_dump(mode="json", exclude_none=True) for f in self._spec.features]
 
-    def _edit(
-        self, features: list[dict[str, Any]], old: Sequence[int], new: Sequence[int]
-    ) -> EditReport:
+    def _edit(self, features: list[dict[str, Any]]) -> EditReport:
         data = self._spec.model_dump(mode="json", exclude_none=True)
         data["features"] = features
-        spec = parse_spec(data, source="edit")
-        return self._apply(spec, (list(old), list(new)))
+        return self._apply(parse_spec(data, source="edit"))
 
-    def _apply(self, spec: WorldSpec, touched: tuple[list[int], list[int]] | None) -> EditReport:
+    def _apply(self, spec: WorldSpec) -> EditReport:
         t0 = time.perf_counter()
-        old_fld = self._field
         fld = Field(spec)
-        fa, fb = old_fld._core.footprints(), fld._core.footprints()
-        if touched is None:
-            # every feature whose row changed, by position; a different count: all of them
-            ra, rb = self._spec.core_features(), spec.core_features()
-            if len(ra) == len(rb):
-                diff = [i for i in range(len(ra)) if not np.array_equal(ra[i], rb[i])]
-                touched = (diff, diff)
-            else:
-                touched = (list(range(len(ra))), list(range(len(rb))))
-        caps = [fa[i] for i in touched[0]] + [fb[i] for i in touched[1]]
-        if old_fld._core.globals(self._plan.finest) != fld._core.globals(self._plan.finest):
-            # the verification's sample spacing (finest noise) or vertical walls changed: every
-            # node's tests change with them
-            caps = [np.array([0.0, 0.0, 1.0, 4.0])]
-        changed = np.array(caps, dtype=np.float64).reshape(-1, 4)
-        margin = max(1.0, MARGIN_TOLERANCES * self._plan.finest)
+        # the edited features' old and new reach (or everything), from the core
+        changed, margin = _core.edit_caps(self._field._core, fld._core, self._plan.finest)
         hier = self._hier.rebuild(fld._core, changed, margin)
         return self._install(spec, fld, hier, changed, time.perf_counter() - t0)
 
