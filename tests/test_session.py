@@ -156,6 +156,40 @@ def test_the_thread_count_changes_nothing() -> None:
     assert_same(s.result, bake(s.spec, threads=2, **OPTIONS))
 
 
+def test_edited_meshes_are_within_tolerance_by_an_independent_measure() -> None:
+    # the deviation measured outside the mesher (tests/independent_error.py: projections onto the
+    # true surface and exact closest points among scipy cKDTree candidates), every level
+    from independent_error import feature_directions, measure, step_walls
+
+    s = EditSession(_spec())
+    s.move_feature(1, (12.0, 18.0))
+    s.add_feature(
+        {
+            "kind": "crater",
+            "lat_deg": -5.0,
+            "lon_deg": 80.0,
+            "depth_m": 5.0,
+            "radius_m": 20.0,
+            "rim_height_m": 2.0,
+            "rim_width_m": 6.0,
+        }
+    )
+    spec = s.spec
+    field = globemill.field(spec)
+    cf, r = spec.core_features(), float(spec.radius_m)
+    for k, lv in enumerate(s.result.levels):
+        res = measure(
+            field,
+            r,
+            *s.result.mesh(k),
+            surface_samples=40_000,
+            extra_directions=feature_directions(cf, r),
+            walls=step_walls(cf, field, r),
+            refine_worst=32,
+        )
+        assert res["max"] <= lv.tolerance_m, (k, res["max"])
+
+
 def test_unchanged_chunks_share_their_arrays() -> None:
     s = EditSession(_spec())
     before = [lv.chunks for lv in s.result.levels]
