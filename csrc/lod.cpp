@@ -20,6 +20,7 @@
 #include <algorithm>
 #include <cmath>
 #include <map>
+#include <chrono>
 #include <unordered_map>
 
 #include "measure.hpp"
@@ -369,7 +370,7 @@ bool stitch_variant(const Hierarchy& h, const EdgeOf& eo,
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
                       ChunkInfo& chunks, std::string& error, const Hierarchy* previous,
-                      const std::vector<Level>* previous_levels) {
+                      const std::vector<const Level*>* previous_levels) {
     const std::size_t nn = h.nodes.size(), nv = h.dir.size();
     const std::size_t L = tolerances.size();
     if (L == 0) {
@@ -380,7 +381,10 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
     std::vector<std::uint8_t> in(nn, 0), coarser(nn, 0);
     std::vector<std::uint32_t> stack;
     // coarse to fine: each level starts from the coarser one's split set, so levels nest
+    using Clock = std::chrono::steady_clock;
+    auto since = [](Clock::time_point t) { return std::chrono::duration<double>(Clock::now() - t).count(); };
     for (std::size_t li = L; li-- > 0;) {
+        const auto t_level = Clock::now();
         const double eps = tolerances[li];
         Level& lv = levels[li];
         lv.tolerance_m = eps;
@@ -467,9 +471,11 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             lv.mesh_to_surface_m = std::max(lv.mesh_to_surface_m, static_cast<double>(t.m2s));
             lv.surface_to_mesh_m = std::max(lv.surface_to_mesh_m, static_cast<double>(t.s2m));
         }
+        lv.seconds += since(t_level);
     }
     // morph targets, fine to coarse
     for (std::size_t li = 0; li < L; ++li) {
+        const auto t_morph = Clock::now();
         Level& lv = levels[li];
         lv.morph.assign(3 * nv, 0.0);
         const std::vector<std::uint8_t>* next = li + 1 < L ? &levels[li + 1].present : nullptr;
@@ -486,6 +492,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             lv.morph[3 * v + 1] = p.y;
             lv.morph[3 * v + 2] = p.z;
         }
+        lv.seconds += since(t_morph);
     }
     // chunks: the nodes at the chunk level, their corners, edges and neighbours
     const std::uint32_t nc = h.chunks;
@@ -548,12 +555,13 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
     }
     // stitched variants per level (all but the coarsest), chunk and edge mask
     for (std::size_t li = 0; li < L; ++li) {
+        const auto t_seams = Clock::now();
         Level& lv = levels[li];
         lv.stitch_offsets.assign(static_cast<std::size_t>(nc) * 8 + 1, 0);
         lv.interior.assign(nc, 0);
         lv.same.assign(nc, 0);
         lv.failed.assign(nc, 0);
-        const Level* ol = memo ? &(*previous_levels)[li] : nullptr;
+        const Level* ol = memo ? (*previous_levels)[li] : nullptr;
         std::vector<std::size_t> ostart;
         if (ol) {
             ostart.assign(static_cast<std::size_t>(nc) + 1, ol->chunk.size());
@@ -635,7 +643,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
                     verts.assign(chunk_tris.begin(), chunk_tris.end());
                     std::sort(verts.begin(), verts.end());
                     verts.erase(std::unique(verts.begin(), verts.end()), verts.end());
-                    const Level* on = last ? nullptr : &(*previous_levels)[li + 1];
+                    const Level* on = last ? nullptr : (*previous_levels)[li + 1];
                     std::uint32_t prev_ov = 0;
                     for (std::size_t i = 0; i < verts.size() && same; ++i) {
                         std::uint32_t v = verts[i], ov = h.vorigin[v];
@@ -708,6 +716,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
             lv.stitch_failures += pc.failures;
         }
         lv.stitch_offsets[static_cast<std::size_t>(nc) * 8] = lv.stitch.size() / 3;
+        lv.seconds += since(t_seams);
     }
     return Status::Ok;
 }

@@ -34,6 +34,7 @@ struct Level {
     std::vector<std::uint8_t> same;
     std::vector<std::uint8_t> failed;  // per chunk: stitched variants left unstitched
     double max_error_m = 0, mesh_to_surface_m = 0, surface_to_mesh_m = 0;
+    double seconds = 0;  // wall time of this level's closure, verification, morph targets and seams
 };
 
 struct ChunkInfo {
@@ -53,6 +54,6 @@ struct ChunkInfo {
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
                       ChunkInfo& chunks, std::string& error, const Hierarchy* previous = nullptr,
-                      const std::vector<Level>* previous_levels = nullptr);
+                      const std::vector<const Level*>* previous_levels = nullptr);
 
 }  // namespace gm

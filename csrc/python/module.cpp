@@ -14,7 +14,10 @@
 #include "field.hpp"
 #include "lod.hpp"
 #include "measure.hpp"
+#include "attributes.hpp"
+#include "bake.hpp"
 #include "refine.hpp"
+#include "session.hpp"
 
 namespace py = pybind11;
 using namespace gm;
@@ -129,28 +132,6 @@ private:
     Field field_;
 };
 
-RefineOptions make_options(double tolerance, int mode, std::uint64_t max_triangles, int threads,
-                           int verify_order, int min_level,
-                           std::function<void(int, std::uint64_t)>& progress) {
-    if (mode < 0 || mode > 2) throw py::value_error("offset mode must be 0 (radial), 1 (normal) or 2 (exact)");
-    if (verify_order == 1 || verify_order < 0 || verify_order > 32)
-        throw py::value_error("verify_order must be 0 (off) or in 2..32");
-    RefineOptions opt;
-    opt.tolerance_m = tolerance;
-    opt.mode = static_cast<OffsetMode>(mode);
-    opt.max_triangles = max_triangles;
-    opt.threads = threads;
-    opt.verify_order = verify_order;
-    opt.min_level = min_level;
-    if (progress) {
-        opt.progress = [&progress](int round, std::uint64_t leaves) {
-            py::gil_scoped_acquire gil;
-            progress(round, leaves);
-        };
-    }
-    return opt;
-}
-
 py::dict stats_dict(const RefineStats& stats) {
     py::dict st;
     st["estimate"] = stats.estimate;
@@ -164,175 +145,254 @@ py::dict stats_dict(const RefineStats& stats) {
     return st;
 }
 
-py::dict refine_py(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
-                   int threads, int verify_order, std::function<void(int, std::uint64_t)> progress) {
-    RefineOptions opt = make_options(tolerance, mode, max_triangles, threads, verify_order, 0, progress);
-    Mesh mesh;
-    RefineStats stats;
-    std::string err;
-    Status s;
-    {
-        py::gil_scoped_release nogil;
-        s = refine(f.field(), opt, mesh, stats, err);
+
+// layer rules from an (n, 7) array: slope lo, hi, altitude lo, hi, colour r, g, b
+std::vector<LayerRule> layers_from(const py::object& o) {
+    Doubles a = py::cast<Doubles>(o);
+    if (a.size() == 0) return {};
+    if (a.ndim() != 2 || a.shape(1) != 7) throw py::value_error("layers must have shape (n, 7)");
+    std::vector<LayerRule> out(static_cast<std::size_t>(a.shape(0)));
+    const double* p = a.data();
+    for (std::size_t i = 0; i < out.size(); ++i, p += 7) {
+        out[i].slope_deg[0] = p[0], out[i].slope_deg[1] = p[1];
+        out[i].altitude_m[0] = p[2], out[i].altitude_m[1] = p[3];
+        for (int k = 0; k < 3; ++k) out[i].color[k] = p[4 + k];
     }
-    raise_status(s, err);
-    py::ssize_t nv = static_cast<py::ssize_t>(mesh.positions.size() / 3);
-    py::ssize_t nt = static_cast<py::ssize_t>(mesh.triangles.size() / 3);
-    py::dict out;
-    out["vertices"] = to_numpy(std::move(mesh.positions), {nv, 3});
-    out["directions"] = to_numpy(std::move(mesh.directions), {nv, 3});
-    out["triangles"] = to_numpy(std::move(mesh.triangles), {nt, 3});
-    out["levels"] = to_numpy(std::move(mesh.levels), {nt});
-    out["errors"] = to_numpy(std::move(mesh.errors), {nt});
-    out["stats"] = stats_dict(stats);
     return out;
 }
 
-// the bisection hierarchy of one world: built once, levels extracted on demand
-class PyHierarchy {
+// ---------------------------------------------------------------------------------------------
+// the bake result as numpy views: every array is a read-only view of the core's own buffer, kept
+// alive by a capsule that shares ownership of the result (or of the chunk) it belongs to
+
+template <class T>
+py::array view(const std::vector<T>& v, std::vector<py::ssize_t> shape, py::handle owner) {
+    py::array_t<T> a(shape, v.data(), owner);
+    py::detail::array_proxy(a.ptr())->flags &= ~py::detail::npy_api::NPY_ARRAY_WRITEABLE_;
+    return std::move(a);
+}
+
+template <class T>
+py::capsule owner_of(std::shared_ptr<const T> p) {
+    auto* heap = new std::shared_ptr<const T>(std::move(p));
+    return py::capsule(heap, [](void* q) { delete static_cast<std::shared_ptr<const T>*>(q); });
+}
+
+py::ssize_t ss(std::size_t n) { return static_cast<py::ssize_t>(n); }
+
+BakeSettings settings_from(const py::dict& d) {
+    BakeSettings s;
+    auto get = [&](const char* k) -> py::object {
+        if (!d.contains(k)) throw py::value_error(std::string("settings: missing '") + k + "'");
+        return d[k];
+    };
+    s.radius_m = get("radius_m").cast<double>();
+    s.tolerance_m = get("tolerance_m").cast<double>();
+    s.offset = get("offset").cast<int>();
+    s.levels = get("levels").cast<int>();
+    s.ratio = get("ratio").cast<double>();
+    s.chunk_level = get("chunk_level").cast<int>();
+    s.max_triangles = get("max_triangles").cast<std::uint64_t>();
+    s.stitch = get("stitch").cast<bool>();
+    s.skirt_depth_m = get("skirt_depth_m").cast<double>();
+    s.collision = get("collision").cast<bool>();
+    s.collision_tolerance_m = get("collision_tolerance_m").cast<double>();
+    s.collision_centered = get("collision_centered").cast<bool>();
+    s.collider_cap = get("collider_cap").cast<std::uint64_t>();
+    s.threads = get("threads").cast<int>();
+    s.layers = layers_from(get("layers"));
+    return s;
+}
+
+py::dict chunk_dict(const std::shared_ptr<const ChunkMesh>& m) {
+    py::capsule own = owner_of(m);
+    const ChunkMesh& c = *m;
+    const py::ssize_t n = ss(c.vertex_count());
+    py::dict d;
+    d["surface_vertices"] = c.surface_vertices;
+    d["positions"] = view(c.positions, {n, 3}, own);
+    d["normals"] = view(c.normals, {n, 3}, own);
+    d["morph"] = view(c.morph, {n, 3}, own);
+    d["slope_deg"] = view(c.slope_deg, {n}, own);
+    d["altitude_m"] = view(c.altitude_m, {n}, own);
+    d["layer"] = view(c.layer, {n}, own);
+    d["color"] = view(c.color, {n, 3}, own);
+    d["triangles"] = view(c.triangles, {ss(c.triangles.size() / 3), 3}, own);
+    d["interior"] = c.interior;
+    d["stitched"] = view(c.stitched, {ss(c.stitched.size() / 3), 3}, own);
+    std::vector<std::uint64_t> off(c.stitch_offsets, c.stitch_offsets + 9);
+    d["stitch_offsets"] = off;
+    d["skirt"] = view(c.skirt, {ss(c.skirt.size() / 3), 3}, own);
+    d["token"] = reinterpret_cast<std::uintptr_t>(m.get());
+    return d;
+}
+
+// one baked world, shared with the edit session that made it (if any)
+class PyBake {
 public:
-    PyHierarchy(const PyField& f, double tolerance, int mode, std::uint64_t max_triangles,
-                int threads, int verify_order, int chunk_level, double tau_cap,
-                std::function<void(int, std::uint64_t)> progress)
-        : field_(f), threads_(threads), verify_order_(verify_order) {
-        if (chunk_level < 0 || chunk_level > 10) throw py::value_error("chunk_level must be in 0..10");
-        opt_ = make_options(tolerance, mode, max_triangles, threads, verify_order, 2 * chunk_level,
-                            progress);
-        opt_.tau_cap = tau_cap;
-        build(nullptr, {}, 0);
-        opt_.progress = nullptr;
+    explicit PyBake(std::shared_ptr<const BakeResult> r) : r_(std::move(r)) {}
+
+    py::dict pool() const {
+        py::capsule own = owner_of(r_);
+        const BakeResult& r = *r_;
+        const py::ssize_t V = ss(r.slope_deg.size());
+        py::dict d;
+        d["positions"] = view(r.positions, {V, 3}, own);
+        d["directions"] = view(r.directions, {V, 3}, own);
+        d["normals"] = view(r.normals, {V, 3}, own);
+        d["slope_deg"] = view(r.slope_deg, {V}, own);
+        d["altitude_m"] = view(r.altitude_m, {V}, own);
+        d["layer"] = view(r.layer, {V}, own);
+        d["color"] = view(r.color, {V, 3}, own);
+        d["parents"] = view(r.vertex_parents, {V, 2}, own);
+        const py::ssize_t C = ss(r.chunk_count);
+        d["chunk_corners"] = view(r.chunks.corners, {C, 3}, own);
+        d["chunk_neighbors"] = view(r.chunks.neighbors, {C, 3}, own);
+        d["chunk_edge_ids"] = view(r.chunks.edge_ids, {C, 3}, own);
+        return d;
     }
 
-    // the same options over `f`, a field that differs from this hierarchy's only inside the
-    // caps `changed` ((n, 4): centre x, y, z and angle in radians): nodes clear of them take
-    // their tests from this hierarchy. the result is what a fresh build over `f` makes.
-    std::unique_ptr<PyHierarchy> rebuild(const PyField& f, const Doubles& changed, double margin_m) const {
-        if (changed.ndim() != 2 || changed.shape(1) != 4) throw py::value_error("changed must have shape (n, 4)");
-        std::vector<Cap> caps;
-        for (py::ssize_t i = 0; i < changed.shape(0); ++i) {
-            const double* r = changed.data() + 4 * i;
-            caps.push_back({Vec3{r[0], r[1], r[2]}, r[3]});
-        }
-        if (!(margin_m >= 0) || !std::isfinite(margin_m)) throw py::value_error("margin_m must be finite and >= 0");
-        std::unique_ptr<PyHierarchy> out(new PyHierarchy(f, opt_, threads_, verify_order_));
-        out->build(&h_, std::move(caps), margin_m);
-        return out;
+    std::size_t level_count() const { return r_->levels.size(); }
+    std::size_t chunk_count() const { return r_->chunk_count; }
+
+    py::dict level(std::size_t k) const {
+        if (k >= r_->levels.size()) throw py::index_error("level out of range");
+        py::capsule own = owner_of(r_);
+        const LevelResult& L = r_->levels[k];
+        const Level& lv = L.mesh;
+        const py::ssize_t T = ss(lv.chunk.size()), V = ss(lv.present.size()), C = ss(r_->chunk_count);
+        py::dict d;
+        d["tolerance_m"] = lv.tolerance_m;
+        d["triangles"] = view(lv.triangles, {T, 3}, own);
+        d["chunk"] = view(lv.chunk, {T}, own);
+        d["errors"] = view(lv.errors, {T}, own);
+        d["present"] = view(lv.present, {V}, own);
+        d["morph"] = view(lv.morph, {V, 3}, own);
+        d["interior"] = view(lv.interior, {C}, own);
+        d["vertex_offsets"] = view(L.vertex_offsets, {C + 1}, own);
+        d["vertex_ids"] = view(L.vertex_ids, {ss(L.vertex_ids.size())}, own);
+        d["vertices"] = L.vertex_count;
+        d["max_error_m"] = lv.max_error_m;
+        d["mesh_to_surface_m"] = lv.mesh_to_surface_m;
+        d["surface_to_mesh_m"] = lv.surface_to_mesh_m;
+        d["repaired"] = lv.repaired;
+        d["stitch_failures"] = lv.stitch_failures;
+        d["seconds"] = L.seconds;
+        return d;
     }
 
-    py::dict stats() const { return stats_dict(stats_); }
-    std::size_t vertex_count() const { return h_.dir.size(); }
-    std::size_t chunk_count() const { return h_.chunks; }
-
-    py::tuple vertices() const {
-        const std::size_t nv = h_.dir.size();
-        std::vector<double> pos(3 * nv), dirs(3 * nv);
-        for (std::size_t i = 0; i < nv; ++i) {
-            Vec3 p = h_.pos(static_cast<std::uint32_t>(i));
-            pos[3 * i] = p.x;
-            pos[3 * i + 1] = p.y;
-            pos[3 * i + 2] = p.z;
-            dirs[3 * i] = h_.dir[i].x;
-            dirs[3 * i + 1] = h_.dir[i].y;
-            dirs[3 * i + 2] = h_.dir[i].z;
-        }
-        std::vector<std::uint32_t> vp(h_.vparent);
-        const py::ssize_t V = static_cast<py::ssize_t>(nv);
-        return py::make_tuple(to_numpy(std::move(pos), {V, 3}), to_numpy(std::move(dirs), {V, 3}),
-                              to_numpy(std::move(vp), {V, 2}));
+    py::dict chunk(std::size_t k, std::size_t c) const {
+        if (k >= r_->levels.size() || c >= r_->chunk_count) throw py::index_error("level or chunk out of range");
+        return chunk_dict(r_->levels[k].chunks[c]);
     }
 
-    // per vertex, its counterpart in the hierarchy this one was rebuilt from (kNone: new)
-    py::array_t<std::uint32_t> vertex_origin() const {
-        std::vector<std::uint32_t> v(h_.vorigin);
-        return to_numpy(std::move(v), {static_cast<py::ssize_t>(v.size())});
+    py::object colliders() const {
+        const ColliderResult& cr = r_->colliders;
+        if (!cr.made) return py::none();
+        py::dict d;
+        d["tolerance_m"] = cr.tolerance_m;
+        d["requested_tolerance_m"] = cr.requested_tolerance_m;
+        d["triangles"] = cr.triangles;
+        d["max_triangles_per_chunk"] = cr.max_triangles_per_chunk;
+        d["max_error_m"] = cr.max_error_m;
+        d["mesh_to_surface_m"] = cr.mesh_to_surface_m;
+        d["surface_to_mesh_m"] = cr.surface_to_mesh_m;
+        d["min_angle_deg"] = cr.min_angle_deg;
+        d["degenerate_triangles"] = cr.degenerate_triangles;
+        d["seconds"] = cr.seconds;
+        py::list chunks;
+        for (const auto& c : cr.chunks) {
+            py::capsule own = owner_of(c);
+            py::dict m;
+            m["positions"] = view(c->positions, {ss(c->positions.size() / 3), 3}, own);
+            m["triangles"] = view(c->triangles, {ss(c->triangles.size() / 3), 3}, own);
+            m["token"] = reinterpret_cast<std::uintptr_t>(c.get());
+            chunks.append(m);
+        }
+        d["chunks"] = chunks;
+        return std::move(d);
     }
 
-    py::dict extract(std::vector<double> tolerances, bool stitch, bool keep,
-                     const PyHierarchy* previous) {
-        for (std::size_t i = 0; i < tolerances.size(); ++i) {
-            if (!(tolerances[i] > 0) || !std::isfinite(tolerances[i]))
-                throw py::value_error("tolerances must be finite and > 0");
-            if (i && !(tolerances[i] > tolerances[i - 1]))
-                throw py::value_error("tolerances must increase from the finest level");
-        }
-        std::vector<Level> levels;
-        ChunkInfo chunks;
-        std::string err;
-        Status s;
-        {
-            py::gil_scoped_release nogil;
-            const bool memo = previous && !previous->kept_.empty() &&
-                              previous->kept_tolerances_ == tolerances && previous->kept_stitch_ == stitch;
-            s = extract_levels(field_.field(), h_, tolerances, verify_order_, threads_, stitch,
-                               levels, chunks, err, memo ? &previous->h_ : nullptr,
-                               memo ? &previous->kept_ : nullptr);
-        }
-        raise_status(s, err);
-        if (keep) {
-            kept_ = levels;
-            kept_tolerances_ = tolerances;
-            kept_stitch_ = stitch;
-        }
-        const py::ssize_t V = static_cast<py::ssize_t>(h_.dir.size());
-        const py::ssize_t C = static_cast<py::ssize_t>(h_.chunks);
-        py::list lvls;
-        for (Level& lv : levels) {
-            py::dict d;
-            py::ssize_t T = static_cast<py::ssize_t>(lv.chunk.size());
-            py::ssize_t S = static_cast<py::ssize_t>(lv.stitch.size() / 3);
-            d["tolerance_m"] = lv.tolerance_m;
-            d["triangles"] = to_numpy(std::move(lv.triangles), {T, 3});
-            d["chunk"] = to_numpy(std::move(lv.chunk), {T});
-            d["errors"] = to_numpy(std::move(lv.errors), {T});
-            d["present"] = to_numpy(std::move(lv.present), {V});
-            d["morph"] = to_numpy(std::move(lv.morph), {V, 3});
-            d["interior"] = to_numpy(std::move(lv.interior), {C});
-            d["stitch"] = to_numpy(std::move(lv.stitch), {S, 3});
-            d["stitch_offsets"] = to_numpy(std::move(lv.stitch_offsets), {C * 8 + 1});
-            d["stitch_failures"] = lv.stitch_failures;
-            d["same"] = to_numpy(std::move(lv.same), {C});
-            d["repaired"] = lv.repaired;
-            d["max_error_m"] = lv.max_error_m;
-            d["mesh_to_surface_m"] = lv.mesh_to_surface_m;
-            d["surface_to_mesh_m"] = lv.surface_to_mesh_m;
-            lvls.append(d);
-        }
-        py::dict ch;
-        ch["corners"] = to_numpy(std::move(chunks.corners), {C, 3});
-        ch["neighbors"] = to_numpy(std::move(chunks.neighbors), {C, 3});
-        ch["edge_ids"] = to_numpy(std::move(chunks.edge_ids), {C, 3});
-        py::dict out;
-        out["levels"] = lvls;
-        out["chunks"] = ch;
-        return out;
+    py::dict stats() const {
+        const BakeResult& r = *r_;
+        py::dict st = stats_dict(r.stats);
+        py::dict sec;
+        sec["refine"] = r.seconds.refine;
+        sec["verify"] = r.seconds.verify;
+        sec["attributes"] = r.seconds.attributes;
+        sec["levels"] = r.seconds.levels;
+        sec["colliders"] = r.seconds.colliders;
+        sec["total"] = r.seconds.total;
+        st["seconds"] = sec;
+        st["tolerances"] = r.plan.tolerances;
+        st["collider_m"] = r.plan.collider_m;
+        st["skirt_depth_m"] = r.plan.skirt_depth_m;
+        return st;
     }
 
 private:
-    PyHierarchy(const PyField& f, const RefineOptions& opt, int threads, int verify_order)
-        : field_(f), threads_(threads), verify_order_(verify_order), opt_(opt) {}
+    std::shared_ptr<const BakeResult> r_;
+};
 
-    void build(const Hierarchy* previous, std::vector<Cap> changed, double margin_m) {
-        RefineOptions opt = opt_;
-        opt.previous = previous;
-        opt.changed = std::move(changed);
-        opt.changed_margin_m = margin_m;
+using ProgressFn = std::function<void(std::string, std::uint64_t, std::uint64_t)>;
+
+void attach_progress(BakeSettings& s, ProgressFn& fn) {
+    if (!fn) return;
+    s.progress = [&fn](const char* stage, std::uint64_t done, std::uint64_t total) {
+        py::gil_scoped_acquire gil;
+        fn(stage, done, total);
+    };
+}
+
+PyBake bake_py(const PyField& f, const py::dict& settings, ProgressFn progress) {
+    BakeSettings s = settings_from(settings);
+    attach_progress(s, progress);
+    auto r = std::make_shared<BakeResult>();
+    std::string err;
+    Status st;
+    {
+        py::gil_scoped_release nogil;
+        st = bake(f.field(), s, *r, err);
+    }
+    raise_status(st, err);
+    return PyBake(std::move(r));
+}
+
+// the core's edit session; every call holds its lock (concurrent calls serialise)
+class PyEditSession {
+public:
+    PyEditSession(const PyField& f, const py::dict& settings) {
+        BakeSettings s = settings_from(settings);
         std::string err;
-        Status s;
+        Status st;
         {
             py::gil_scoped_release nogil;
-            s = build_hierarchy(field_.field(), opt, h_, stats_, err);
+            st = s_.start(f.field(), s, err);
         }
-        raise_status(s, err);
+        raise_status(st, err);
     }
+    py::dict update(const PyField& f, const py::object& layers) {
+        std::vector<LayerRule> rules = layers_from(layers);
+        EditChanges ch;
+        std::string err;
+        Status st;
+        {
+            py::gil_scoped_release nogil;
+            st = s_.update(f.field(), rules, ch, err);
+        }
+        raise_status(st, err);
+        py::dict d;
+        py::list chunks;
+        for (const auto& p : ch.chunks) chunks.append(py::make_tuple(p.first, p.second));
+        d["chunks"] = chunks;
+        d["colliders"] = ch.colliders;
+        d["seconds"] = ch.seconds;
+        return d;
+    }
+    PyBake result() const { return PyBake(s_.result()); }
 
-    const PyField& field_;
-    int threads_, verify_order_;
-    RefineOptions opt_;
-    Hierarchy h_;
-    RefineStats stats_;
-    std::vector<Level> kept_;  // the last extraction, kept for an incremental one
-    std::vector<double> kept_tolerances_;
-    bool kept_stitch_ = false;
+private:
+    EditSession s_;
 };
 
 py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& triangles, int order,
@@ -364,44 +424,61 @@ py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& tr
 }  // namespace
 
 PYBIND11_MODULE(_core, m) {
-    m.doc() = "globemill core: terrain field, adaptive refinement, measurement";
+    m.doc() = "globemill core: terrain field, the whole bake, the edit session, measurement";
     py::class_<PyField>(m, "Field")
         .def(py::init<double, const Doubles&>(), py::arg("radius_m"), py::arg("features"))
         .def_property_readonly("radius_m", &PyField::radius)
         .def("height", &PyField::height, py::arg("directions"))
         .def("gradient", &PyField::gradient, py::arg("directions"))
         .def("wall_distance", &PyField::wall_distance, py::arg("points"));
+    m.attr("MEASURE_ORDER") = kMeasureOrder;
+    m.attr("MIN_ANGLE_DEG") = kMinAngleDeg;
+    m.attr("NO_LAYER") = kNoLayer;
+    py::class_<PyBake>(m, "Bake")
+        .def("pool", &PyBake::pool)
+        .def_property_readonly("level_count", &PyBake::level_count)
+        .def_property_readonly("chunk_count", &PyBake::chunk_count)
+        .def("level", &PyBake::level, py::arg("level"))
+        .def("chunk", &PyBake::chunk, py::arg("level"), py::arg("chunk"))
+        .def("colliders", &PyBake::colliders)
+        .def("stats", &PyBake::stats);
     m.def(
-        "edit_caps",
-        [](const PyField& before, const PyField& after, double tolerance_m) {
-            std::vector<Cap> caps;
-            double margin = 0;
-            edit_caps(before.field(), after.field(), tolerance_m, caps, margin);
-            std::vector<double> out;
-            for (const Cap& c : caps) out.insert(out.end(), {c.c.x, c.c.y, c.c.z, c.angle});
-            return py::make_tuple(to_numpy(std::move(out), {static_cast<py::ssize_t>(caps.size()), 4}), margin);
+        "surface_attributes",
+        [](const PyField& f, const Doubles& dirs) {
+            std::vector<Vec3> u = directions(dirs);
+            const std::size_t n = u.size();
+            std::vector<double> d(3 * n), nrm(3 * n), slope(n), alt(n);
+            for (std::size_t i = 0; i < n; ++i) d[3 * i] = u[i].x, d[3 * i + 1] = u[i].y, d[3 * i + 2] = u[i].z;
+            {
+                py::gil_scoped_release nogil;
+                surface_attributes(f.field(), d.data(), n, 0, nrm.data(), slope.data(), alt.data());
+            }
+            return py::make_tuple(to_numpy(std::move(nrm), {ss(n), 3}), to_numpy(std::move(slope), {ss(n)}),
+                                  to_numpy(std::move(alt), {ss(n)}));
         },
-        py::arg("before"), py::arg("after"), py::arg("tolerance_m"),
-        "the caps an edit from field `before` to `after` changed ((n, 4): centre x, y, z, angle) and "
-        "the margin for Hierarchy.rebuild");
-    m.def("refine", &refine_py, py::arg("field"), py::arg("tolerance_m"), py::arg("offset"),
-          py::arg("max_triangles"), py::arg("threads") = 0, py::arg("verify_order") = 3,
-          py::arg("progress") = nullptr);
-    py::class_<PyHierarchy>(m, "Hierarchy")
-        .def(py::init<const PyField&, double, int, std::uint64_t, int, int, int, double,
-                      std::function<void(int, std::uint64_t)>>(),
-             py::arg("field"), py::arg("tolerance_m"), py::arg("offset"), py::arg("max_triangles"),
-             py::arg("threads") = 0, py::arg("verify_order") = 3, py::arg("chunk_level") = 0,
-             py::arg("tau_cap") = 0.0, py::arg("progress") = nullptr, py::keep_alive<1, 2>())
-        .def("stats", &PyHierarchy::stats)
-        .def_property_readonly("vertex_count", &PyHierarchy::vertex_count)
-        .def_property_readonly("chunk_count", &PyHierarchy::chunk_count)
-        .def("vertices", &PyHierarchy::vertices)
-        .def("rebuild", &PyHierarchy::rebuild, py::arg("field"), py::arg("changed"),
-             py::arg("margin_m"), py::keep_alive<0, 2>())
-        .def("vertex_origin", &PyHierarchy::vertex_origin)
-        .def("extract", &PyHierarchy::extract, py::arg("tolerances"), py::arg("stitch") = true,
-             py::arg("keep") = false, py::arg("previous") = nullptr);
+        py::arg("field"), py::arg("directions"),
+        "(normals (N, 3), slope_deg (N,), altitude_m (N,)) of the true surface at each direction");
+    m.def(
+        "assign_layers",
+        [](const py::object& layers, const Doubles& slope, const Doubles& alt) {
+            std::vector<LayerRule> rules = layers_from(layers);
+            if (rules.size() > kMaxLayers) throw py::value_error("layers: at most 255 layer rules fit the 8-bit layer attribute");
+            if (slope.ndim() != 1 || alt.ndim() != 1 || slope.shape(0) != alt.shape(0))
+                throw py::value_error("slope_deg and altitude_m must be 1-d arrays of one length");
+            const std::size_t n = static_cast<std::size_t>(slope.shape(0));
+            std::vector<std::uint8_t> layer(n);
+            std::vector<double> color(3 * n);
+            assign_layers(rules, slope.data(), alt.data(), n, layer.data(), color.data());
+            return py::make_tuple(to_numpy(std::move(layer), {ss(n)}), to_numpy(std::move(color), {ss(n), 3}));
+        },
+        py::arg("layers"), py::arg("slope_deg"), py::arg("altitude_m"),
+        "(layer (N,) uint8, colour (N, 3)) of the first rule whose closed bands hold each vertex");
+    m.def("bake", &bake_py, py::arg("field"), py::arg("settings"), py::arg("progress") = nullptr,
+          "bake a world: every level, chunk, seam, attribute and collider, with the GIL released");
+    py::class_<PyEditSession>(m, "EditSession")
+        .def(py::init<const PyField&, const py::dict&>(), py::arg("field"), py::arg("settings"))
+        .def("update", &PyEditSession::update, py::arg("field"), py::arg("layers"))
+        .def("result", &PyEditSession::result);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
           py::arg("order") = 6, py::arg("threads") = 0);
     m.def("estimate_triangles",

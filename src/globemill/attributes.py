@@ -7,7 +7,8 @@
   closed intervals [lo, hi]) hold the vertex, or NO_LAYER (255) when none does;
 - colour = that layer's linear RGB colour, NO_LAYER_COLOR where no rule matched.
 
-Everything is vectorised over (N, 3) arrays of unit directions; the field runs in the C++ core.
+Every number is computed by the C++ core (csrc/attributes.cpp), the very code a bake runs, so
+these equal the attributes a bake stores on its vertices bit for bit; this module only wraps it.
 """
 
 from __future__ import annotations
@@ -19,10 +20,11 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from . import _core
 from .field import Field
 from .spec import Layer, WorldSpec
 
-NO_LAYER = 255
+NO_LAYER: int = _core.NO_LAYER
 """_LAYER value of a vertex that no layer rule matches."""
 NO_LAYER_COLOR = (0.5, 0.5, 0.5)
 """Linear RGB colour of a vertex that no layer rule matches (mid grey)."""
@@ -57,25 +59,19 @@ class VertexAttributes:
         )
 
 
-def _unit(directions: npt.ArrayLike) -> F64:
-    u = np.asarray(directions, dtype=np.float64).reshape(-1, 3)
-    n = np.linalg.norm(u, axis=1, keepdims=True)
-    if len(u) and (not np.all(np.isfinite(n)) or np.any(n == 0)):
-        raise ValueError("directions: every row must be a finite, non-zero vector")
-    return u / n
+def _rows(layers: Sequence[Layer]) -> F64:
+    if len(layers) > MAX_LAYERS:
+        raise ValueError(f"layers: at most {MAX_LAYERS} layer rules fit _LAYER, got {len(layers)}")
+    rows = [[*r.slope_deg, *r.altitude_m, *r.color] for r in layers]
+    return np.asarray(rows, dtype=np.float64).reshape(-1, 7)
 
 
 def slope_and_altitude(fld: Field, directions: npt.ArrayLike) -> tuple[F64, F64]:
     """(slope degrees, altitude metres) of the true surface at each direction (rows of any
-    length are normalised first)."""
-    u = _unit(directions)
-    if len(u) == 0:
-        return np.zeros(0), np.zeros(0)
-    h = fld.height(u)
-    g = np.linalg.norm(fld.gradient(u), axis=1)
-    # atan(|grad H| / (R + H)), written with atan2 so it stays finite for any R + H > 0
-    slope = np.degrees(np.arctan2(g, fld.radius_m + h))
-    return slope, h
+    length are normalised first; zero or non-finite rows raise ValueError)."""
+    u = np.asarray(directions, dtype=np.float64).reshape(-1, 3)
+    _, slope, alt = _core.surface_attributes(fld._core, u)
+    return slope, alt
 
 
 def assign_layers(
@@ -83,23 +79,10 @@ def assign_layers(
 ) -> U8:
     """Index of the first layer whose closed slope and altitude bands hold each vertex, else
     NO_LAYER. slope_deg, altitude_m : (N,) -> (N,) uint8."""
-    if len(layers) > MAX_LAYERS:
-        raise ValueError(f"layers: at most {MAX_LAYERS} layer rules fit _LAYER, got {len(layers)}")
-    s = np.asarray(slope_deg, dtype=np.float64)
-    a = np.asarray(altitude_m, dtype=np.float64)
-    out = np.full(s.shape, NO_LAYER, dtype=np.uint8)
-    open_ = np.ones(s.shape, dtype=bool)
-    for i, rule in enumerate(layers):
-        hit = (
-            open_
-            & (s >= rule.slope_deg[0])
-            & (s <= rule.slope_deg[1])
-            & (a >= rule.altitude_m[0])
-            & (a <= rule.altitude_m[1])
-        )
-        out[hit] = i
-        open_ &= ~hit
-    return out
+    s = np.ascontiguousarray(slope_deg, dtype=np.float64).reshape(-1)
+    a = np.ascontiguousarray(altitude_m, dtype=np.float64).reshape(-1)
+    layer, _ = _core.assign_layers(_rows(layers), s, a)
+    return layer
 
 
 def layer_palette(layers: Sequence[Layer]) -> F64:
@@ -116,8 +99,8 @@ def vertex_attributes(
     """Slope, altitude, layer and colour at every direction of `directions` (N, 3)."""
     fld = fld if fld is not None else Field(spec)
     slope, alt = slope_and_altitude(fld, directions)
-    layer = assign_layers(spec.layers, slope, alt)
-    return VertexAttributes(slope, alt, layer, layer_palette(spec.layers)[layer])
+    layer, color = _core.assign_layers(_rows(spec.layers), slope, alt)
+    return VertexAttributes(slope, alt, layer, color)
 
 
 def layer_table(spec: WorldSpec) -> list[dict[str, Any]]:

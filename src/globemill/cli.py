@@ -56,12 +56,15 @@ def _bake_spec(args: argparse.Namespace, levels_needed: int | None = None) -> Ba
     if show:
         from tqdm import tqdm
 
-        bar = tqdm(total=None, unit=" rounds", desc=f"baking {spec.name}", leave=False)
+        bar = tqdm(total=None, unit="", desc=f"baking {spec.name}", leave=False)
 
-    def progress(round_: int, triangles: int) -> None:
+    def progress(stage: str, done: int, total: int) -> None:
+        # stages: refine (triangles of about `total`), levels, chunks (levels done), colliders
         if bar is not None:
-            bar.update(1)
-            bar.set_postfix(triangles=triangles)
+            bar.set_description(f"baking {spec.name}: {stage}")
+            bar.total = total
+            bar.n = done
+            bar.refresh()
 
     try:
         return bake(

@@ -22,7 +22,7 @@ import numpy as np
 import numpy.typing as npt
 
 from . import __version__
-from .attributes import VertexAttributes, vertex_attributes
+from .attributes import VertexAttributes
 from .bake import BakeResult
 from .export_gltf import quantize_color
 from .field import Field
@@ -43,7 +43,9 @@ def level_mesh(
         )
     ids = np.flatnonzero(result.levels[level].present)
     positions, tris = result.mesh(level)
-    att = vertex_attributes(result.spec, result.directions[ids], fld)
+    att = VertexAttributes(
+        result.slope_deg[ids], result.altitude_m[ids], result.layer[ids], result.color[ids]
+    )
     return positions, tris, result.normals[ids], att
 
 

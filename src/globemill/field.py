@@ -43,12 +43,8 @@ class Field:
         The ground is the zero set of F(p) = |p| - R - H(p/|p|); its gradient at the ground point
         is u - grad H / (R + H).
         """
-        u = np.asarray(directions, dtype=np.float64)
-        u = u / np.linalg.norm(u, axis=1, keepdims=True)
-        h = self.height(u)
-        g = self.gradient(u)
-        n = u - g / (self.radius_m + h)[:, None]
-        return n / np.linalg.norm(n, axis=1, keepdims=True)
+        normals, _, _ = _core.surface_attributes(self._core, np.asarray(directions, np.float64))
+        return normals
 
 
 def field(spec: WorldSpec) -> Field:

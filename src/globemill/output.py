@@ -21,10 +21,9 @@ import numpy.typing as npt
 
 from . import __version__
 from ._atomic import write_files_atomically
-from .attributes import NO_LAYER, VertexAttributes, layer_table, vertex_attributes
-from .bake import BakeResult, ChunkMesh
+from .attributes import NO_LAYER, layer_table
+from .bake import BakeResult
 from .export_gltf import GltfBuilder
-from .field import Field
 
 
 def report_json(report: dict[str, Any]) -> bytes:
@@ -74,24 +73,9 @@ def _area(positions: npt.NDArray[np.float64], tris: npt.NDArray[np.uint32]) -> f
     return float(0.5 * np.linalg.norm(np.cross(p[:, 1] - p[:, 0], p[:, 2] - p[:, 0]), axis=1).sum())
 
 
-def chunk_attributes(
-    result: BakeResult, ch: ChunkMesh, every: VertexAttributes, fld: Field
-) -> VertexAttributes:
-    """Attributes of a chunk mesh's vertices: gathered from `every` (one per result vertex);
-    skirt vertices (appended after the surface ones) take those of the ground above them."""
-    own = every.take(ch.vertex_ids)
-    extra = len(ch.positions) - len(ch.vertex_ids)
-    if extra == 0:
-        return own
-    below = vertex_attributes(result.spec, ch.positions[len(ch.vertex_ids) :], fld)
-    return VertexAttributes.concatenate([own, below])
-
-
 def glb_for(result: BakeResult) -> bytes:
     b = GltfBuilder()
     material = b.add_material(GROUND_MATERIAL)
-    fld = Field(result.spec)
-    every = vertex_attributes(result.spec, result.directions, fld)
     nlev = len(result.levels)
     tolerances = [lv.tolerance_m for lv in result.levels]
     roots: list[int] = []
@@ -104,12 +88,11 @@ def glb_for(result: BakeResult) -> bytes:
             seams = {
                 str(mask): b.index_accessor(t, len(ch.positions)) for mask, t in ch.stitched.items()
             }
-            att = chunk_attributes(result, ch, every, fld)
             attributes = {
-                "COLOR_0": b.color_attribute(att.color),
-                "_SLOPE": b.scalar_attribute(att.slope_deg),
-                "_ALTITUDE": b.scalar_attribute(att.altitude_m),
-                "_LAYER": b.scalar_attribute(att.layer),
+                "COLOR_0": b.color_attribute(ch.color),
+                "_SLOPE": b.scalar_attribute(ch.slope_deg),
+                "_ALTITUDE": b.scalar_attribute(ch.altitude_m),
+                "_LAYER": b.scalar_attribute(ch.layer),
             }
             extras: dict[str, Any] = {
                 "chunk": c,

@@ -24,7 +24,7 @@ import numpy as np
 import numpy.typing as npt
 
 from ._atomic import write_files_atomically
-from .attributes import NO_LAYER, layer_palette, vertex_attributes
+from .attributes import NO_LAYER, layer_palette
 from .bake import BakeResult
 
 COLOR_MODES = ("layer", "chunk", "level", "error")
@@ -379,8 +379,8 @@ def preview_png(
     vertex_rgb = face_rgb = None
     per_view: list[tuple[F64, F64, npt.NDArray[Any], F64 | None, F64 | None]] = []
     if color == "layer":
-        att = vertex_attributes(spec, result.directions[ids])
-        vertex_rgb = layer_palette(spec.layers)[att.layer]
+        layer = result.layer[ids]
+        vertex_rgb = layer_palette(spec.layers)[layer]
         # share of the ground's area: each vertex stands for a third of its triangles' area
         corner = positions[tris]
         area = 0.5 * np.linalg.norm(
@@ -389,7 +389,7 @@ def preview_png(
         vertex_area = np.zeros(len(positions))
         for k in range(3):
             np.add.at(vertex_area, tris[:, k], area / 3.0)
-        share = 100.0 * np.bincount(att.layer, weights=vertex_area, minlength=256)
+        share = 100.0 * np.bincount(layer, weights=vertex_area, minlength=256)
         share /= max(float(vertex_area.sum()), 1e-300)
         for i, rule in enumerate(spec.layers):
             legend.append(

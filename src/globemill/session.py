@@ -1,30 +1,34 @@
 """Live editing: keep a world's meshes and re-mesh only what a feature edit touches.
 
-An edit builds the world's bisection hierarchy again, but every node clear of the edited
+The session itself lives in the C++ core (csrc/session.cpp), the same one the C ABI's gm_edit_*
+calls use: an edit builds the world's bisection hierarchy again, but every node clear of the edited
 feature's old and new footprints takes its tests and measurements from the previous hierarchy
 instead of computing them (they depend only on the ground near the node, which did not change),
 and every chunk whose triangles, vertices and borders map one to one onto the previous ones keeps
-its stitched borders and its arrays. The result is, bit for bit, what `bake` makes of the edited
-spec; the edit reports the chunks whose arrays changed, so an engine uploads only those.
+its stitched borders and its buffers. The result is, bit for bit, what `bake` makes of the edited
+spec; the edit reports the chunks whose arrays changed, so an engine uploads only those. This
+module edits the spec (validated as any spec is) and hands the new ground to the core.
+
+Thread contract: an EditSession may be used from several threads; its calls run one at a time
+(each holds the session's lock), and a result read before an edit stays valid and unchanged.
 """
 
 from __future__ import annotations
 
+import functools
 import math
-import time
-from collections.abc import Mapping
+import threading
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import numpy.typing as npt
 
 from . import _core
-from .bake import BakeResult, ChunkMesh, Collider, _assemble, _hierarchy, _plan
+from .bake import BakeResult, ChunkMesh, _layer_rows, _wrap, settings
 from .field import Field
 from .spec import Feature, Ridge, WorldSpec, parse_spec, unit_vector
-
-NONE = np.uint32(0xFFFFFFFF)
 
 
 @dataclass
@@ -50,28 +54,6 @@ class EditReport:
     def chunk_count(self) -> int:
         """Chunk meshes to upload (every level)."""
         return sum(len(v) for v in self.changed.values())
-
-
-def _same_chunk(a: ChunkMesh, b: ChunkMesh) -> bool:
-    if a.interior != b.interior or a.stitched.keys() != b.stitched.keys():
-        return False
-    pairs = [
-        (a.positions, b.positions),
-        (a.normals, b.normals),
-        (a.morph, b.morph),
-        (a.triangles, b.triangles),
-        (a.skirt, b.skirt),
-    ] + [(a.stitched[m], b.stitched[m]) for m in a.stitched]
-    return all(x.shape == y.shape and np.array_equal(x, y) for x, y in pairs)
-
-
-def _same_collider(a: Collider, b: Collider) -> bool:
-    return (
-        a.positions.shape == b.positions.shape
-        and a.triangles.shape == b.triangles.shape
-        and np.array_equal(a.positions, b.positions)
-        and np.array_equal(a.triangles, b.triangles)
-    )
 
 
 def _rotation(a: npt.NDArray[np.float64], b: npt.NDArray[np.float64]) -> npt.NDArray[np.float64]:
@@ -122,6 +104,20 @@ def _direction(direction: Any) -> npt.NDArray[np.float64]:
     )
 
 
+_F = TypeVar("_F", bound=Callable[..., Any])
+
+
+def _serialised(method: _F) -> _F:
+    """Run the method holding the session's lock: concurrent edits run one after another."""
+
+    @functools.wraps(method)
+    def run(self: EditSession, *args: Any, **kwargs: Any) -> Any:
+        with self._lock:
+            return method(self, *args, **kwargs)
+
+    return run  # type: ignore[return-value]
+
+
 class EditSession:
     """A world kept in memory for live editing.
 
@@ -150,14 +146,20 @@ class EditSession:
         collision: bool = False,
         threads: int = 0,
     ) -> None:
-        self._plan = _plan(
-            spec, tolerance_m, offset, levels, ratio, chunk_level, collision, threads
+        self._settings = settings(
+            spec,
+            tolerance_m=tolerance_m,
+            offset=offset,
+            levels=levels,
+            ratio=ratio,
+            chunk_level=chunk_level,
+            collision=collision,
+            threads=threads,
         )
+        self._lock = threading.RLock()
         self._spec = spec
-        t0 = time.perf_counter()
-        fld = Field(spec)
-        hier = _hierarchy(fld, spec, self._plan, None)
-        self._install(spec, fld, hier, None, time.perf_counter() - t0)
+        self._core = _core.EditSession(Field(spec)._core, self._settings)
+        self._result = _wrap(spec, self._settings, self._core.result())
 
     # ---- reading ---------------------------------------------------------------------------
 
@@ -188,6 +190,7 @@ class EditSession:
 
     # ---- edits -----------------------------------------------------------------------------
 
+    @_serialised
     def set_feature(self, index: int, **changes: Any) -> EditReport:
         """Change fields of feature `index` (e.g. ``sigma_m=90.0``; ``kind`` too, with the
         fields the new kind needs)."""
@@ -198,6 +201,7 @@ class EditSession:
         features[index] = {**features[index], **changes}
         return self._edit(features)
 
+    @_serialised
     def add_feature(
         self, feature: Mapping[str, Any] | Feature, *, index: int | None = None
     ) -> EditReport:
@@ -212,6 +216,7 @@ class EditSession:
         features.insert(at, row)
         return self._edit(features)
 
+    @_serialised
     def remove_feature(self, index: int) -> EditReport:
         """Remove feature `index`."""
         self._check_index(index)
@@ -219,6 +224,7 @@ class EditSession:
         del features[index]
         return self._edit(features)
 
+    @_serialised
     def move_feature(self, index: int, direction: Any) -> EditReport:
         """Move feature `index` so that its centre lies at `direction`: (lat_deg, lon_deg) or a
         unit vector. A ridge moves as a whole (both ends turn about the same axis); a block
@@ -242,6 +248,7 @@ class EditSession:
         features[index] = row
         return self._edit(features)
 
+    @_serialised
     def replace(self, spec: WorldSpec) -> EditReport:
         """Take another spec of the same world (same radius, tolerance, levels and chunks; any
         features): the footprints of every feature that differs are re-meshed."""
@@ -270,126 +277,18 @@ class EditSession:
         return self._apply(parse_spec(data, source="edit"))
 
     def _apply(self, spec: WorldSpec) -> EditReport:
-        t0 = time.perf_counter()
-        fld = Field(spec)
-        # the edited features' old and new reach (or everything), from the core
-        changed, margin = _core.edit_caps(self._field._core, fld._core, self._plan.finest)
-        hier = self._hier.rebuild(fld._core, changed, margin)
-        return self._install(spec, fld, hier, changed, time.perf_counter() - t0)
-
-    def _install(
-        self,
-        spec: WorldSpec,
-        fld: Field,
-        hier: Any,
-        changed: npt.NDArray[np.float64] | None,
-        t_build: float,
-    ) -> EditReport:
-        """Extract levels (incrementally after an edit), assemble the result and swap it in."""
-        plan = self._plan
-        t1 = time.perf_counter()
-        prev: BakeResult | None = getattr(self, "_result", None)
-        vertices, directions, _parents = hier.vertices()
-        origin = hier.vertex_origin() if changed is not None else None
-        normals = self._normals(fld, directions, origin, changed)
-        nchunks = hier.chunk_count
-        previous = self._hier if changed is not None else None
-        ext = hier.extract(plan.tolerances, plan.stitch, keep=True, previous=previous)
-        t_extract = time.perf_counter() - t1
-
-        reuse = None
-        kept_ids: set[tuple[int, int]] = set()
-        if prev is not None and origin is not None:
-            to_new = np.full(len(prev.vertices), NONE, np.uint32)
-            known = origin != NONE
-            to_new[origin[known]] = np.flatnonzero(known).astype(np.uint32)
-
-            def reuse(k: int, lv: dict[str, Any]) -> dict[int, ChunkMesh]:
-                kept = {}
-                for c in np.flatnonzero(lv["same"]).tolist():
-                    old = prev.levels[k].chunks[c]
-                    ids = to_new[old.vertex_ids]
-                    if not np.array_equal(normals[ids], old.normals[: len(ids)]):
-                        continue
-                    kept[c] = ChunkMesh(
-                        chunk=c,
-                        level=k,
-                        vertex_ids=ids,
-                        positions=old.positions,
-                        normals=old.normals,
-                        morph=old.morph,
-                        triangles=old.triangles,
-                        interior=old.interior,
-                        stitched=old.stitched,
-                        skirt=old.skirt,
-                    )
-                    kept_ids.add((k, c))
-                return kept
-
-        result = _assemble(
-            spec,
-            plan,
-            fld,
-            hier,
-            ext,
-            (vertices, directions, normals),
-            t1 - t_build,
-            t_extract,
-            reuse,
-        )
-        levels, colliders = result.levels, result.colliders
-        changed_chunks: dict[int, list[int]] = {}
-        changed_colliders: list[int] = []
-        if prev is not None:
-            for k, lv in enumerate(levels):
-                diff = [
-                    c
-                    for c in range(nchunks)
-                    if (k, c) not in kept_ids
-                    and not _same_chunk(lv.chunks[c], prev.levels[k].chunks[c])
-                ]
-                if diff:
-                    changed_chunks[k] = diff
-            changed_colliders = [
-                c
-                for c in range(len(colliders))
-                if not _same_collider(colliders[c], prev.colliders[c])
-            ]
-        self._spec, self._field, self._hier, self._result = spec, fld, hier, result
-        stats = dict(hier.stats())
+        done = self._core.update(Field(spec)._core, _layer_rows(spec))
+        result = _wrap(spec, self._settings, self._core.result(), self._result)
+        self._spec, self._result = spec, result
+        changed: dict[int, list[int]] = {}
+        for level, chunk in done["chunks"]:
+            changed.setdefault(int(level), []).append(int(chunk))
+        stats = dict(result.report["refine"])
         return EditReport(
-            changed=changed_chunks,
-            colliders=changed_colliders,
-            seconds=time.perf_counter() - t1 + t_build,
+            changed=changed,
+            colliders=[int(c) for c in done["colliders"]],
+            seconds=float(done["seconds"]),
             reused=int(stats.get("reused", 0)),
             tested=int(stats["tested"]),
             stats=stats,
         )
-
-    def _normals(
-        self,
-        fld: Field,
-        directions: npt.NDArray[np.float64],
-        origin: npt.NDArray[np.uint32] | None,
-        changed: npt.NDArray[np.float64] | None,
-    ) -> npt.NDArray[np.float64]:
-        """Vertex normals; after an edit, those of vertices clear of the changed caps are the
-        previous ones (a normal depends only on the ground at its vertex)."""
-        if origin is None or changed is None:
-            return fld.normals(directions)
-        prev = self._result.normals
-        known = origin != NONE
-        slack = 1.0 / fld.radius_m  # a metre of ground, against rounding in the cap test
-        for c in changed:
-            if c[3] + slack >= math.pi:
-                known[:] = False
-                break
-            # (no matrix product: it would wake the BLAS threads for a dot per row)
-            cos = directions[:, 0] * c[0] + directions[:, 1] * c[1] + directions[:, 2] * c[2]
-            known &= cos < math.cos(c[3] + slack)
-        out = np.empty_like(directions)
-        out[known] = prev[origin[known]]
-        fresh = ~known
-        if fresh.any():
-            out[fresh] = fld.normals(directions[fresh])
-        return out

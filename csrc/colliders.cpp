@@ -1,0 +1,147 @@
+// collision meshes per chunk, with the centred bias and the per-chunk triangle cap.
+#include "colliders.hpp"
+
+#include <algorithm>
+#include <chrono>
+#include <cmath>
+
+#include "chunks.hpp"
+#include "measure.hpp"
+
+namespace gm {
+
+namespace {
+
+// move each collider vertex along its direction by half the mean signed gap (surface minus
+// collider, radially, at the centroid and edge midpoints of its triangles): the collider then
+// straddles the true surface instead of lying under its bumps and over its hollows. shifts are
+// clipped to `limit` metres (steep ground makes radial gaps large)
+std::vector<double> bias_vertices(const Field& f, const std::vector<double>& V,
+                                  const std::vector<std::uint32_t>& tris, double limit, int threads) {
+    const std::size_t T = tris.size() / 3, NV = V.size() / 3;
+    const double R = f.radius();
+    std::vector<double> gap(T);
+    parallel_for(T, threads, [&](std::size_t b, std::size_t e) {
+        for (std::size_t t = b; t < e; ++t) {
+            Vec3 p[3];
+            for (std::size_t k = 0; k < 3; ++k) {
+                const double* q = &V[3 * static_cast<std::size_t>(tris[3 * t + k])];
+                p[k] = {q[0], q[1], q[2]};
+            }
+            const Vec3 s[4] = {(1.0 / 3.0) * (p[0] + p[1] + p[2]), 0.5 * (p[0] + p[1]), 0.5 * (p[1] + p[2]),
+                               0.5 * (p[2] + p[0])};
+            double acc = 0;
+            for (const Vec3& q : s) {
+                const double r = norm(q);
+                acc += (R + f.eval((1.0 / r) * q, nullptr)) - r;
+            }
+            gap[t] = acc / 4;
+        }
+    });
+    std::vector<double> acc(NV, 0.0), cnt(NV, 0.0);
+    for (std::size_t t = 0; t < T; ++t)
+        for (std::size_t k = 0; k < 3; ++k) {
+            acc[tris[3 * t + k]] += gap[t];
+            cnt[tris[3 * t + k]] += 1;
+        }
+    std::vector<double> out(V);
+    for (std::size_t v = 0; v < NV; ++v) {
+        if (cnt[v] == 0) continue;
+        const double shift = std::min(std::max(0.5 * acc[v] / cnt[v], -limit), limit);
+        const double r = norm(Vec3{V[3 * v], V[3 * v + 1], V[3 * v + 2]});
+        const double scale = (r + shift) / r;
+        for (std::size_t k = 0; k < 3; ++k) out[3 * v + k] = V[3 * v + k] * scale;
+    }
+    return out;
+}
+
+double smallest_angle_deg(Vec3 a, Vec3 b, Vec3 c) {
+    const Vec3 p[3] = {a, b, c};
+    double best = 180;
+    for (int k = 0; k < 3; ++k) {
+        const Vec3 u = p[(k + 1) % 3] - p[k], w = p[(k + 2) % 3] - p[k];
+        const double ang = std::atan2(norm(cross(u, w)), dot(u, w)) * 57.295779513082320876798154814105;
+        best = std::min(best, ang);
+    }
+    return best;
+}
+
+}  // namespace
+
+Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::string& error) {
+    const auto t0 = std::chrono::steady_clock::now();
+    const BakeSettings& s = r.settings;
+    ColliderResult& out = r.colliders;
+    out = ColliderResult{};
+    out.made = true;
+    out.requested_tolerance_m = r.plan.collider_m;
+    const bool centered = s.collision_centered;
+    double tol = r.plan.collider_m;
+    std::vector<Level> cl;
+    ChunkInfo ci;
+    for (;;) {
+        // with the bias, mesh a third tighter and move vertices by at most a third: the collider
+        // stays within the tolerance on both sides
+        cl.clear();
+        Status st = extract_levels(field, h, {centered ? tol / 1.5 : tol}, kMeasureOrder, s.threads, false,
+                                   cl, ci, error);
+        if (st != Status::Ok) return st;
+        std::vector<std::uint64_t> counts(r.chunk_count, 0);
+        for (std::uint32_t c : cl[0].chunk) ++counts[c];
+        out.max_triangles_per_chunk = counts.empty() ? 0 : *std::max_element(counts.begin(), counts.end());
+        if (out.max_triangles_per_chunk <= s.collider_cap) break;
+        if (tol > s.radius_m / 4) {
+            error = "collision.max_triangles_per_chunk: " + std::to_string(s.collider_cap) +
+                    " cannot be met (a chunk needs " + std::to_string(out.max_triangles_per_chunk) +
+                    " triangles even at tolerance " + std::to_string(tol) + " m); raise it or lod.chunk_level";
+            return Status::BudgetExceeded;
+        }
+        tol *= 1.25;
+    }
+    const Level& lv = cl[0];
+    const std::vector<double> P =
+        centered ? bias_vertices(field, r.positions, lv.triangles, tol / 3, s.threads) : r.positions;
+    const std::size_t NV = P.size() / 3, T = lv.chunk.size();
+    const Deviation dev = measure(field, P.data(), NV, lv.triangles.data(), T, kMeasureOrder, s.threads, nullptr);
+    out.tolerance_m = tol;
+    out.triangles = T;
+    out.max_error_m = dev.max_m;
+    out.mesh_to_surface_m = dev.mesh_to_surface_m;
+    out.surface_to_mesh_m = dev.surface_to_mesh_m;
+    out.min_angle_deg = T ? 180.0 : 0.0;
+    const double tiny = 1e-12 * s.radius_m * s.radius_m;
+    for (std::size_t t = 0; t < T; ++t) {
+        Vec3 p[3];
+        for (std::size_t k = 0; k < 3; ++k) {
+            const double* q = &P[3 * static_cast<std::size_t>(lv.triangles[3 * t + k])];
+            p[k] = {q[0], q[1], q[2]};
+        }
+        out.min_angle_deg = std::min(out.min_angle_deg, smallest_angle_deg(p[0], p[1], p[2]));
+        if (norm(cross(p[1] - p[0], p[2] - p[0])) <= tiny) ++out.degenerate_triangles;
+    }
+    std::vector<std::uint64_t> offsets;
+    std::vector<std::uint32_t> ids;
+    chunk_vertex_ids(lv, r.chunk_count, offsets, ids);
+    out.chunks.resize(r.chunk_count);
+    std::size_t t = 0;
+    for (std::uint32_t c = 0; c < r.chunk_count; ++c) {
+        auto col = std::make_shared<Collider>();
+        const std::uint32_t* cid = ids.data() + offsets[c];
+        const std::size_t n = offsets[c + 1] - offsets[c];
+        col->positions.resize(3 * n);
+        for (std::size_t i = 0; i < n; ++i)
+            for (std::size_t k = 0; k < 3; ++k) col->positions[3 * i + k] = P[3 * static_cast<std::size_t>(cid[i]) + k];
+        std::size_t e = t;
+        while (e < T && lv.chunk[e] == c) ++e;
+        col->triangles.resize(3 * (e - t));
+        for (std::size_t i = 0; i < col->triangles.size(); ++i)
+            col->triangles[i] = static_cast<std::uint32_t>(
+                std::lower_bound(cid, cid + n, lv.triangles[3 * t + i]) - cid);
+        t = e;
+        out.chunks[c] = std::move(col);
+    }
+    out.seconds = std::chrono::duration<double>(std::chrono::steady_clock::now() - t0).count();
+    return Status::Ok;
+}
+
+}  // namespace gm
