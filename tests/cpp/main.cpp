@@ -1,0 +1,3 @@
+// the test runner's entry point, shared by every test executable
+#define DOCTEST_CONFIG_IMPLEMENT_WITH_MAIN
+#include <doctest/doctest.h>
