@@ -390,16 +390,11 @@ def compare_bake(api: Api, b: C.c_void_p, r: BakeResult) -> None:
     assert same(pool(POSITION, 3), r.vertices)
     assert same(pool(DIRECTION, 3), r.directions)
     assert same(pool(NORMAL, 3), r.normals)
-    try:
-        from globemill.attributes import vertex_attributes
-    except ImportError:  # attributes are another module's; compare when it is there
-        vertex_attributes = None
-    if vertex_attributes is not None:
-        va = vertex_attributes(r.spec, r.directions)
-        assert same(pool(SLOPE, 1), va.slope_deg)
-        assert same(pool(ALTITUDE, 1), va.altitude_m)
-        assert same(pool(COLOR, 3), va.color)
-        assert same(api.array("gm_bake_vertex_layers", V, np.uint8, b), va.layer)
+    # the attributes the core stored, read from both sides (one computation, not two agreeing)
+    assert same(pool(SLOPE, 1), r.slope_deg)
+    assert same(pool(ALTITUDE, 1), r.altitude_m)
+    assert same(pool(COLOR, 3), r.color)
+    assert same(api.array("gm_bake_vertex_layers", V, np.uint8, b), r.layer)
     for k, lr in enumerate(r.levels):
         lk = C.c_uint32(k)
         li = api.info("gm_bake_level_info", LevelInfo, b, lk)
@@ -421,9 +416,17 @@ def compare_bake(api: Api, b: C.c_void_p, r: BakeResult) -> None:
             n = ci.vertex_count
             ids = api.array("gm_chunk_vertex_ids", ci.surface_vertex_count, np.uint32, b, lk, c)
             assert same(ids, cm.vertex_ids)
-            for which, want in ((POSITION, cm.positions), (NORMAL, cm.normals), (MORPH, cm.morph)):
+            for which, want in (
+                (POSITION, cm.positions),
+                (NORMAL, cm.normals),
+                (MORPH, cm.morph),
+                (COLOR, cm.color),
+            ):
                 got = api.array("gm_chunk_vertex_data", 3 * n, np.float64, b, lk, c, which)
                 assert same(got.reshape(-1, 3), want)
+            for which, want in ((SLOPE, cm.slope_deg), (ALTITUDE, cm.altitude_m)):
+                assert same(api.array("gm_chunk_vertex_data", n, np.float64, b, lk, c, which), want)
+            assert same(api.array("gm_chunk_vertex_layers", n, np.uint8, b, lk, c), cm.layer)
             t = api.array("gm_chunk_triangles", 3 * ci.triangle_count, np.uint32, b, lk, c)
             assert same(t.reshape(-1, 3), cm.triangles)
             assert ci.interior_count == cm.interior
@@ -456,7 +459,7 @@ def compare_bake(api: Api, b: C.c_void_p, r: BakeResult) -> None:
 def test_bake_equals_python_bake_on_demo_world(
     api: Api, demo_c: C.c_void_p, demo_py: BakeResult
 ) -> None:
-    # stitched seams, centered collider bias (bake._bias_vertices ported in the same order)
+    # stitched seams, centered collider bias
     assert demo_py.report["collision"]["bias"] == "centered"
     compare_bake(api, demo_c, demo_py)
 
@@ -602,7 +605,7 @@ def test_thousands_of_features(api: Api) -> None:
 
 def test_progress_reports_the_same_rounds_as_python(api: Api, small_spec: dict[str, Any]) -> None:
     seen_c: list[tuple[int, int]] = []
-    seen_py: list[tuple[int, int]] = []
+    seen_py: list[tuple[str, int]] = []
     cb = PROGRESS(lambda _user, rnd, tris: seen_c.append((rnd, tris)))
     status, w, msg = api.world(json.dumps(small_spec))
     assert status == OK, msg
@@ -611,9 +614,13 @@ def test_progress_reports_the_same_rounds_as_python(api: Api, small_spec: dict[s
     globemill.bake(
         parse_spec(small_spec),
         collision=False,
-        progress=lambda rnd, tris: seen_py.append((rnd, tris)),
+        progress=lambda stage, done, total: seen_py.append((stage, done)),
     )
-    assert seen_c and seen_c == seen_py
+    # the C callback numbers the core's refinement reports; Python sees them with their stage
+    refine = [done for stage, done in seen_py if stage == "refine"]
+    assert seen_c and seen_c == [(i + 1, done) for i, done in enumerate(refine)]
+    levels = parse_spec(small_spec).lod.levels
+    assert [s for s, _ in seen_py if s != "refine"] == ["levels"] * 2 + ["chunks"] * levels
     api.lib.gm_bake_destroy(b)
     api.lib.gm_world_destroy(w)
 
@@ -838,7 +845,7 @@ def test_bad_options_are_refused_with_python_messages(api: Api) -> None:
         ({"ratio": 17.0}, "ratio: must be > 1 and <= 16"),
         ({"chunk_level": 6}, "chunk_level: must be an integer in 0..5"),
         ({"threads": 5000}, "threads: must be an integer in 0..1024"),
-        ({"offset": 3}, "offset: must be one of"),
+        ({"offset": 3}, "offset: must be 0 (radial), 1 (normal) or 2 (exact)"),
         ({"chunk_level": 5, "max_triangles": 1000}, "chunk_level: 5 makes 20480 chunks"),
     ]:
         status, b, message = api.bake(w, **kw)

@@ -462,8 +462,8 @@ GM_API void gm_edit_destroy(gm_edit* edit);
  * runs the two lists share at their start and end (one changed, inserted or removed feature)
  * re-mesh around their old and new footprints. Fails as gm_bake_create does (e.g. GM_ERROR_BUDGET); on failure the session, its bake
  * and its changed list stay exactly as they were. The bake handle from gm_edit_bake taken before
- * a successful update is released by it. Not thread-safe: one call at a time per session, and no
- * reader of its bake while it runs. */
+ * a successful update is released by it. Calls on one session serialise on its lock (two threads
+ * updating at once run one after the other); no reader of its bake while an update runs. */
 GM_API gm_status gm_edit_update(gm_edit* edit, const gm_world* world, gm_error* err);
 
 /* The session's current meshes, to read with every gm_bake_* / gm_chunk_* / gm_collider_* call
