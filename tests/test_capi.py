@@ -25,6 +25,8 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 import globemill
 from globemill import _core
@@ -325,6 +327,27 @@ def test_feature_rows_equal_core_features_on_random_worlds(api: Api, seed: int) 
     rows = api.array("gm_world_features", 16 * 300, np.float64, w).reshape(-1, 16)
     api.lib.gm_world_destroy(w)
     assert same(rows, parse_spec(d).core_features())
+
+
+@settings(
+    max_examples=6, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture]
+)
+@given(seed=st.integers(0, 2**31 - 1), skirt=st.booleans())
+def test_bake_equals_python_bake_on_random_worlds(api: Api, seed: int, skirt: bool) -> None:
+    # random worlds of every feature kind and blend (hypothesis); both sides read the one bake
+    # the core made, so every array is equal bit for bit on any CPU
+    d = _random_world(np.random.default_rng(seed), 12)
+    for f in d["features"]:
+        if f["kind"] == "noise":  # fine octaves alone would need a billion triangles at 5 m
+            f["octaves"] = min(f["octaves"], 3)
+    d["lod"] = {"levels": 3, "chunk_level": 1, "seams": "skirt" if skirt else "stitch"}
+    status, w, msg = api.world(json.dumps(d))
+    assert status == OK, msg
+    status, b, msg = api.bake(w)
+    assert status == OK, msg
+    compare_bake(api, b, globemill.bake(parse_spec(d)))
+    api.lib.gm_bake_destroy(b)
+    api.lib.gm_world_destroy(w)
 
 
 def test_height_and_gradient_equal_python_field(api: Api) -> None:
