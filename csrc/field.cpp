@@ -3,6 +3,9 @@
 // (Steele, Lea & Flood 2014) and shuffled by Fisher-Yates.
 #include "field.hpp"
 
+#include "json.hpp"
+#include "spec_rules.hpp"
+
 #include <algorithm>
 #include <cmath>
 #include <limits>
@@ -129,6 +132,71 @@ double smin(double a, Vec3 ga, double b, Vec3 gb, double k, Vec3& g) {
     return v;
 }
 
+
+// the first column of feature row r (features[i], finite values) that breaks the rule table, as a problem line
+// naming the field and its allowed range; empty when the row holds only allowed values. `kind`
+// is set to the row's kind when its code is known.
+std::string row_problem(const SpecRules& rules, const double* r, std::size_t i, const KindRules*& kind) {
+    const std::string at = "features[" + std::to_string(i) + "]";  // r holds finite values
+    kind = r[0] == std::floor(r[0]) && std::fabs(r[0]) < 1e9 ? rules.kind_by_code(static_cast<int>(r[0])) : nullptr;
+    if (!kind) return at + ".kind: unknown kind code (allowed: the codes of " + rules.kind_list + "), got " + format_number(r[0]);
+    auto column_of = [&](const std::string& key) {
+        for (const SectionRules* s : {static_cast<const SectionRules*>(&rules.feature), static_cast<const SectionRules*>(kind)})
+            for (const RowEntry& e : s->row)
+                if (e.what == RowEntry::Value && e.key == key) return e.col;
+        return -1;
+    };
+    for (const SectionRules* s : {static_cast<const SectionRules*>(&rules.feature), static_cast<const SectionRules*>(kind)}) {
+        for (const RowEntry& e : s->row) {
+            const double* x = r + e.col;
+            if (e.what == RowEntry::Direction) {
+                if (std::fabs(std::sqrt(x[0] * x[0] + x[1] * x[1] + x[2] * x[2]) - 1) > 1e-9)
+                    return at + ": columns " + std::to_string(e.col) + ".." + std::to_string(e.col + 2) +
+                           " (" + e.key + ", " + e.key2 + ") must be a unit vector";
+                continue;
+            }
+            if (e.what != RowEntry::Value) continue;
+            const FieldRule* f = s->field(e.key);
+            if (!f) continue;
+            if (!e.only_if_key.empty()) {
+                const FieldRule* when = s->field(e.only_if_key);
+                const int wc = column_of(e.only_if_key);
+                if (!when || wc < 0) continue;
+                const double w = r[wc];
+                if (!(w >= 0 && w < static_cast<double>(when->values.size()) && w == std::floor(w))) continue;
+                const std::string& name = when->values[static_cast<std::size_t>(w)];
+                if (std::find(e.only_if_in.begin(), e.only_if_in.end(), name) == e.only_if_in.end()) continue;
+            }
+            Bounds b = f->bounds;
+            std::string allowed = f->allowed;
+            if (f->type == RuleType::Choice) {
+                b = Bounds{};
+                b.has_lo = b.has_hi = b.integer = true;
+                b.hi = static_cast<double>(f->values.size()) - 1;
+                allowed = "the codes 0 to " + format_number(b.hi) + " of " + f->allowed;
+            } else if (e.radians) {
+                b.lo *= kPi / 180.0;
+                b.hi *= kPi / 180.0;
+                allowed = b.describe() + " (radians)";
+            }
+            const std::string broken = b.broken(x[0]);
+            if (!broken.empty())
+                return at + "." + e.key + ": must be " + broken + " (allowed: " + allowed + "), got " + format_number(x[0]);
+        }
+    }
+    for (const CheckRule& c : kind->checks) {
+        if (c.rule != "at_most_min") continue;
+        const int col = column_of(c.key);
+        double limit = HUGE_VAL;
+        for (const std::string& k : c.of_keys) limit = std::min(limit, column_of(k) >= 0 ? r[column_of(k)] : HUGE_VAL);
+        const FieldRule* f = kind->field(c.key);
+        if (col >= 0 && f && r[col] > limit)
+            return at + "." + c.key + ": must be <= " + format_number(limit) + " (allowed: " + f->allowed +
+                   "), got " + format_number(r[col]);
+    }
+    return {};
+}
+
 }  // namespace
 
 Status Field::init(double radius_m, const double* rows, std::size_t n, std::string& error) {
@@ -152,53 +220,39 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
                 return Status::NonFinite;
             }
         }
+        // the columns the rule table's row entries fill must hold values the table allows (the
+        // spec loaders check the same rules on the fields; a row from elsewhere is checked here)
+        const KindRules* rule = nullptr;
+        error = row_problem(spec_rules(), r, i, rule);
+        if (!error.empty()) return Status::InvalidArgument;
         Feature f;
-        int kind = static_cast<int>(r[0]);
-        int blend = static_cast<int>(r[1]);
-        if (kind < 0 || kind > 5 || kind != r[0]) {
-            error = "features[" + std::to_string(i) + "].kind code must be an integer in 0..5";
-            return Status::InvalidArgument;
-        }
-        if (blend < 0 || blend > 5 || blend != r[1]) {
-            error = "features[" + std::to_string(i) + "].blend code must be an integer in 0..5";
-            return Status::InvalidArgument;
-        }
-        f.kind = static_cast<Kind>(kind);
-        f.blend = static_cast<Blend>(blend);
+        f.kind = static_cast<Kind>(rule->code);
+        f.blend = static_cast<Blend>(static_cast<int>(r[1]));
         f.k = r[2];
-        if ((f.blend == Blend::SmoothMax || f.blend == Blend::SmoothMin) && !(f.k > 0)) {
-            error = "features[" + std::to_string(i) + "].blend_width_m must be > 0";
-            return Status::InvalidArgument;
-        }
         f.c = normalize({r[3], r[4], r[5]});
         f.c1 = normalize({r[6], r[7], r[8]});
         for (int j = 0; j < 7; ++j) f.prm[j] = r[9 + j];
+        // guards of the derived geometry below (degenerate frames, tangents past 90 degrees); the
+        // spec loaders refuse the same cases with the table's (stricter) rules
         auto bad = [&](const char* what) {
             error = "features[" + std::to_string(i) + "]." + what;
             return Status::InvalidArgument;
         };
-        if (f.kind != Kind::Noise && std::fabs(norm(f.c) - 1) > 1e-9) return bad("centre must be a unit vector");
         double* p = f.prm;
         f.cap_c = f.c;
         switch (f.kind) {
             case Kind::Hill:
-                if (!(p[1] > 0)) return bad("sigma_m must be > 0");
                 f.cap_angle = std::min(kPi, 4 * p[1] / R);
                 f.scale_m = p[1];
                 f.amp_m = std::fabs(p[0]);
                 break;
             case Kind::Mesa:
-                if (!(p[1] > 0)) return bad("radius_m must be > 0");
-                if (!(p[2] >= 0)) return bad("wall_m must be >= 0");
                 f.cap_angle = std::min(kPi, (p[1] + p[2]) / R);
                 f.scale_m = p[1];
                 f.amp_m = std::fabs(p[0]);
                 f.step = p[2] == 0;
                 break;
             case Kind::Block: {
-                if (!(p[1] > 0) || !(p[2] > 0)) return bad("half_x_m and half_y_m must be > 0");
-                if (!(p[3] >= 0) || p[3] > std::min(p[1], p[2])) return bad("corner_m must be in [0, min(half_x_m, half_y_m)]");
-                if (!(p[4] >= 0)) return bad("wall_m must be >= 0");
                 double ex = (p[1] + p[4]) / R, ey = (p[2] + p[4]) / R;
                 if (ex >= kPi / 3 || ey >= kPi / 3) return bad("footprint must stay within 60 degrees of its centre");
                 Vec3 up{0, 1, 0};
@@ -216,16 +270,11 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
                 break;
             }
             case Kind::Crater:
-                if (!(p[1] > 0)) return bad("radius_m must be > 0");
-                if (!(p[3] > 0)) return bad("rim_width_m must be > 0");
-                if (!(p[0] >= 0) || !(p[2] >= 0)) return bad("depth_m and rim_height_m must be >= 0");
                 f.cap_angle = std::min(kPi, (p[1] + p[3]) / R);
                 f.scale_m = std::min(p[1], p[3]);
                 f.amp_m = p[0] + p[2];
                 break;
             case Kind::Ridge: {
-                if (!(p[1] > 0)) return bad("half_width_m must be > 0");
-                if (std::fabs(norm(f.c1) - 1) > 1e-9) return bad("end point must be a unit vector");
                 double arc = angle(f.c, f.c1);
                 if (!(arc > 1e-12) || arc > kPi * 179.0 / 180.0) return bad("arc angle must be in (0, 179] degrees");
                 f.ax = normalize(cross(f.c, f.c1));
@@ -236,10 +285,6 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
                 break;
             }
             case Kind::Noise: {
-                if (!(p[1] > 0)) return bad("frequency_per_m must be > 0");
-                if (!(p[2] >= 1 && p[2] <= 12) || p[2] != std::floor(p[2])) return bad("octaves must be an integer in 1..12");
-                if (!(p[3] > 0 && p[3] <= 1)) return bad("gain must be in (0, 1]");
-                if (!(p[4] >= 0 && p[4] <= 4294967295.0) || p[4] != std::floor(p[4])) return bad("seed must be an integer in 0..2^32-1");
                 f.cap_angle = 4;  // everywhere
                 std::array<std::uint8_t, 512> P{};
                 std::array<int, 256> perm{};

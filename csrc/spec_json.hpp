@@ -1,6 +1,6 @@
-// world specs from JSON text for the C ABI: a small strict JSON reader (RFC 8259) and a validator
-// that mirrors src/globemill/spec.py (names, ranges, defaults, problem lines) and flattens a spec
-// into the same (n, 16) feature rows as WorldSpec.core_features().
+// world specs from JSON text for the C ABI: the strict JSON reader of json.hpp and a validator
+// driven by the rule table (spec_rules.hpp: src/globemill/spec_rules.json, which spec.py reads
+// too), flattening a spec into the same (n, 16) feature rows as WorldSpec.core_features().
 #pragma once
 
 #include <cstddef>
@@ -40,11 +40,13 @@ struct SpecData {
 
 enum class SpecStatus { Ok, Malformed, Invalid };
 
+// reader limits; the defaults are the rule table's "limits" (the same as the Python loader's)
 struct SpecLimits {
-    std::size_t max_bytes = 8u * 1024u * 1024u;
-    int max_depth = 64;
-    std::size_t max_values = 1000000;
-    std::size_t max_problems = 1000;
+    SpecLimits();
+    std::size_t max_bytes;
+    int max_depth;
+    std::size_t max_values;
+    std::size_t max_problems;
 };
 
 // read and validate. On failure `message` is the whole message:
@@ -57,7 +59,8 @@ SpecStatus load_spec_json(const char* text, std::size_t length, const SpecLimits
 // unit direction u(lat, lon) of docs/terrain.md, computed exactly as spec.unit_vector
 void unit_vector(double lat_deg, double lon_deg, double out[3]);
 
-// numbers in messages, written as Python writes them: repr(x) and format(x, ".{precision}g")
+// numbers in messages. format_repr is format_number (json.hpp: shortest round-trip text);
+// format_g is printf's %.{precision}g. Both are kept for capi.cpp's option messages.
 std::string format_repr(double x);
 std::string format_g(double x, int precision);
 

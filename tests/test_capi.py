@@ -12,6 +12,7 @@ from __future__ import annotations
 import copy
 import ctypes as C
 import json
+import math
 import os
 import re
 import shutil
@@ -743,10 +744,34 @@ def test_invalid_specs_list_the_same_problems_as_python(
         parse_spec(d)
     status, message = api.spec_check(json.dumps(d, ensure_ascii=False).encode())
     assert status == SPEC
-    assert c_problems(message) == info.value.problems
+    assert [problem_key(x) for x in c_problems(message)] == [
+        problem_key(x) for x in info.value.problems
+    ]
     status, w, short = api.world(json.dumps(d))
     assert status == SPEC and w.value is None
     assert message.startswith(short.rstrip(".")[:200])
+
+
+_NUMBER = re.compile(r"-?\d+(?:\.\d+)?(?:e[+-]?\d+)?")
+
+
+def problem_key(line: str) -> tuple[str, str]:
+    """What both loaders must agree on in a problem line: the field path and the allowed range
+    (numbers compared by value; each side writes numbers its own way, and the offending value
+    after "got" in its own notation)."""
+    path, _, rest = line.partition(": ")
+    for head in (" (allowed: ", " (allowed keys: ", "(allowed: "):
+        start = rest.find(head)
+        if start >= 0:
+            body = rest[start + len(head) :]
+            end = body.find("), got ")
+            allowed = body[:end] if end >= 0 else body.removesuffix(")")
+            return path, _NUMBER.sub(lambda m: repr(float(m.group())), allowed)
+    return path, rest
+
+
+def same_problems(c_lines: list[str], py_lines: list[str]) -> bool:
+    return [problem_key(x) for x in c_lines] == [problem_key(x) for x in py_lines]
 
 
 def c_problems(message: str) -> list[str]:
@@ -826,7 +851,7 @@ def test_long_messages_are_cut_cleanly_and_listed_in_full_by_spec_check(api: Api
     assert status == SPEC
     lines = c_problems(message)
     # the first 1000 of Python's 6000 problem lines, then one line counting the rest
-    assert lines[:1000] == info.value.problems[:1000]
+    assert same_problems(lines[:1000], info.value.problems[:1000])
     assert lines[1000:] == ["... and 5000 more problems"]
     assert message.startswith("invalid world spec (6000 problems):")
     err = Error()
@@ -847,7 +872,7 @@ def test_huge_numbers_read_as_python_reads_them(api: Api) -> None:
     with pytest.raises(SpecError) as info:
         parse_spec(json.loads(text))
     status, message = api.spec_check(text)
-    assert status == SPEC and c_problems(message) == info.value.problems
+    assert status == SPEC and same_problems(c_problems(message), info.value.problems)
 
 
 def test_bad_options_are_refused_with_python_messages(api: Api) -> None:
@@ -939,7 +964,7 @@ def test_fuzz_corpus_agrees_with_the_python_loader(api: Api) -> None:
         if status == OK:
             assert py[0] == "ok", path.name
         elif status == SPEC:
-            assert py == ("spec", c_problems(message)), path.name
+            assert py[0] == "spec" and same_problems(c_problems(message), py[1]), path.name
         else:
             assert status == PARSE, path.name
             assert py[0] == "parse" or any(s in message for s in strict), (path.name, message)
@@ -1123,3 +1148,168 @@ def test_cython_example_arrays_equal_python(api: Api, demo_py: BakeResult, tmp_p
     with pytest.raises(globemill_cy.GlobemillError, match="invalid world spec") as info:
         globemill_cy.Bake('{"name": "x"}')
     assert info.value.status == SPEC
+
+
+# --------------------------------------------------------------------------------------------
+# the rule table (src/globemill/spec_rules.json): both loaders accept a value just inside each
+# bound of every field and refuse one just outside it, naming the same path and allowed range
+
+from globemill.spec import SPEC_RULES  # noqa: E402
+
+BOUND_WORLD: dict[str, Any] = {
+    "name": "bounds",
+    "radius_m": 1000.0,
+    "tolerance_m": 1.0,
+    "features": [
+        {"kind": "hill", "lat_deg": 0, "lon_deg": 0, "amplitude_m": 1, "sigma_m": 5},
+        {"kind": "mesa", "lat_deg": 10, "lon_deg": 0, "height_m": 1, "radius_m": 5, "wall_m": 1},
+        {
+            "kind": "block",
+            "lat_deg": 20,
+            "lon_deg": 0,
+            "height_m": 1,
+            "half_x_m": 5,
+            "half_y_m": 4,
+            "heading_deg": 0,
+            "corner_m": 1,
+            "wall_m": 1,
+        },
+        {
+            "kind": "crater",
+            "lat_deg": 30,
+            "lon_deg": 0,
+            "radius_m": 5,
+            "depth_m": 1,
+            "rim_height_m": 1,
+            "rim_width_m": 2,
+        },
+        {
+            "kind": "ridge",
+            "lat0_deg": 0,
+            "lon0_deg": 40,
+            "lat1_deg": 0,
+            "lon1_deg": 50,
+            "height_m": 1,
+            "half_width_m": 3,
+        },
+        {"kind": "noise", "amplitude_m": 0.5, "frequency_per_m": 0.01},
+    ],
+    "layers": [
+        {"name": "moss", "color": [0.2, 0.5, 0.2], "slope_deg": [10, 50], "altitude_m": [-5, 5]}
+    ],
+}
+
+
+def _bound_cases() -> list[tuple[str, str, Any, bool]]:
+    """(label, path, value, inside) for a value at/just inside and just outside every bound."""
+
+    def values(rule: dict[str, Any], integer: bool) -> list[tuple[str, Any, bool]]:
+        out = []
+        for name, sign in (("gt", 1), ("ge", 1), ("lt", -1), ("le", -1)):
+            if name not in rule:
+                continue
+            b = rule[name]
+            step = (lambda x, d: x + d) if integer else (lambda x, d: math.nextafter(x, x + d))
+            closed = name in ("ge", "le")
+            inside = b if closed else step(b, sign)
+            outside = step(b, -sign) if closed else b
+            out += [(f"{name}{b}-in", inside, True), (f"{name}{b}-out", outside, False)]
+        if rule.get("nonzero"):
+            out.append(("nonzero-out", 0, False))
+        return out
+
+    cases = []
+    sections = {"": "world", "lod.": "lod", "collision.": "collision"}
+    for prefix, name in sections.items():
+        for rule in SPEC_RULES["sections"][name]["fields"]:
+            if rule["type"] in ("number", "integer"):
+                for label, v, ok in values(rule, rule["type"] == "integer"):
+                    cases.append((f"{prefix}{rule['key']}:{label}", prefix + rule["key"], v, ok))
+    for rule in SPEC_RULES["sections"]["layer"]["fields"]:
+        if rule["type"] == "numbers":
+            for label, v, ok in values(rule["item"], False):
+                i = 0 if label.startswith("g") else rule["count"] - 1  # lower bounds on lo
+                item = f"layers[0].{rule['key']}[{i}]"
+                cases.append((f"layer.{rule['key']}:{label}", item, v, ok))
+    for index, kind in enumerate(SPEC_RULES["kinds"]):
+        for rule in SPEC_RULES["sections"]["feature"]["fields"] + kind["fields"]:
+            if rule["type"] in ("number", "integer"):
+                for label, v, ok in values(rule, rule["type"] == "integer"):
+                    path = f"features[{index}].{rule['key']}"
+                    cases.append((f"{kind['kind']}.{rule['key']}:{label}", path, v, ok))
+    return cases
+
+
+def _set_path(doc: dict[str, Any], path: str, value: Any) -> None:
+    parts = re.findall(r"[^.\[\]]+|\[\d+\]", path)
+    node: Any = doc
+    for part in parts[:-1]:
+        node = node[int(part[1:-1])] if part.startswith("[") else node.setdefault(part, {})
+    last = parts[-1]
+    if last.startswith("["):
+        node[int(last[1:-1])] = value
+    else:
+        node[last] = value
+
+
+@pytest.mark.parametrize(
+    "label, path, value, inside", _bound_cases(), ids=[c[0] for c in _bound_cases()]
+)
+def test_both_loaders_agree_on_every_bound_of_the_table(
+    api: Api, label: str, path: str, value: Any, inside: bool
+) -> None:
+    doc = copy.deepcopy(BOUND_WORLD)
+    if ".blend_width_m" in path:  # the width is read with a smooth blend only
+        _set_path(doc, path.replace("blend_width_m", "blend"), "smooth_max")
+    if path == "radius_m":  # keep tolerance_m <= radius_m / 10 and the features small
+        doc["tolerance_m"] = 0.05
+        doc["features"] = []
+    _set_path(doc, path, value)
+    text = json.dumps(doc).encode()
+    status, message = api.spec_check(text)
+    try:
+        parse_spec(doc)
+        py: list[str] = []
+    except SpecError as exc:
+        py = exc.problems
+    c = c_problems(message) if status == SPEC else []
+    assert status in (OK, SPEC), message
+    assert [problem_key(x) for x in c] == [problem_key(x) for x in py]
+    named = [p for p in py if p.split(": ")[0] == path]
+    if inside:
+        assert not named, py  # the bound itself (or the value next to an open one) is allowed
+    else:
+        assert len(named) == 1 and status == SPEC, (py, message)
+
+
+def test_every_kind_and_section_of_the_table_is_covered() -> None:
+    labels = {c[0].split(":")[0] for c in _bound_cases()}
+    for kind in SPEC_RULES["kinds"]:
+        bounded = [f for f in kind["fields"] if set(f) & {"gt", "ge", "lt", "le", "nonzero"}]
+        for f in bounded:
+            assert f"{kind['kind']}.{f['key']}" in labels
+    assert {"radius_m", "lod.chunk_level", "collision.max_triangles_per_chunk"} <= labels
+
+
+def test_core_field_refuses_rows_outside_the_table() -> None:
+    """Field::init reads the same table: a row value outside its field's range is refused with the
+    field's name; the rows of a valid spec are accepted."""
+    spec = parse_spec(BOUND_WORLD)
+    rows = spec.core_features()
+    _core.Field(spec.radius_m, rows)
+    for kind_index, kind in enumerate(SPEC_RULES["kinds"]):
+        for entry in kind["row"]:
+            rule = next((f for f in kind["fields"] if f["key"] == entry.get("key")), None)
+            if rule is None or rule["type"] not in ("number", "integer") or entry.get("radians"):
+                continue
+            away = {"gt": None, "ge": -math.inf, "lt": None, "le": math.inf}
+            for name, direction in away.items():
+                if name not in rule:
+                    continue
+                bound = float(rule[name])
+                bad = rows.copy()
+                bad[kind_index, entry["col"]] = (
+                    bound if direction is None else math.nextafter(bound, direction)
+                )
+                with pytest.raises(ValueError, match=rf"features\[{kind_index}\]\.{rule['key']}"):
+                    _core.Field(spec.radius_m, bad)

@@ -557,3 +557,135 @@ def test_spec_round_trips_through_model_dump() -> None:
     again = parse_spec(json.loads(json.dumps(spec.model_dump(mode="json"))))
     assert again == spec
     assert isinstance(again, WorldSpec)
+
+
+# ---------------------------------------------------------------------------------------------
+# hostile input (tests/data/hostile_*): a SpecError naming the file, the place and the limit,
+# never a traceback; the CLI exits 2
+
+HOSTILE = Path(__file__).resolve().parent / "data"
+
+
+@pytest.mark.parametrize(
+    ("name", "expected"),
+    [
+        ("hostile_deep_nesting.json", "malformed JSON at line 1, column 93: nested deeper than 64"),
+        ("hostile_deep_nesting.toml", "malformed TOML at line 4, column 75: nested deeper than 64"),
+        ("hostile_deep_inline_tables.toml", "nested deeper than 64 levels"),
+        ("hostile_deep_dotted_keys.toml", "nested deeper than 64 levels"),
+        ("hostile_lone_surrogate_name.json", "layers[0].name: is not Unicode text: lone surrogate"),
+        (
+            "hostile_control_character_name.json",
+            "features[0].name: has the control character U+0007 at position 4",
+        ),
+        ("hostile_control_character_layer.toml", "layers[0].name: has the control character"),
+        ("hostile_long_layer_name.toml", "layers[0].name: string should have at most 128"),
+    ],
+)
+def test_hostile_files_are_refused_with_place_and_limit(name: str, expected: str) -> None:
+    with pytest.raises(SpecError) as info:
+        load_spec(HOSTILE / name)
+    message = str(info.value)
+    assert name in message and expected in message
+    assert "(allowed:" in message or "deeper than 64 levels" in message
+
+
+@pytest.mark.parametrize("name", sorted(p.name for p in HOSTILE.glob("hostile_*")))
+def test_cli_exits_2_on_hostile_files(name: str, tmp_path: Path) -> None:
+    from globemill.cli import main
+
+    assert main(["bake", str(HOSTILE / name), "-o", str(tmp_path / "out")]) == 2
+    assert not (tmp_path / "out").exists() or not any((tmp_path / "out").iterdir())
+
+
+def test_deep_data_given_directly_names_the_path_and_limit() -> None:
+    deep: Any = 1
+    for _ in range(5000):
+        deep = {"k": deep}
+    message = problems_of(world(lod=deep))
+    assert "lod" + ".k" * 63 + ": nested deeper than 64 levels" in message
+    listed: Any = []
+    for _ in range(5000):
+        listed = [listed]
+    assert "features" + "[0]" * 63 + ": nested deeper than 64" in problems_of(world(listed))
+
+
+def test_nesting_at_the_limit_is_read() -> None:
+    # 64 levels: the document, lod, and 62 levels of lists below an unknown key are read (and
+    # refused as an unknown key, not as too deep)
+    value: Any = 1
+    for _ in range(62):
+        value = [value]
+    message = problems_of(world(lod={"zz": value}))
+    assert "lod.zz: unknown key" in message and "deeper" not in message
+
+
+def test_oversized_file_is_refused_before_parsing(tmp_path: Path) -> None:
+    from globemill.spec import LIMITS
+
+    path = tmp_path / "big.json"
+    path.write_bytes(b'{"name": "' + b"x" * LIMITS["max_bytes"] + b'"}')
+    with pytest.raises(SpecError, match=f"larger than the limit of {LIMITS['max_bytes']} bytes"):
+        load_spec(path)
+
+
+@pytest.mark.parametrize(
+    ("where", "text"),
+    [
+        ("name", "bad\u0000"),  # world names are identifiers
+        ("layer", "tab\there"),
+        ("layer", "x" * 129),
+        ("layer", "del\u007f"),
+        ("feature", "c1\u0085"),
+        ("feature", "\ud800"),
+        ("feature", "x" * 129),
+    ],
+)
+def test_names_outside_their_character_class_are_refused(where: str, text: str) -> None:
+    if where == "name":
+        doc, path = world(name=text), "name"
+    elif where == "layer":
+        doc, path = world(layers=[{"name": text, "color": [0, 0, 0]}]), "layers[0].name"
+    else:
+        doc, path = world([feature("hill", name=text)]), "features[0].name"
+    with pytest.raises(SpecError) as info:
+        parse_spec(doc)
+    assert [p.split(": ")[0] for p in info.value.problems] == [path]
+
+
+def test_printable_names_of_any_script_are_accepted() -> None:
+    spec = parse_spec(
+        world([feature("hill", name="Gipfel – 山 ⛰")], layers=[{"name": "мох", "color": [0, 0, 0]}])
+    )
+    assert spec.features[0].name == "Gipfel – 山 ⛰" and spec.layers[0].name == "мох"
+
+
+def test_huge_integer_in_toml_is_a_read_error(tmp_path: Path) -> None:
+    path = tmp_path / "w.toml"
+    path.write_text('name = "w"\nradius_m = ' + "9" * 5000 + "\ntolerance_m = 1\n")
+    with pytest.raises(SpecError, match="cannot read world spec .*malformed TOML"):
+        load_spec(path)
+
+
+# ---------------------------------------------------------------------------------------------
+# the rule table is the models' single source
+
+
+def test_models_follow_the_rule_table() -> None:
+    from globemill.spec import FEATURE_MODELS, SPEC_RULES
+
+    assert list(FEATURE_MODELS) == [k["kind"] for k in SPEC_RULES["kinds"]]
+    schema = json_schema()
+    for kind in SPEC_RULES["kinds"]:
+        props = schema["$defs"][kind["model"]]["properties"]
+        for rule in kind["fields"]:
+            node = props[rule["key"]]
+            for bound, word in [
+                ("gt", "exclusiveMinimum"),
+                ("ge", "minimum"),
+                ("lt", "exclusiveMaximum"),
+                ("le", "maximum"),
+            ]:
+                assert node.get(word) == rule.get(bound), (kind["kind"], rule["key"], bound)
+            assert ("default" in node) == ("default" in rule)
+            assert node.get("default") == rule.get("default")

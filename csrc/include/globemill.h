@@ -37,8 +37,10 @@
  *   several gm_bake_create calls on one world. *_destroy must not run while another call uses the
  *   same handle. Baking uses its own worker threads (gm_bake_options.threads).
  *
- * Same results as Python.  The spec loader mirrors globemill.spec (field names, ranges, defaults,
- *   and the problem lines `path: what (allowed: range), got value`), and gm_bake_create runs the
+ * Same results as Python.  The spec loader reads the rule table globemill.spec is built from
+ *   (src/globemill/spec_rules.json: field names, ranges, defaults), and its problem lines
+ *   `path: what (allowed: range), got value` name the same paths and allowed ranges (numbers
+ *   written in their shortest exact form, which may differ from Python's), and gm_bake_create runs the
  *   same core calls with the same defaults as globemill.bake(), so counts, vertex positions,
  *   indices, morph targets, normals and colliders equal the Python API's for the same spec and
  *   options. Attributes (slope, altitude, layer, colour) follow globemill.attributes.

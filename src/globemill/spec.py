@@ -18,6 +18,7 @@ import copy
 import functools
 import json
 import math
+import operator
 import os
 import re
 import sys
@@ -28,13 +29,14 @@ from typing import Annotated, Any, Literal
 import numpy as np
 import numpy.typing as npt
 from pydantic import (
+    AfterValidator,
     AllowInfNan,
     BaseModel,
     ConfigDict,
     Field,
     Strict,
     ValidationError,
-    field_validator,
+    create_model,
     model_validator,
 )
 
@@ -48,12 +50,16 @@ __all__ = [
     "CORE_COLUMNS",
     "FEATURE_MODELS",
     "KIND_CODES",
+    "LIMITS",
     "PROFILE_CODES",
+    "SPEC_RULES",
     "Block",
+    "CollisionSettings",
     "Crater",
     "Feature",
     "Hill",
     "Layer",
+    "LodSettings",
     "Mesa",
     "Noise",
     "Ridge",
@@ -66,47 +72,7 @@ __all__ = [
 ]
 
 # --------------------------------------------------------------------------------------------
-# codes shared with the C++ core (see the "core feature array" of the internal interface)
-
-KIND_CODES: dict[str, int] = {"hill": 0, "mesa": 1, "block": 2, "crater": 3, "ridge": 4, "noise": 5}
-BLEND_CODES: dict[str, int] = {
-    "add": 0,
-    "max": 1,
-    "min": 2,
-    "set": 3,
-    "smooth_max": 4,
-    "smooth_min": 5,
-}
-PROFILE_CODES: dict[str, int] = {"round": 0, "sharp": 1}
-CORE_COLUMNS = 16
-"""Number of float64 columns per feature in :meth:`WorldSpec.core_features`."""
-
-SMOOTH_BLENDS = frozenset({"smooth_max", "smooth_min"})
-MAX_BLOCK_ANGLE_DEG = 60.0
-"""A block's footprint must stay within this angle of its centre (docs/terrain.md, Validity)."""
-MAX_RIDGE_ARC_DEG = 179.0
-MIN_RIDGE_ARC_DEG = 1e-6
-"""Ridge end points closer than this (degrees) count as the same point."""
-AMPLITUDE_LIMIT = 0.9
-"""The sum of feature amplitudes must stay below this fraction of the base radius."""
-
-_ANGLE_SLACK_DEG = 1e-9  # forgive round-off when comparing angles computed from degrees
-
-# --------------------------------------------------------------------------------------------
-# field types
-
-FiniteFloat = Annotated[float, Strict(), AllowInfNan(False)]
-"""A finite number; integers are accepted, booleans, strings, NaN and infinities are not."""
-StrictInt = Annotated[int, Strict()]
-StrictStr = Annotated[str, Strict()]
-UnitFloat = Annotated[FiniteFloat, Field(ge=0.0, le=1.0)]
-SlopeDeg = Annotated[FiniteFloat, Field(ge=0.0, le=90.0)]
-
-Blend = Literal["add", "max", "min", "set", "smooth_max", "smooth_min"]
-Offset = Literal["radial", "normal", "exact"]
-Profile = Literal["round", "sharp"]
-
-Vec3 = npt.NDArray[np.float64]
+# problems
 
 
 class SpecError(ValueError):
@@ -143,14 +109,15 @@ class _Problems(ValueError):
 
 
 def _num(value: float) -> str:
-    """Format a number the way a person would write it in a spec."""
+    """Format a number the way a person would write it in a spec: integral values without a
+    fraction, others in the shortest text that reads back as the same double."""
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, int):
         return str(value)
     if math.isfinite(value) and value == int(value) and abs(value) < 1e16:
         return str(int(value))
-    return f"{value:.6g}" if math.isfinite(value) else repr(value)
+    return repr(value)  # the shortest text that reads back as the same number
 
 
 def _got(value: Any) -> str:
@@ -181,6 +148,149 @@ def _problem(what: str, allowed: str, got: Any = ..., *, exact_got: str | None =
     if got is not ...:
         return f"{text}, got {_got(got)}"
     return text
+
+
+# --------------------------------------------------------------------------------------------
+# the rule table (src/globemill/spec_rules.json): the one place where names, types, ranges,
+# defaults, units, cross-field rules and the core row layout of every section and feature kind
+# are written. The C++ side (csrc/spec_rules.cpp) reads the same file, embedded at build time.
+
+SPEC_RULES: dict[str, Any] = json.loads(
+    Path(__file__).with_name("spec_rules.json").read_text(encoding="utf-8")
+)
+"""The rule table, as read from ``spec_rules.json`` (treat as read-only)."""
+
+_SECTIONS: dict[str, dict[str, Any]] = SPEC_RULES["sections"]
+_KINDS: dict[str, dict[str, Any]] = {k["kind"]: k for k in SPEC_RULES["kinds"]}
+LIMITS: dict[str, int] = dict(SPEC_RULES["limits"])
+"""Reader limits shared with the C ABI: max_bytes, max_depth, max_values, max_problems."""
+
+
+def _check(rules: Mapping[str, Any], name: str) -> dict[str, Any]:
+    return next(c for c in rules.get("checks", []) if c["rule"] == name)
+
+
+def _field_rule(rules: Mapping[str, Any], key: str) -> dict[str, Any]:
+    return next(f for f in rules["fields"] if f["key"] == key)
+
+
+# codes shared with the C++ core (see the "core feature array" of the internal interface)
+KIND_CODES: dict[str, int] = {k: r["code"] for k, r in _KINDS.items()}
+BLEND_CODES: dict[str, int] = {
+    v: i for i, v in enumerate(_field_rule(_SECTIONS["feature"], "blend")["values"])
+}
+PROFILE_CODES: dict[str, int] = {
+    v: i for i, v in enumerate(_field_rule(_KINDS["ridge"], "profile")["values"])
+}
+CORE_COLUMNS: int = SPEC_RULES["core_columns"]
+"""Number of float64 columns per feature in :meth:`WorldSpec.core_features`."""
+
+SMOOTH_BLENDS = frozenset(_check(_SECTIONS["feature"], "required_if")["in"])
+MAX_BLOCK_ANGLE_DEG: float = _check(_SECTIONS["world"], "block_footprint")["max_deg"]
+"""A block's footprint must stay within this angle of its centre (docs/terrain.md, Validity)."""
+MAX_RIDGE_ARC_DEG: float = _check(_KINDS["ridge"], "arc")["max_deg"]
+MIN_RIDGE_ARC_DEG: float = _check(_KINDS["ridge"], "arc")["min_deg"]
+"""Ridge end points closer than this (degrees) count as the same point."""
+AMPLITUDE_LIMIT: float = _check(_SECTIONS["world"], "amplitude_sum")["below_fraction"]
+"""The sum of feature amplitudes must stay below this fraction of the base radius."""
+
+_ANGLE_SLACK_DEG: float = SPEC_RULES["angle_slack_deg"]  # round-off allowed on computed angles
+
+# --------------------------------------------------------------------------------------------
+# field types
+
+FiniteFloat = Annotated[float, Strict(), AllowInfNan(False)]
+"""A finite number; integers are accepted, booleans, strings, NaN and infinities are not."""
+StrictInt = Annotated[int, Strict()]
+StrictStr = Annotated[str, Strict()]
+
+Vec3 = npt.NDArray[np.float64]
+
+_IDENTIFIER_CLASS = "[A-Za-z0-9_-]"
+
+
+def _is_control(ch: str) -> bool:
+    """A control character (Unicode category Cc: U+0000-U+001F, U+007F-U+009F)."""
+    code = ord(ch)
+    return code < 0x20 or 0x7F <= code <= 0x9F
+
+
+def _is_surrogate(ch: str) -> bool:
+    return 0xD800 <= ord(ch) <= 0xDFFF
+
+
+def _printable(text: str) -> str:
+    """Validator of the ``printable`` character class of the rule table."""
+    for i, ch in enumerate(text):
+        if _is_control(ch):
+            raise ValueError(f"has the control character U+{ord(ch):04X} at position {i}")
+    return text
+
+
+def _path_key(key: str) -> str:
+    """A key as it appears in a problem path: as is, or quoted with \\uXXXX escapes when it holds
+    control characters, lone surrogates, quotes or backslashes (the C ABI writes the same)."""
+    if not any(_is_control(c) or _is_surrogate(c) or c in '"\\' for c in key):
+        return key
+    out = "".join(
+        f"\\u{ord(c):04x}" if _is_control(c) or _is_surrogate(c) else "\\" + c if c in '"\\' else c
+        for c in key
+    )
+    return f'"{out}"'
+
+
+def _bounds_text(rule: Mapping[str, Any], integer: bool = False) -> str:
+    """The allowed range of a number rule in words (the C ABI words it the same way)."""
+    noun = "integer " if integer else ""
+    lo = ("> ", rule["gt"]) if "gt" in rule else (">= ", rule["ge"]) if "ge" in rule else None
+    hi = ("< ", rule["lt"]) if "lt" in rule else ("<= ", rule["le"]) if "le" in rule else None
+    if lo and hi and lo[0] == ">= " and hi[0] == "<= ":
+        text = f"{noun}{_num(lo[1])} to {_num(hi[1])}"
+    elif lo and hi:
+        text = f"{noun}{lo[0]}{_num(lo[1])} and {hi[0]}{_num(hi[1])}"
+    elif lo or hi:
+        bound = lo or hi
+        assert bound is not None
+        text = f"{noun}{bound[0]}{_num(bound[1])}"
+    else:
+        text = "any integer" if integer else "any finite number"
+    if rule.get("nonzero"):
+        text += " except 0"
+    return text
+
+
+def _allowed(rule: Mapping[str, Any]) -> str:
+    """What a field of the rule table accepts, in words: the ``(allowed: ...)`` of a problem."""
+    if "allowed" in rule:
+        return str(rule["allowed"])
+    kind = rule["type"]
+    if kind in ("number", "integer"):
+        return _bounds_text(rule, kind == "integer")
+    if kind == "choice":
+        return ", ".join(rule["values"])
+    if kind == "kind":
+        return ", ".join(KIND_CODES)
+    if kind == "text" and rule["charset"] == "identifier":
+        return f"text matching ^{_IDENTIFIER_CLASS}{{{rule['min_length']},{rule['max_length']}}}$"
+    if kind == "text":
+        if rule["min_length"] > 0:
+            return f"printable text of {rule['min_length']} to {rule['max_length']} characters"
+        return f"printable text of at most {rule['max_length']} characters"
+    if kind == "numbers":
+        return f"a list of {rule['count']} numbers, each {_bounds_text(rule['item'])}"
+    if kind == "list" and "max_items" in rule:
+        return f"a list of at most {rule['max_items']} items"
+    return "a table" if kind == "table" else "a list"
+
+
+def _bounds(rule: Mapping[str, Any]) -> dict[str, Any]:
+    return {b: rule[b] for b in ("gt", "ge", "lt", "le") if b in rule}
+
+
+def _nonzero(value: float) -> float:
+    if value == 0.0:
+        raise ValueError("must not be 0")
+    return value
 
 
 # --------------------------------------------------------------------------------------------
@@ -216,7 +326,7 @@ def _angle(a: Vec3, b: Vec3) -> float:
 
 
 # --------------------------------------------------------------------------------------------
-# features
+# models built from the table
 
 
 def _require_kind(schema: dict[str, Any]) -> None:
@@ -226,51 +336,216 @@ def _require_kind(schema: dict[str, Any]) -> None:
         required.insert(0, "kind")
 
 
+# the rules of each generated model, and the allowed text of each (model name, key)
+_RULES_OF: dict[type, dict[str, Any]] = {}
+_ALLOWED: dict[tuple[str, str], str] = {}
+
+
 class _Model(BaseModel):
-    """Common configuration: unknown keys are errors, no NaN/inf, immutable."""
+    """Common configuration: unknown keys are errors, no NaN/inf, immutable. Runs the table's
+    cross-field checks of its section after the fields are valid."""
 
     model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
+    @classmethod
+    def _table(cls) -> dict[str, Any]:
+        return next(_RULES_OF[k] for k in cls.__mro__ if k in _RULES_OF)
 
-class _FeatureBase(_Model):
-    """Fields every feature has. Subclasses fix ``kind`` and add their parameters."""
+    def _cross_checks(self) -> list[tuple[str, str]]:
+        """The table's cross-field checks of this model: (field, problem text) pairs."""
+        problems: list[tuple[str, str]] = []
+        for rules in self._rule_sets():
+            for field in rules["fields"]:
+                if field.get("ordered"):
+                    lo, hi = getattr(self, field["key"])
+                    if lo > hi:
+                        text = _problem("lo must be <= hi", "[lo, hi] with lo <= hi", [lo, hi])
+                        problems.append((field["key"], text))
+            for check in rules.get("checks", []):
+                problems.extend(_model_check(self, check, rules))
+        return problems
 
-    model_config = ConfigDict(json_schema_extra=_require_kind)
-
-    kind: str = Field(description="Feature kind.")
-    blend: Blend = Field(
-        default="add", description="How the feature's profile is combined with the height so far."
-    )
-    blend_width_m: FiniteFloat | None = Field(
-        default=None,
-        gt=0.0,
-        description="Blend width k in metres; required for smooth_max and smooth_min only.",
-    )
-    name: StrictStr | None = Field(default=None, description="Optional label.")
-
-    def validity_amplitude_m(self) -> float:
-        """This feature's term of the amplitude sum in docs/terrain.md "Validity" (metres)."""
-        raise NotImplementedError
-
-    def _checks(self) -> list[tuple[str, str]]:
-        """Cross-field checks of this kind: (field, problem text) pairs."""
-        return []
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        """Fill columns 3.. of the core row (directions and kind parameters)."""
-        raise NotImplementedError
+    def _rule_sets(self) -> list[dict[str, Any]]:
+        return [self._table()]
 
     @model_validator(mode="after")
-    def _check_feature(self) -> _FeatureBase:
-        problems: list[tuple[str, str]] = []
-        if self.blend in SMOOTH_BLENDS and self.blend_width_m is None:
-            problems.append(
-                ("blend_width_m", _problem(f"is required when blend is {self.blend!r}", "> 0"))
-            )
-        problems.extend(self._checks())
+    def _run_checks(self) -> _Model:
+        problems = self._cross_checks()
         if problems:
             raise _Problems(problems)
         return self
+
+
+def _model_check(
+    model: Any, check: Mapping[str, Any], rules: Mapping[str, Any]
+) -> list[tuple[str, str]]:
+    """One cross-field check of the table that needs this model alone."""
+    rule = check["rule"]
+    if rule == "required_if":
+        when = getattr(model, check["when"])
+        if when in check["in"] and getattr(model, check["key"]) is None:
+            what = f"is required when {check['when']} is {when!r}"
+            return [(check["key"], _problem(what, check["allowed"]))]
+    elif rule == "at_most_min":
+        value = getattr(model, check["key"])
+        limit = min(getattr(model, k) for k in check["of"])
+        if value > limit:
+            lower = _field_rule(rules, check["key"]).get("ge", 0.0)
+            what = f"must be <= min({', '.join(check['of'])}) = {_num(limit)}"
+            return [(check["key"], _problem(what, f"{_num(lower)} to {_num(limit)}", value))]
+    elif rule == "arc":
+        arc = model.arc_deg()
+        allowed = f"arc angle in (0°, {_num(check['max_deg'])}°]"
+        if arc < check["min_deg"]:
+            return [("", _problem("end points must be distinct", allowed, exact_got=f"{arc:.6g}°"))]
+        if arc > check["max_deg"] + _ANGLE_SLACK_DEG:
+            what = f"end points must be at most {_num(check['max_deg'])}° apart"
+            return [("", _problem(what, allowed, exact_got=f"{arc:.6g}°"))]
+    return []  # world-level checks run in WorldSpec
+
+
+def _field_def(rule: Mapping[str, Any], models: Mapping[str, Any]) -> tuple[Any, Any]:
+    """The pydantic (annotation, FieldInfo) of one field rule of the table."""
+    kind = rule["type"]
+    extra: dict[str, Any] = {}
+    meta: list[Any] = []
+    if kind == "number":
+        ann: Any = FiniteFloat
+        if rule.get("nonzero"):
+            meta.append(AfterValidator(_nonzero))
+            extra["json_schema_extra"] = {"not": {"const": 0}}
+    elif kind == "integer":
+        ann = StrictInt
+    elif kind == "choice":
+        ann = Literal[tuple(rule["values"])]
+    elif kind == "text" and rule["charset"] == "identifier":
+        ann = StrictStr
+        extra["pattern"] = f"^{_IDENTIFIER_CLASS}{{{rule['min_length']},{rule['max_length']}}}$"
+    elif kind == "text":
+        ann = StrictStr
+        meta.append(
+            Field(
+                min_length=rule["min_length"],
+                max_length=rule["max_length"],
+                json_schema_extra={"pattern": "^[^\\u0000-\\u001f\\u007f-\\u009f]*$"},
+            )
+        )
+        meta.append(AfterValidator(_printable))
+    elif kind == "numbers":
+        item = Annotated[FiniteFloat, Field(**_bounds(rule["item"]))]
+        items = (item,) * int(rule["count"])
+        ann = tuple[items]  # type: ignore[valid-type]
+    elif kind == "table":
+        ann = models[rule["section"]]
+        extra["default_factory"] = ann
+    elif kind == "list":
+        element = models[rule["of"]]
+        ann = list[element]  # type: ignore[valid-type]
+        extra["default_factory"] = list
+        if "max_items" in rule:
+            extra["max_length"] = rule["max_items"]
+    else:
+        raise ValueError(f"spec_rules.json: unknown field type {kind!r}")
+    if meta:
+        ann = Annotated[(ann, *meta)]
+    if kind in ("number", "integer"):
+        extra.update(_bounds(rule))
+    if rule.get("nullable"):
+        ann = ann | None
+        extra["default"] = None
+    elif "default" in rule:
+        default = rule["default"]
+        extra["default"] = tuple(default) if isinstance(default, list) else default
+    field = Field(description=rule.get("doc"), **extra)
+    return ann, field
+
+
+def _make_model(
+    name: str,
+    base: type[_Model],
+    rules: dict[str, Any],
+    fields: list[dict[str, Any]],
+    models: Mapping[str, Any],
+    doc: str,
+    **more: tuple[Any, Any],
+) -> Any:
+    defs = {**more, **{f["key"]: _field_def(f, models) for f in fields}}
+    model = create_model(name, __base__=base, __module__=__name__, __doc__=doc, **defs)
+    _RULES_OF[model] = rules
+    for f in fields:
+        _ALLOWED[(name, f["key"])] = _allowed(f)
+    return model
+
+
+# --------------------------------------------------------------------------------------------
+# features
+
+
+class _FeatureBase(_Model):
+    """Fields every feature has (generated from the table); one subclass per kind."""
+
+    model_config = ConfigDict(json_schema_extra=_require_kind)
+
+    kind: str
+
+    def _rule_sets(self) -> list[dict[str, Any]]:
+        return [_SECTIONS["feature"], _KINDS[self.kind]]
+
+    def directions(self) -> list[Vec3]:
+        """The unit directions of this feature's row (centre; ridge: both ends), (3,) each."""
+        return [
+            unit_vector(*(getattr(self, k) for k in entry["direction"]))
+            for entry in _KINDS[self.kind]["row"]
+            if "direction" in entry
+        ]
+
+    def centre(self) -> Vec3:
+        """Centre direction ``c = u(lat_deg, lon_deg)`` (ridge: its start), (3,) float64."""
+        return self.directions()[0]
+
+    def endpoints(self) -> tuple[Vec3, Vec3]:
+        """End directions ``c0, c1`` of a kind with an arc rule (a ridge), each (3,) float64."""
+        arc = _check(_KINDS[self.kind], "arc")
+        c0 = unit_vector(*(getattr(self, k) for k in arc["from"]))
+        return c0, unit_vector(*(getattr(self, k) for k in arc["to"]))
+
+    def arc_deg(self) -> float:
+        """Angle of the arc between the end points, degrees."""
+        c0, c1 = self.endpoints()
+        return math.degrees(_angle(c0, c1))
+
+    def footprint_angle_deg(self, radius_m: float) -> float:
+        """Largest angle (degrees) between the centre and a point of the footprint ``s <= wall_m``
+        of a kind with a ``footprint`` entry (a block).
+
+        The footprint is the rounded rectangle grown by ``wall_m``. A point with local
+        coordinates (x, y) lies at angle θ from the centre with
+        ``tan²θ = tan²(x/R) + tan²(y/R)`` (from the definition of x and y in docs/terrain.md);
+        that grows with |x| and |y|, so the farthest point is on the outer corner arc, which is
+        sampled finely. Returns at least 90 when the footprint reaches past the hemisphere.
+        """
+        fp = _KINDS[self.kind]["footprint"]
+        half_x, half_y = (getattr(self, k) for k in fp["half"])
+        r = getattr(self, fp["corner"])
+        grown = r + getattr(self, fp["grow"])
+        t = np.linspace(0.0, 0.5 * math.pi, 1025)
+        x = (half_x - r + grown * np.cos(t)) / radius_m
+        y = (half_y - r + grown * np.sin(t)) / radius_m
+        reach = float(max(x.max(), y.max()))
+        if reach >= 0.5 * math.pi:
+            return math.degrees(reach)
+        tan2 = np.tan(x) ** 2 + np.tan(y) ** 2
+        return math.degrees(math.atan(math.sqrt(float(tan2.max()))))
+
+    def validity_amplitude_m(self) -> float:
+        """This feature's term of the amplitude sum in docs/terrain.md "Validity" (metres)."""
+        amp = _KINDS[self.kind]["amplitude"]
+        if "abs" in amp:
+            return float(sum(abs(getattr(self, k)) for k in amp["abs"]))
+        if "sum" in amp:
+            return float(sum(getattr(self, k) for k in amp["sum"]))
+        a, gain, terms = (getattr(self, k) for k in amp["abs_geometric"])
+        return abs(a) * sum(gain**k for k in range(terms))
 
     def core_row(self) -> npt.NDArray[np.float64]:
         """This feature as one row of the core feature table.
@@ -281,376 +556,146 @@ class _FeatureBase(_Model):
             Column layout as in :meth:`WorldSpec.core_features`.
         """
         row = np.zeros(CORE_COLUMNS, dtype=np.float64)
-        row[0] = KIND_CODES[self.kind]
-        row[1] = BLEND_CODES[self.blend]
-        if self.blend in SMOOTH_BLENDS and self.blend_width_m is not None:
-            row[2] = self.blend_width_m
-        self._params(row)
+        for rules in self._rule_sets():
+            for entry in rules["row"]:
+                col = entry["col"]
+                if "code" in entry:
+                    row[col] = KIND_CODES[self.kind]
+                elif "direction" in entry:
+                    row[col : col + 3] = unit_vector(
+                        *(getattr(self, k) for k in entry["direction"])
+                    )
+                elif (
+                    "only_if" in entry
+                    and getattr(self, entry["only_if"]["key"]) not in entry["only_if"]["in"]
+                ):
+                    continue
+                else:
+                    value = getattr(self, entry["key"])
+                    rule = _field_rule(rules, entry["key"])
+                    if rule["type"] == "choice":
+                        value = rule["values"].index(value)
+                    row[col] = math.radians(value) if entry.get("radians") else value
         return row
 
 
-class _Centred(_FeatureBase):
-    """A feature placed around one centre direction."""
-
-    lat_deg: FiniteFloat = Field(ge=-90.0, le=90.0, description="Latitude of the centre, degrees.")
-    lon_deg: FiniteFloat = Field(
-        ge=-180.0, le=180.0, description="Longitude of the centre, degrees."
-    )
-
-    def centre(self) -> Vec3:
-        """Centre direction ``c = u(lat_deg, lon_deg)``, (3,) float64."""
-        return unit_vector(self.lat_deg, self.lon_deg)
-
-
-class Hill(_Centred):
-    """Gaussian hill (amplitude > 0) or valley (amplitude < 0)."""
-
-    kind: Literal["hill"] = "hill"
-    amplitude_m: FiniteFloat = Field(
-        description="Peak height in metres; negative for a valley.",
-        json_schema_extra={"not": {"const": 0}},
-    )
-    sigma_m: FiniteFloat = Field(gt=0.0, description="Gaussian width σ along the surface, metres.")
-
-    @field_validator("amplitude_m")
-    @classmethod
-    def _nonzero(cls, value: float) -> float:
-        if value == 0.0:
-            raise ValueError("must not be 0")
-        return value
-
-    def validity_amplitude_m(self) -> float:
-        return abs(self.amplitude_m)
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        row[3:6] = self.centre()
-        row[9] = self.amplitude_m
-        row[10] = self.sigma_m
+def _feature_models() -> dict[str, type[_FeatureBase]]:
+    common = _SECTIONS["feature"]["fields"]
+    out: dict[str, type[_FeatureBase]] = {}
+    for kind, rules in _KINDS.items():
+        kind_field = (Literal[kind], Field(default=kind, description=common[0]["doc"]))
+        out[kind] = _make_model(
+            rules["model"],
+            _FeatureBase,
+            rules,
+            common[1:] + rules["fields"],
+            {},
+            rules["doc"],
+            kind=kind_field,
+        )
+    return out
 
 
-class Mesa(_Centred):
-    """Flat-topped disc; ``wall_m = 0`` gives a vertical wall."""
+FEATURE_MODELS: dict[str, type[_FeatureBase]] = _feature_models()
+"""The model of each feature kind, in the order of the table's ``kinds``."""
 
-    kind: Literal["mesa"] = "mesa"
-    height_m: FiniteFloat = Field(description="Height of the flat top, metres.")
-    radius_m: FiniteFloat = Field(gt=0.0, description="Radius of the flat top, metres.")
-    wall_m: FiniteFloat = Field(ge=0.0, description="Width of the wall, metres (0: vertical).")
+Hill = FEATURE_MODELS["hill"]
+Mesa = FEATURE_MODELS["mesa"]
+Block = FEATURE_MODELS["block"]
+Crater = FEATURE_MODELS["crater"]
+Ridge = FEATURE_MODELS["ridge"]
+Noise = FEATURE_MODELS["noise"]
 
-    def validity_amplitude_m(self) -> float:
-        return abs(self.height_m)
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        row[3:6] = self.centre()
-        row[9] = self.height_m
-        row[10] = self.radius_m
-        row[11] = self.wall_m
-
-
-class Block(_Centred):
-    """Oriented rounded rectangle in the local tangent frame of its centre."""
-
-    kind: Literal["block"] = "block"
-    height_m: FiniteFloat = Field(description="Height of the top, metres.")
-    half_x_m: FiniteFloat = Field(gt=0.0, description="Half size along local X, metres.")
-    half_y_m: FiniteFloat = Field(gt=0.0, description="Half size along local Y, metres.")
-    heading_deg: FiniteFloat = Field(
-        ge=-360.0, le=360.0, description="Rotation of local X counter-clockwise from east, degrees."
-    )
-    corner_m: FiniteFloat = Field(
-        ge=0.0, description="Corner radius, metres; at most min(half_x_m, half_y_m)."
-    )
-    wall_m: FiniteFloat = Field(ge=0.0, description="Width of the wall, metres (0: vertical).")
-
-    def _checks(self) -> list[tuple[str, str]]:
-        limit = min(self.half_x_m, self.half_y_m)
-        if self.corner_m > limit:
-            return [
-                (
-                    "corner_m",
-                    _problem(
-                        f"must be <= min(half_x_m, half_y_m) = {_num(limit)}",
-                        f"0 to {_num(limit)}",
-                        self.corner_m,
-                    ),
-                )
-            ]
-        return []
-
-    def footprint_angle_deg(self, radius_m: float) -> float:
-        """Largest angle (degrees) between the centre and a point of the footprint ``s <= wall_m``.
-
-        The footprint is the rounded rectangle grown by ``wall_m``. A point with local
-        coordinates (x, y) lies at angle θ from the centre with
-        ``tan²θ = tan²(x/R) + tan²(y/R)`` (from the definition of x and y in docs/terrain.md);
-        that grows with |x| and |y|, so the farthest point is on the outer corner arc, which is
-        sampled finely. Returns at least 90 when the footprint reaches past the hemisphere.
-        """
-        r = self.corner_m
-        grown = r + self.wall_m
-        t = np.linspace(0.0, 0.5 * math.pi, 1025)
-        x = (self.half_x_m - r + grown * np.cos(t)) / radius_m
-        y = (self.half_y_m - r + grown * np.sin(t)) / radius_m
-        reach = float(max(x.max(), y.max()))
-        if reach >= 0.5 * math.pi:
-            return math.degrees(reach)
-        tan2 = np.tan(x) ** 2 + np.tan(y) ** 2
-        return math.degrees(math.atan(math.sqrt(float(tan2.max()))))
-
-    def validity_amplitude_m(self) -> float:
-        return abs(self.height_m)
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        row[3:6] = self.centre()
-        row[9] = self.height_m
-        row[10] = self.half_x_m
-        row[11] = self.half_y_m
-        row[12] = self.corner_m
-        row[13] = self.wall_m
-        row[14] = math.radians(self.heading_deg)
-
-
-class Crater(_Centred):
-    """Bowl with a raised rim."""
-
-    kind: Literal["crater"] = "crater"
-    radius_m: FiniteFloat = Field(gt=0.0, description="Radius of the rim crest, metres.")
-    depth_m: FiniteFloat = Field(ge=0.0, description="Depth of the floor below the rim base, m.")
-    rim_height_m: FiniteFloat = Field(ge=0.0, description="Height of the rim crest, metres.")
-    rim_width_m: FiniteFloat = Field(gt=0.0, description="Width of the rim's outer slope, m.")
-
-    def validity_amplitude_m(self) -> float:
-        return self.depth_m + self.rim_height_m
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        row[3:6] = self.centre()
-        row[9] = self.depth_m
-        row[10] = self.radius_m
-        row[11] = self.rim_height_m
-        row[12] = self.rim_width_m
-
-
-class Ridge(_FeatureBase):
-    """Great-circle arc from (lat0, lon0) to (lat1, lon1) with a cross-section profile."""
-
-    kind: Literal["ridge"] = "ridge"
-    lat0_deg: FiniteFloat = Field(ge=-90.0, le=90.0, description="Latitude of the start, deg.")
-    lon0_deg: FiniteFloat = Field(ge=-180.0, le=180.0, description="Longitude of the start, deg.")
-    lat1_deg: FiniteFloat = Field(ge=-90.0, le=90.0, description="Latitude of the end, deg.")
-    lon1_deg: FiniteFloat = Field(ge=-180.0, le=180.0, description="Longitude of the end, deg.")
-    height_m: FiniteFloat = Field(description="Height of the crest, metres.")
-    half_width_m: FiniteFloat = Field(gt=0.0, description="Half width of the cross-section, m.")
-    profile: Profile = Field(default="round", description="Cross-section shape.")
-
-    def endpoints(self) -> tuple[Vec3, Vec3]:
-        """End directions ``c0, c1``, each (3,) float64."""
-        return unit_vector(self.lat0_deg, self.lon0_deg), unit_vector(self.lat1_deg, self.lon1_deg)
-
-    def arc_deg(self) -> float:
-        """Angle of the arc between the end points, degrees."""
-        c0, c1 = self.endpoints()
-        return math.degrees(_angle(c0, c1))
-
-    def _checks(self) -> list[tuple[str, str]]:
-        arc = self.arc_deg()
-        allowed = f"arc angle in (0°, {_num(MAX_RIDGE_ARC_DEG)}°]"
-        if arc < MIN_RIDGE_ARC_DEG:
-            return [("", _problem("end points must be distinct", allowed, exact_got=f"{arc:.6g}°"))]
-        if arc > MAX_RIDGE_ARC_DEG + _ANGLE_SLACK_DEG:
-            what = f"end points must be at most {_num(MAX_RIDGE_ARC_DEG)}° apart"
-            return [("", _problem(what, allowed, exact_got=f"{arc:.6g}°"))]
-        return []
-
-    def validity_amplitude_m(self) -> float:
-        return abs(self.height_m)
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        c0, c1 = self.endpoints()
-        row[3:6] = c0
-        row[6:9] = c1
-        row[9] = self.height_m
-        row[10] = self.half_width_m
-        row[11] = PROFILE_CODES[self.profile]
-
-
-class Noise(_FeatureBase):
-    """Fractal improved gradient noise over the whole world."""
-
-    kind: Literal["noise"] = "noise"
-    amplitude_m: FiniteFloat = Field(description="Amplitude of the first octave, metres.")
-    frequency_per_m: FiniteFloat = Field(gt=0.0, description="Frequency of the first octave, 1/m.")
-    octaves: StrictInt = Field(default=4, ge=1, le=12, description="Number of octaves.")
-    gain: FiniteFloat = Field(
-        default=0.5, gt=0.0, le=1.0, description="Amplitude factor from one octave to the next."
-    )
-    seed: StrictInt = Field(default=0, ge=0, le=2**32 - 1, description="Permutation seed.")
-
-    def validity_amplitude_m(self) -> float:
-        return abs(self.amplitude_m) * sum(self.gain**k for k in range(self.octaves))
-
-    def _params(self, row: npt.NDArray[np.float64]) -> None:
-        row[9] = self.amplitude_m
-        row[10] = self.frequency_per_m
-        row[11] = self.octaves
-        row[12] = self.gain
-        row[13] = self.seed
-
-
-Feature = Annotated[Hill | Mesa | Block | Crater | Ridge | Noise, Field(discriminator="kind")]
+Feature = Annotated[
+    functools.reduce(operator.or_, FEATURE_MODELS.values()),  # type: ignore[arg-type]
+    Field(discriminator="kind"),
+]
 """Any feature; the ``kind`` key selects the model."""
-
-FEATURE_MODELS: dict[str, type[_FeatureBase]] = {
-    "hill": Hill,
-    "mesa": Mesa,
-    "block": Block,
-    "crater": Crater,
-    "ridge": Ridge,
-    "noise": Noise,
-}
 
 
 # --------------------------------------------------------------------------------------------
-# layers and the world
+# layers, settings and the world
 
 
-class Layer(_Model):
+def _section(name: str, models: dict[str, Any], base: type[_Model] = _Model) -> Any:
+    rules = _SECTIONS[name]
+    model = _make_model(rules["model"], base, rules, rules["fields"], models, rules["doc"])
+    models[name] = model
+    return model
+
+
+_MODELS: dict[str, Any] = {"feature": Feature}
+
+
+class Layer(_section("layer", _MODELS)):  # type: ignore[misc]
     """A material layer rule: applies where slope and altitude fall in both bands."""
 
-    name: StrictStr = Field(min_length=1, description="Layer name.")
-    color: tuple[UnitFloat, UnitFloat, UnitFloat] = Field(
-        description="Linear RGB colour, each channel 0..1."
-    )
-    slope_deg: tuple[SlopeDeg, SlopeDeg] = Field(
-        default=(0.0, 90.0), description="Slope band [lo, hi] in degrees, lo <= hi."
-    )
-    altitude_m: tuple[FiniteFloat, FiniteFloat] = Field(
-        default=(-1e9, 1e9), description="Altitude band [lo, hi] in metres above radius_m."
-    )
 
-    @model_validator(mode="after")
-    def _check_bands(self) -> Layer:
-        problems: list[tuple[str, str]] = []
-        for field in ("slope_deg", "altitude_m"):
-            lo, hi = getattr(self, field)
-            if lo > hi:
-                text = _problem("lo must be <= hi", "[lo, hi] with lo <= hi", [lo, hi])
-                problems.append((field, text))
-        if problems:
-            raise _Problems(problems)
-        return self
-
-
-class LodSettings(_Model):
+class LodSettings(_section("lod", _MODELS)):  # type: ignore[misc]
     """Levels of detail and chunks."""
 
-    levels: StrictInt = Field(
-        default=4, ge=1, le=12, description="Number of levels; level 0 is the finest."
-    )
-    ratio: FiniteFloat = Field(
-        default=2.0,
-        gt=1.0,
-        le=16.0,
-        description="Tolerance of level k is tolerance_m * ratio^k.",
-    )
-    chunk_level: StrictInt = Field(
-        default=1, ge=0, le=5, description="The sphere is split into 20 * 4^chunk_level chunks."
-    )
-    seams: Literal["stitch", "skirt"] = Field(
-        default="stitch",
-        description="How a chunk meets a one-level-coarser neighbour: stitched index buffers "
-        "(no crack, no T-junction) or skirts hanging below the chunk's edges.",
-    )
-    skirt_depth_m: FiniteFloat = Field(
-        default=0.0,
-        ge=0.0,
-        le=1e5,
-        description="Skirt depth in metres (0: twice the coarsest level's tolerance).",
-    )
 
-
-class CollisionSettings(_Model):
+class CollisionSettings(_section("collision", _MODELS)):  # type: ignore[misc]
     """Collision meshes, one per chunk."""
 
-    tolerance_m: FiniteFloat | None = Field(
-        default=None, gt=0.0, description="Collider tolerance (default: 4 x tolerance_m)."
-    )
-    bias: Literal["none", "centered"] = Field(
-        default="centered",
-        description="centered: move collider vertices radially so the collider straddles the "
-        "true surface (bodies neither float above it nor sink into it); none: vertices on it.",
-    )
-    max_triangles_per_chunk: StrictInt = Field(
-        default=65535,
-        ge=16,
-        le=10_000_000,
-        description="Triangle cap per chunk collider; the collider tolerance is raised until "
-        "every chunk fits.",
-    )
+
+_MODELS.update(layer=Layer, lod=LodSettings, collision=CollisionSettings)
 
 
-class WorldSpec(_Model):
+class _WorldChecks(_Model):
+    """The world-level checks of the table (they need the radius and every feature)."""
+
+    def _cross_checks(self) -> list[tuple[str, str]]:
+        problems: list[tuple[str, str]] = []
+        for check in _SECTIONS["world"]["checks"]:
+            rule = check["rule"]
+            if rule == "at_most_fraction":
+                value, limit = getattr(self, check["key"]), getattr(self, check["of"])
+                limit /= check["divisor"]
+                if value > limit:
+                    what = f"must be <= {check['of']} / {_num(check['divisor'])} = {_num(limit)}"
+                    lower = _bounds_text(_field_rule(_SECTIONS["world"], check["key"]))
+                    allowed = f"{lower} and <= {_num(limit)}"
+                    problems.append((check["key"], _problem(what, allowed, value)))
+            elif rule == "block_footprint":
+                problems.extend(self._footprints(check["max_deg"]))
+            elif rule == "amplitude_sum":
+                total = sum(f.validity_amplitude_m() for f in self.features)
+                frac = check["below_fraction"]
+                cap = frac * getattr(self, check["of"])
+                if total >= cap:
+                    what = (
+                        f"sum of |amplitudes| (heights, depths, rim heights, noise amplitude · "
+                        f"Σ gain^k) must be < {_num(frac)} · {check['of']} = {_num(cap)}"
+                    )
+                    got = f"{_num(total)} m"
+                    problems.append(("features", _problem(what, f"< {_num(cap)} m", exact_got=got)))
+        return problems
+
+    def _footprints(self, max_deg: float) -> list[tuple[str, str]]:
+        problems: list[tuple[str, str]] = []
+        for i, feature in enumerate(self.features):
+            if "footprint" not in _KINDS[feature.kind]:
+                continue
+            reach = feature.footprint_angle_deg(self.radius_m)
+            if reach > max_deg + _ANGLE_SLACK_DEG:
+                what = (
+                    f"{feature.kind} footprint (half sizes grown by wall_m) must stay within "
+                    f"{_num(max_deg)}° of its centre"
+                )
+                allowed = f"<= {_num(max_deg)}° at radius_m = {_num(self.radius_m)}"
+                got = f"{reach:.4g}°"
+                problems.append((f"features[{i}]", _problem(what, allowed, exact_got=got)))
+        return problems
+
+
+class WorldSpec(_section("world", _MODELS, _WorldChecks)):  # type: ignore[misc]
     """One world: base sphere, ordered features and material layers.
 
     Build one with :func:`load_spec` or :func:`parse_spec`; change one with
     ``spec.model_copy(update=...)`` (which does not re-validate; pass the result's
     ``model_dump()`` through :func:`parse_spec` to check it again).
     """
-
-    name: StrictStr = Field(
-        pattern=r"^[A-Za-z0-9_-]{1,64}$", description="World name, used for output file names."
-    )
-    radius_m: FiniteFloat = Field(ge=1.0, le=1e6, description="Base radius R in metres.")
-    tolerance_m: FiniteFloat = Field(
-        gt=0.0, description="Mesh tolerance in metres; at most radius_m / 10."
-    )
-    offset: Offset = Field(default="normal", description="How the mesher measures offset.")
-    max_triangles: StrictInt = Field(
-        default=8_000_000, ge=20, le=200_000_000, description="Triangle budget."
-    )
-    lod: LodSettings = Field(default_factory=LodSettings, description="Levels and chunks.")
-    collision: CollisionSettings = Field(
-        default_factory=CollisionSettings, description="Collision meshes."
-    )
-    features: list[Feature] = Field(default_factory=list, description="Features, in order.")
-    layers: list[Layer] = Field(
-        default_factory=list,
-        max_length=255,
-        description="Material layer rules; the first match wins (at most 255: layer 255 means "
-        "no rule matched).",
-    )
-
-    @model_validator(mode="after")
-    def _check_world(self) -> WorldSpec:
-        problems: list[tuple[str, str]] = []
-        limit = self.radius_m / 10.0
-        if self.tolerance_m > limit:
-            what = f"must be <= radius_m / 10 = {_num(limit)}"
-            problems.append(
-                ("tolerance_m", _problem(what, f"> 0 and <= {_num(limit)}", self.tolerance_m))
-            )
-        for i, feature in enumerate(self.features):
-            if isinstance(feature, Block):
-                reach = feature.footprint_angle_deg(self.radius_m)
-                if reach > MAX_BLOCK_ANGLE_DEG + _ANGLE_SLACK_DEG:
-                    what = (
-                        f"block footprint (half sizes grown by wall_m) must stay within "
-                        f"{_num(MAX_BLOCK_ANGLE_DEG)}° of its centre"
-                    )
-                    allowed = f"<= {_num(MAX_BLOCK_ANGLE_DEG)}° at radius_m = {_num(self.radius_m)}"
-                    got = f"{reach:.4g}°"
-                    problems.append((f"features[{i}]", _problem(what, allowed, exact_got=got)))
-        total = sum(f.validity_amplitude_m() for f in self.features)
-        cap = AMPLITUDE_LIMIT * self.radius_m
-        if total >= cap:
-            what = (
-                f"sum of |amplitudes| (heights, depths, rim heights, noise amplitude · Σ gain^k) "
-                f"must be < {_num(AMPLITUDE_LIMIT)} · radius_m = {_num(cap)}"
-            )
-            problems.append(
-                ("features", _problem(what, f"< {_num(cap)} m", exact_got=f"{_num(total)} m"))
-            )
-        if problems:
-            raise _Problems(problems)
-        return self
 
     def core_features(self) -> npt.NDArray[np.float64]:
         """The features as the table the C++ core evaluates.
@@ -661,7 +706,7 @@ class WorldSpec(_Model):
             One row per feature, in spec order. Columns: 0 kind code (:data:`KIND_CODES`),
             1 blend code (:data:`BLEND_CODES`), 2 blend width k (0 unless smooth_max/min),
             3..5 centre unit vector c (ridge: c0; noise: 0), 6..8 ridge end c1 (else 0),
-            9.. kind parameters:
+            9.. kind parameters (the ``row`` of each kind in ``spec_rules.json``):
 
             - hill: 9 amplitude_m, 10 sigma_m
             - mesa: 9 height_m, 10 radius_m, 11 wall_m
@@ -707,15 +752,6 @@ def json_schema() -> dict[str, Any]:
 # --------------------------------------------------------------------------------------------
 # turning pydantic errors into problem lines
 
-# allowed ranges that the JSON schema alone cannot state (they depend on other fields)
-_ALLOWED_OVERRIDES: dict[str, str] = {
-    "tolerance_m": "> 0 and <= radius_m / 10",
-    "corner_m": "0 to min(half_x_m, half_y_m)",
-    "blend_width_m": "> 0; required for smooth_max and smooth_min",
-    "slope_deg": "[lo, hi] with 0 <= lo <= hi <= 90",
-    "altitude_m": "[lo, hi] of finite numbers with lo <= hi",
-}
-
 _TYPE_WORDS = {
     "float_type": "must be a number",
     "int_type": "must be an integer",
@@ -760,7 +796,8 @@ def _walk(
             node = _deref(root, {"$ref": mapping[item]})
             continue
         parent = node
-        path = f"{path}.{item}" if path else item
+        key = _path_key(item)
+        path = f"{path}.{key}" if path else key
         node = node.get("properties", {}).get(item, {})
     return path or "(top level)", _deref(root, node), parent
 
@@ -800,9 +837,7 @@ def _describe(root: dict[str, Any], node: dict[str, Any]) -> str:
             text += f" except {_num(node['not']['const'])}"
         return text
     if kind == "string":
-        if "pattern" in node:
-            return f"text matching {node['pattern']}"
-        return "text" if "minLength" not in node else "non-empty text"
+        return "text"
     if kind == "array":
         items = node.get("prefixItems")
         if items:
@@ -823,7 +858,8 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
     value = error.get("input", ...)
     path, node, parent = _walk(root, error["loc"])
     last = error["loc"][-1] if error["loc"] else None
-    allowed = _ALLOWED_OVERRIDES.get(last, "") if isinstance(last, str) else ""
+    model = WorldSpec.__name__ if parent is root else (parent or {}).get("title", "")
+    allowed = _ALLOWED.get((model, last), "") if isinstance(last, str) else ""
     allowed = allowed or _describe(root, node)
 
     if kind == "value_error" and isinstance(ctx.get("error"), _Problems):
@@ -858,8 +894,10 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
         what = f"must be {bounds[kind]} {_num(limit)}"
     elif kind == "literal_error":
         what = "unknown value"
-    elif kind in ("too_short", "too_long"):
-        what = f"must have {node.get('minItems', '?')} items"
+    elif kind == "too_long" and node.get("minItems") == node.get("maxItems"):
+        what = f"must have {node.get('maxItems')} items"  # a fixed-length list
+    elif kind == "too_long":
+        what = f"must have at most {ctx.get('max_length', '?')} items"
     elif kind == "value_error":
         what = str(ctx.get("error", error["msg"]))
     elif kind in _TYPE_WORDS:
@@ -868,6 +906,86 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
         msg = str(error["msg"])
         what = msg[:1].lower() + msg[1:]
     return [f"{path}: {_problem(what, allowed, value)}"]
+
+
+# --------------------------------------------------------------------------------------------
+# input limits: nothing a user feeds in reaches a traceback (deep nesting, huge files, text that
+# is not Unicode). The limits are the table's, the same as the C ABI's reader.
+
+
+def _scan_depth(text: str, tokens: re.Pattern[str], limit: int, toml: bool) -> int | None:
+    """Offset of the first bracket nested deeper than ``limit`` levels, or None (iterative).
+
+    The document itself is level 1, as in the C reader. In TOML, a ``[`` that opens a line at
+    depth 0 is a table header, not an array: its line is skipped.
+    """
+    depth = 1 if toml else 0
+    line_start = 0
+    i, n = 0, len(text)
+    while i < n:
+        m = tokens.search(text, i)
+        if m is None:
+            return None
+        tok, i = m.group(), m.end()
+        if tok == "\n":
+            line_start = i
+        elif tok in "[{":
+            if toml and depth == 1 and tok == "[" and not text[line_start : m.start()].strip():
+                nl = text.find("\n", i)
+                i, line_start = (n, n) if nl < 0 else (nl + 1, nl + 1)
+                continue
+            depth += 1
+            if depth > limit:
+                return m.start()
+        elif tok in "]}":
+            depth = max(depth - 1, 1 if toml else 0)
+    return None
+
+
+_JSON_TOKENS = re.compile(r'"(?:[^"\\]|\\.)*"|[\[\]{}\n]')
+_TOML_TOKENS = re.compile(
+    r'"""(?:[^\\]|\\.)*?"""|\'\'\'[\s\S]*?\'\'\'|"(?:[^"\\\n]|\\.)*"|\'[^\'\n]*\'|#[^\n]*|[\[\]{}\n]'
+)
+
+
+def _line_col(text: str, offset: int) -> str:
+    line = text.count("\n", 0, offset) + 1
+    return f"line {line}, column {offset - (text.rfind(chr(10), 0, offset) + 1) + 1}"
+
+
+def _input_problems(data: Any) -> list[str]:
+    """Nesting depth, value count and lone surrogates of parsed data, walked without recursion."""
+    max_depth, max_values = LIMITS["max_depth"], LIMITS["max_values"]
+    stack: list[tuple[Any, str, int]] = [(data, "", 1)]
+    count = 0
+    while stack:
+        value, path, depth = stack.pop()
+        count += 1
+        if count > max_values:
+            return [f"(top level): more than {max_values} values (allowed: at most {max_values})"]
+        where = path or "(top level)"
+        if isinstance(value, str):
+            bad = next((i for i, c in enumerate(value) if _is_surrogate(c)), None)
+            if bad is not None:
+                what = (
+                    f"is not Unicode text: lone surrogate U+{ord(value[bad]):04X} at position {bad}"
+                )
+                return [_problem(f"{where}: {what}", "Unicode text without lone surrogates")]
+            continue
+        if isinstance(value, Mapping | list | tuple) and depth > max_depth:
+            what = f"nested deeper than {max_depth} levels"
+            return [_problem(f"{where}: {what}", f"at most {max_depth} levels of tables and lists")]
+        if isinstance(value, Mapping):
+            for key, item in value.items():
+                key_path = _path_key(str(key))
+                key_path = f"{path}.{key_path}" if path else key_path
+                if isinstance(key, str) and any(_is_surrogate(c) for c in key):
+                    what = "key is not Unicode text: it holds a lone surrogate"
+                    return [_problem(f"{key_path}: {what}", "Unicode text without lone surrogates")]
+                stack.append((item, key_path, depth + 1))
+        elif isinstance(value, list | tuple):
+            stack.extend((item, f"{path}[{i}]", depth + 1) for i, item in enumerate(value))
+    return []
 
 
 # --------------------------------------------------------------------------------------------
@@ -880,10 +998,15 @@ def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     Raises
     ------
     SpecError
-        Listing every problem found; ``source`` names the spec in the message.
+        Listing every problem found; ``source`` names the spec in the message. Data nested
+        deeper than ``LIMITS["max_depth"]`` levels, with more than ``LIMITS["max_values"]``
+        values or with lone surrogates in its text is refused before validation.
     """
     if not isinstance(data, Mapping):
         raise SpecError(source, [_problem("(top level): must be a table", "a table", data)])
+    refused = _input_problems(data)
+    if refused:
+        raise SpecError(source, refused)
     try:
         return WorldSpec.model_validate(dict(data))
     except ValidationError as exc:
@@ -904,23 +1027,16 @@ def _reject_duplicate_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
     return out
 
 
-def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
-    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
-
-    Raises
-    ------
-    SpecError
-        When the file is missing or unreadable, is not well-formed TOML/JSON (the message gives
-        the line and column), or describes an invalid world (every problem listed).
-    """
-    file = Path(path)
-    source = str(file)
-    suffix = file.suffix.lower()
-    if suffix not in (".toml", ".json"):
-        problem = _problem("unsupported file type", ".toml or .json", suffix or "(none)")
-        raise SpecError(source, [problem], what="cannot read world spec")
+def _read_text(file: Path, source: str) -> str:
+    """The file's text, refusing files over the size limit and text that is not UTF-8."""
+    limit = LIMITS["max_bytes"]
     try:
-        text = file.read_bytes().decode("utf-8")
+        with file.open("rb") as f:
+            raw = f.read(limit + 1)
+        if len(raw) > limit:
+            problem = f"the file is larger than the limit of {limit} bytes"
+            raise SpecError(source, [problem], what="cannot read world spec")
+        return raw.decode("utf-8")
     except FileNotFoundError:
         raise SpecError(source, ["file not found"], what="cannot read world spec") from None
     except UnicodeDecodeError as exc:
@@ -930,25 +1046,60 @@ def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
         problem = exc.strerror or str(exc)
         raise SpecError(source, [problem], what="cannot read world spec") from None
 
-    data: Any
-    if suffix == ".toml":
-        try:
-            data = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as exc:
-            match = _TOML_POSITION.match(str(exc))
-            if match:
-                where = f"line {match['line']}, column {match['col']}"
-                problem = f"malformed TOML at {where}: {match['msg']}"
-            else:
-                problem = f"malformed TOML: {exc}"
-            raise SpecError(source, [problem], what="cannot read world spec") from None
-    else:
-        try:
-            data = json.loads(text, object_pairs_hook=_reject_duplicate_keys)
-        except json.JSONDecodeError as exc:
-            problem = f"malformed JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}"
-            raise SpecError(source, [problem], what="cannot read world spec") from None
-        except ValueError as exc:  # duplicate keys
-            problem = f"malformed JSON: {exc}"
-            raise SpecError(source, [problem], what="cannot read world spec") from None
+
+def _parse_toml(text: str, source: str) -> Any:
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        match = _TOML_POSITION.match(str(exc))
+        if match:
+            where = f"line {match['line']}, column {match['col']}"
+            problem = f"malformed TOML at {where}: {match['msg']}"
+        else:
+            problem = f"malformed TOML: {exc}"
+    except ValueError as exc:  # e.g. an integer of more digits than Python converts
+        problem = f"malformed TOML: {exc}"
+    except RecursionError:  # the scan above keeps nesting within the limit; a last guard
+        problem = f"malformed TOML: nested too deeply to read (limit {LIMITS['max_depth']} levels)"
+    raise SpecError(source, [problem], what="cannot read world spec")
+
+
+def _parse_json(text: str, source: str) -> Any:
+    try:
+        return json.loads(text, object_pairs_hook=_reject_duplicate_keys)
+    except json.JSONDecodeError as exc:
+        problem = f"malformed JSON at line {exc.lineno}, column {exc.colno}: {exc.msg}"
+    except ValueError as exc:  # duplicate keys, integers of more digits than Python converts
+        problem = f"malformed JSON: {exc}"
+    except RecursionError:  # the scan above keeps nesting within the limit; a last guard
+        problem = f"malformed JSON: nested too deeply to read (limit {LIMITS['max_depth']} levels)"
+    raise SpecError(source, [problem], what="cannot read world spec")
+
+
+def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
+    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
+
+    Raises
+    ------
+    SpecError
+        When the file is missing, unreadable or larger than ``LIMITS["max_bytes"]``, is not
+        well-formed TOML/JSON or nests tables and lists deeper than ``LIMITS["max_depth"]``
+        levels (the message gives the line and column), or describes an invalid world (every
+        problem listed).
+    """
+    file = Path(path)
+    source = str(file)
+    suffix = file.suffix.lower()
+    if suffix not in (".toml", ".json"):
+        problem = _problem("unsupported file type", ".toml or .json", suffix or "(none)")
+        raise SpecError(source, [problem], what="cannot read world spec")
+    text = _read_text(file, source)
+    toml = suffix == ".toml"
+    limit = LIMITS["max_depth"]
+    deep = _scan_depth(text, _TOML_TOKENS if toml else _JSON_TOKENS, limit, toml)
+    if deep is not None:
+        fmt = "TOML" if toml else "JSON"
+        problem = f"malformed {fmt} at {_line_col(text, deep)}: nested deeper than {limit} levels"
+        raise SpecError(source, [problem], what="cannot read world spec")
+    data = _parse_toml(text, source) if toml else _parse_json(text, source)
     return parse_spec(data, source=source)
