@@ -4,11 +4,11 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
-#include <cstdio>
 
 #include "attributes.hpp"
 #include "chunks.hpp"
 #include "colliders.hpp"
+#include "json.hpp"
 
 namespace gm {
 
@@ -22,11 +22,7 @@ namespace {
 using Clock = std::chrono::steady_clock;
 double since(Clock::time_point t) { return std::chrono::duration<double>(Clock::now() - t).count(); }
 
-std::string num(double x) {
-    char buf[32];
-    std::snprintf(buf, sizeof buf, "%.6g", x);
-    return buf;
-}
+std::string num(double x) { return format_number(x); }
 
 bool finite_positive(double x) { return std::isfinite(x) && x > 0; }
 

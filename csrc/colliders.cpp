@@ -6,6 +6,7 @@
 #include <cmath>
 
 #include "chunks.hpp"
+#include "json.hpp"
 #include "measure.hpp"
 
 namespace gm {
@@ -93,7 +94,7 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
         if (tol > s.radius_m / 4) {
             error = "collision.max_triangles_per_chunk: " + std::to_string(s.collider_cap) +
                     " cannot be met (a chunk needs " + std::to_string(out.max_triangles_per_chunk) +
-                    " triangles even at tolerance " + std::to_string(tol) + " m); raise it or lod.chunk_level";
+                    " triangles even at tolerance " + format_number(tol) + " m); raise it or lod.chunk_level";
             return Status::BudgetExceeded;
         }
         tol *= 1.25;

@@ -635,16 +635,6 @@ void unit_vector(double lat_deg, double lon_deg, double out[3]) {
     out[2] = cl * cn;
 }
 
-std::string format_repr(double x) { return format_number(x); }
-
-std::string format_g(double x, int precision) {
-    if (std::isnan(x)) return "nan";
-    if (std::isinf(x)) return x > 0 ? "inf" : "-inf";
-    char buf[64];
-    std::snprintf(buf, sizeof buf, "%.*g", precision, x);
-    return buf;
-}
-
 SpecLimits::SpecLimits()
     : max_bytes(spec_rules().max_bytes),
       max_depth(spec_rules().max_depth),

@@ -59,9 +59,5 @@ SpecStatus load_spec_json(const char* text, std::size_t length, const SpecLimits
 // unit direction u(lat, lon) of docs/terrain.md, computed exactly as spec.unit_vector
 void unit_vector(double lat_deg, double lon_deg, double out[3]);
 
-// numbers in messages. format_repr is format_number (json.hpp: shortest round-trip text);
-// format_g is printf's %.{precision}g. Both are kept for capi.cpp's option messages.
-std::string format_repr(double x);
-std::string format_g(double x, int precision);
 
 }  // namespace gm
