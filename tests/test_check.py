@@ -15,13 +15,18 @@ import numpy as np
 import pytest
 import trimesh
 
-from globemill import load_spec
+import globemill
+from globemill import _core, load_spec
 from globemill.check import (
     CheckInputError,
+    _welded_level,
     closest_points,
+    ground_distance,
+    mesh_to_ground,
     open_border_edges,
     parse_glb,
     point_mesh_distance,
+    project_to_ground,
     read_glb,
     read_world,
     seam_pair_mismatch,
@@ -29,9 +34,11 @@ from globemill.check import (
     topology,
     weld,
 )
+from globemill.provenance import SPEC_HASH_KEY, canonical_spec, short_hash, spec_hash
 
 DEMO = Path(__file__).resolve().parents[1] / "examples" / "pebblemoor.toml"
 NAME = "pebblemoor"
+RIDGE = Path(__file__).resolve().parent / "data" / "knifeback.toml"
 
 
 def run(*args: str) -> subprocess.CompletedProcess[str]:
@@ -251,6 +258,9 @@ def test_check_json_has_every_measurement(baseline: tuple[int, dict[str, Any]]) 
     # every stitched variant: 80 chunks x 7 masks per level (20 * 4^chunk_level chunks)
     seams = [c for c in report["checks"] if c["check"] == "seam every mask"]
     assert all(c["details"]["variants"] == 80 * 7 for c in seams)
+    (origin,) = [c for c in report["checks"] if c["check"] == "baked from this spec"]
+    assert origin["status"] == "ok"
+    assert set(origin["details"]["files_spec_sha256"].values()) == {spec_hash(load_spec(DEMO))}
 
 
 @pytest.mark.slow
@@ -483,3 +493,190 @@ def test_a_bake_with_skirts(tmp_path: Path) -> None:
     # a skirt quad (two triangles) hangs from every border edge of every chunk and level
     assert skirts["status"] == "ok" and "skirt triangles" in skirts["summary"]
     assert _status(report, "watertight", 0) == "ok" and _status(report, "seams", 0) == "skipped"
+
+
+# ---- provenance: the spec's content hash ------------------------------------------------------
+
+
+def test_spec_hash_ignores_the_file_format_and_key_order(tmp_path: Path) -> None:
+    toml = load_spec(DEMO)
+    # the same world written as JSON (examples/pebblemoor.json) and as TOML with its top-level
+    # keys in another order and 0.5 spelt 5e-1
+    json_spec = load_spec(DEMO.with_suffix(".json"))
+    text = RIDGE.read_text()
+    shuffled = tmp_path / "shuffled.toml"
+    shuffled.write_text(
+        text.replace('name = "knifeback"\nradius_m = 300.0\ntolerance_m = 0.1\n', "").replace(
+            "[lod]", 'tolerance_m = 1e-1\nradius_m = 300\nname = "knifeback"\n\n[lod]'
+        )
+    )
+    assert spec_hash(json_spec) == spec_hash(toml)
+    assert spec_hash(load_spec(shuffled)) == spec_hash(load_spec(RIDGE))
+    # SHA-256 (FIPS 180-4) of the canonical text, checked with the standard library's hashlib
+    import hashlib
+
+    want = hashlib.sha256(canonical_spec(toml).encode("utf-8")).hexdigest()
+    assert spec_hash(toml) == want and len(want) == 64
+    # any value changed: another hash
+    taller = tmp_path / "taller.toml"
+    taller.write_text(text.replace("height_m = 24.0", "height_m = 24.5"))
+    assert spec_hash(load_spec(taller)) != spec_hash(load_spec(RIDGE))
+
+
+# ---- the steep sharp ridge (tests/data/knifeback.toml) ------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def ridge_bake(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    out = tmp_path_factory.mktemp("ridge")
+    res = run("bake", str(RIDGE), "-o", str(out), "--quiet")
+    assert res.returncode == 0, res.stderr
+    return out
+
+
+def test_provenance_is_in_every_file(ridge_bake: Path) -> None:
+    want = spec_hash(load_spec(RIDGE))
+    rep = json.loads((ridge_bake / "knifeback.report.json").read_text())
+    assert rep[SPEC_HASH_KEY] == want and rep["globemill"] == globemill.__version__
+    for f in ("knifeback.glb", "knifeback.collision.glb"):
+        extras = read_glb(ridge_bake / f).doc["scenes"][0]["extras"]
+        assert extras[SPEC_HASH_KEY] == want and extras["globemill"] == globemill.__version__
+
+
+def test_ridge_world_passes_check(ridge_bake: Path) -> None:
+    res = run("check", str(RIDGE), str(ridge_bake), "--json")
+    report = json.loads(res.stdout)
+    assert res.returncode == 0, report["failures"]
+    dev0 = [c for c in report["checks"] if c["check"] == "deviation" and c["level"] == 0][0]
+    assert dev0["value"] <= 0.1 + report["float32_allowance_m"]
+
+
+def test_ridge_flank_triangles_measure_what_a_dense_search_finds(ridge_bake: Path) -> None:
+    # the triangles the core's own (local) measure puts over the tolerance: on every one the
+    # check's search, confirming every point, agrees with the independent measure
+    # (tests/independent_error.py: Gauss-Newton plus hierarchical cap search on a grid of
+    # step 1/24) to within 1 cm, and stays within the tolerance
+    import independent_error as ie
+
+    spec = load_spec(RIDGE)
+    fld = globemill.field(spec)
+    world = read_world(read_glb(ridge_bake / "knifeback.glb"))
+    pos = world.welded.astype(np.float64)
+    seen = 0
+    for k in range(world.levels):
+        tris, _, tol = _welded_level(world, k)
+        per = np.asarray(
+            _core.measure(fld._core, pos, tris.astype(np.uint32), 4, 1)["per_triangle"]
+        )
+        over = np.flatnonzero(per > tol)[:4]
+        seen += len(over)
+        tri = pos[tris[over]]
+        _, mine = mesh_to_ground(fld._core, tri, 4, np.zeros(len(over)))
+        for i in range(len(over)):
+            ref = ie.distance_to_surface(fld, spec.radius_m, ie._grid_points(tri[i : i + 1], 24))
+            assert ref.max() - 1e-6 <= mine[i] <= ref.max() + 0.01
+            assert mine[i] <= tol[over[i]]
+    if seen == 0:
+        pytest.skip("the bake has no triangle the core's local measure puts over the tolerance")
+
+
+def _flank_foot_points(spec_path: Path, n: int) -> tuple[Any, np.ndarray, np.ndarray]:
+    """Points 0.1 m above the flat ground just outside the ridge's foot, mid-arc: their nearest
+    ground point is on the 60-degree flank, not below them."""
+    spec = load_spec(spec_path)
+    fld = globemill.field(spec)
+    f = spec.features[0]
+
+    def u(lat: float, lon: float) -> np.ndarray:
+        a, b = np.radians(lat), np.radians(lon)  # docs/terrain.md: u(lat, lon)
+        return np.array([np.cos(a) * np.sin(b), np.sin(a), np.cos(a) * np.cos(b)])
+
+    c0, c1 = u(f.lat0_deg, f.lon0_deg), u(f.lat1_deg, f.lon1_deg)
+    pole = np.cross(c0, c1)
+    pole /= np.linalg.norm(pole)
+    mid = (c0 + c1) / np.linalg.norm(c0 + c1)
+    # angles across the arc from the foot (b / R) outwards by 1 mm to 5 cm of ground
+    out = (f.half_width_m + np.linspace(0.001, 0.05, n)) / spec.radius_m
+    dirs = np.cos(out)[:, None] * mid + np.sin(out)[:, None] * pole
+    pts = (spec.radius_m + 0.1) * dirs
+    return fld, pts, out
+
+
+def test_ground_distance_below_a_flank_matches_a_1d_search() -> None:
+    # reference: the ridge's cross-section at mid-arc, in the plane of the arc's middle and its
+    # pole: directions v(phi) = cos(phi) mid + sin(phi) pole at ground radius
+    # r(phi) = R + h max(0, 1 - R |phi| / b) (docs/terrain.md, ridge, sharp profile). The points
+    # lie in that plane and the ridge is long, so their nearest ground point does too; the
+    # distance (law of cosines) is minimised by scipy's bounded Brent search on each smooth piece
+    from scipy.optimize import minimize_scalar
+
+    fld, pts, a = _flank_foot_points(RIDGE, 12)
+    spec = load_spec(RIDGE)
+    f = spec.features[0]
+    R, h, b = spec.radius_m, f.height_m, f.half_width_m
+    pr = np.linalg.norm(pts, axis=1)
+
+    def dist(phi: float, i: int) -> float:
+        r = R + h * max(0.0, 1.0 - R * abs(phi) / b)
+        return float(np.sqrt(max(0.0, r * r + pr[i] ** 2 - 2 * r * pr[i] * np.cos(phi - a[i]))))
+
+    ref = np.array(
+        [
+            min(
+                minimize_scalar(
+                    dist, bounds=piece, args=(i,), method="bounded", options={"xatol": 1e-13}
+                ).fun
+                for piece in ((-b / R, 0.0), (0.0, b / R), (b / R, a[i] + 1.0 / R))
+            )
+            for i in range(len(pts))
+        ]
+    )
+    # the local projection alone stays on the flat ground below: about the radial 0.1 m
+    local, _ = project_to_ground(fld._core, pts)
+    assert np.all(local > 0.0999) and np.all(ref < local - 1e-4)
+    mine = ground_distance(fld._core, pts, 0.0)
+    np.testing.assert_allclose(mine, ref, rtol=0, atol=1e-5)
+
+
+def _ridge_copy(ridge_bake: Path, tmp_path: Path) -> Path:
+    out = tmp_path / "out"
+    shutil.copytree(ridge_bake, out)
+    return out
+
+
+def test_lowered_max_error_fails_naming_the_level(ridge_bake: Path, tmp_path: Path) -> None:
+    out = _ridge_copy(ridge_bake, tmp_path)
+    path = out / "knifeback.report.json"
+    rep = json.loads(path.read_text())
+    # a tenth of the figure the bake measured: far beyond the 5 % sampling allowance
+    rep["lods"][0]["max_error_m"] = rep["lods"][0]["max_error_m"] / 10
+    path.write_text(json.dumps(rep))
+    res = run("check", str(RIDGE), str(out))
+    assert res.returncode == 1, res.stdout
+    fails = _failure_lines(res.stdout)
+    line = next(x for x in fails.splitlines() if "understates" in x)
+    assert "level 0:" in line and f"{rep['lods'][0]['max_error_m']:.4g} m" in line
+    # the other levels and the colliders kept their figures: no complaint about them
+    assert fails.count("understates") == 1
+
+
+def test_bake_of_another_spec_fails_naming_both_hashes(ridge_bake: Path, tmp_path: Path) -> None:
+    other = tmp_path / "knifeback.toml"
+    other.write_text(RIDGE.read_text().replace("height_m = 24.0", "height_m = 25.0"))
+    res = run("check", str(other), str(ridge_bake))
+    assert res.returncode == 1
+    fails = _failure_lines(res.stdout)
+    assert "baked from another spec" in fails
+    assert short_hash(spec_hash(load_spec(RIDGE))) in fails
+    assert short_hash(spec_hash(load_spec(other))) in fails
+
+
+def test_bake_without_a_spec_hash_fails(ridge_bake: Path, tmp_path: Path) -> None:
+    out = _ridge_copy(ridge_bake, tmp_path)
+    path = out / "knifeback.report.json"
+    rep = json.loads(path.read_text())
+    del rep[SPEC_HASH_KEY]
+    path.write_text(json.dumps(rep))
+    res = run("check", str(RIDGE), str(out))
+    assert res.returncode == 1
+    assert "knifeback.report.json: no spec hash" in _failure_lines(res.stdout)

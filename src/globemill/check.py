@@ -3,12 +3,21 @@ mesher's own bookkeeping.
 
 What is measured (each a row of the report):
 
+- baked from this spec: the report and both .glb files carry the content hash of the spec they
+  were baked from (`provenance.spec_hash`); each must be the given spec's. A bake of another spec
+  is reported as such and nothing else is measured; files without a hash (older bakes) fail.
 - deviation: two-sided distance between each level (and the colliders) and the true surface
-  on a barycentric grid of every triangle: mesh -> surface by exact projection
-  (`_core.measure`, vertical walls included), surface -> mesh from the ground point above each
-  sample to the nearest triangle of the whole mesh (where the core's per-triangle bound
-  exceeds the limit). The limit is the tolerance the files state (mesh extras and report; the
-  smaller when they disagree; the report's collision tolerance for colliders).
+  on a barycentric grid of every triangle (`_core.measure`: local projection, vertical walls
+  included; surface -> mesh against the sample's own triangle). Triangles it puts over the
+  limit are measured again here: mesh -> surface by a safeguarded projection and a dense
+  search of the cap that can hold the nearest ground point (`ground_distance`), on a finer
+  grid refined around the worst point (`mesh_to_ground`); surface -> mesh from the ground point
+  above each sample to the nearest triangle of the whole mesh. A triangle fails only when that
+  search confirms it. The limit is the tolerance the files state (mesh extras and report; the
+  smaller when they disagree; the report's collision tolerance for colliders). The report's
+  max_error_m of each level and of the colliders is measured the same way, largest first, and
+  fails when the check measures more than it by REPORT_SAMPLING_SLACK plus the float32
+  allowance.
 - watertight: each level, welded across chunks by exact float32 position, is a closed, manifold,
   consistently oriented surface of genus 0: every undirected edge is used by exactly two
   triangles in opposite directions (no hole, no T-junction, no flip), one connected piece, no
@@ -22,9 +31,15 @@ What is measured (each a row of the report):
   coarser level.
 - report: the report agrees with the files (levels, tolerances, counts).
 
-Positions are float32 in the file, so every geometric limit gets a rounding allowance of
-`ALLOWANCE_ULPS` units in the last place of the largest coordinate: rounding moves a stored point
-by at most sqrt(3)/2 ulp, and a comparison of two rounded things by at most twice that.
+The file's float32 positions are the mesh that is measured. The bake guaranteed its tolerance
+(and measured its max_error_m) on float64 positions; rounding each coordinate to the nearest
+float32 moves a vertex, and so every point of its triangles (convex combinations), by at most
+sqrt(3)/2 ulp of the largest coordinate. The distance from a point to the ground, and the
+distance from a ground point to the mesh, change by no more than the points move (a distance to a
+set is 1-Lipschitz), so the file's mesh is within the bake's figures plus sqrt(3)/2 ulp. The
+allowance is `ALLOWANCE_ULPS` = 4 ulps: that bound, doubled for a comparison of two rounded
+things (morph positions against a rounded coarser level, welded seams), with a margin for the
+check's own float64 arithmetic (about 1e-16 relative, far below an ulp of float32).
 
 The .glb is parsed here (no dependency) following the glTF 2.0 specification (Khronos),
 "GLB File Format Specification": a 12-byte header (magic "glTF", version 2, total length), then
@@ -43,6 +58,7 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
+from .provenance import SPEC_HASH_KEY, VERSION_KEY, short_hash, spec_hash
 from .spec import WorldSpec, load_spec
 
 I64 = npt.NDArray[np.int64]
@@ -56,6 +72,13 @@ MEASURE_ORDER = 4
 ALLOWANCE_ULPS = 4
 # a morph position must lie this close to the next coarser level (plus the float32 allowance)
 MORPH_TOLERANCE_M = 1e-4
+# the report's max_error_m is the largest error over the bake's own samples of each triangle (at
+# least the grid of MEASURE_ORDER; more where it raises the order for noise), not a bound between
+# them: the check, sampling other points, may find a little more on a correct bake. A claim fails
+# when the check's figure at the grid of MEASURE_ORDER exceeds it by more than this fraction plus
+# the float32 allowance. Chosen from measurement: on the demo world the largest such excess of a
+# correct bake is 0.5 % (a triangle across a vertical wall, where the error changes fastest).
+REPORT_SAMPLING_SLACK = 0.05
 # failures listed per check (the count is always complete)
 MAX_LISTED = 12
 
@@ -609,6 +632,244 @@ def point_mesh_distance(
     return best
 
 
+# ---- distance from mesh points to the ground ---------------------------------------------------
+
+# the safeguarded projection ends when its step (or its trust radius) is below this (m)
+PROJECT_XTOL_M = 1e-7
+PROJECT_ITERATIONS = 80
+# the confirming search lays a CAP_GRID x CAP_GRID grid of directions over the cap that can hold
+# the nearest ground point, then projects from the best node
+CAP_GRID = 25
+CAP_BATCH = 256
+# a re-measured triangle is sampled at twice the measure order, then the worst sample is refined
+# REFINE_STEPS times by a 5 x 5 grid of half the previous spacing around it
+REFINE_STEPS = 4
+
+
+def _unit(v: F64) -> F64:
+    return v / np.linalg.norm(v, axis=1, keepdims=True)
+
+
+def _dot(a: F64, b: F64) -> F64:
+    return np.einsum("ij,ij->i", a, b)
+
+
+def _tangent_frame(u: F64) -> tuple[F64, F64]:
+    """Two unit vectors completing each unit row of u (n, 3) to an orthonormal frame."""
+    helper = np.zeros_like(u)
+    small = np.abs(u[:, 0]) < 0.9
+    helper[small, 0] = 1.0
+    helper[~small, 1] = 1.0
+    e1 = _unit(helper - _dot(helper, u)[:, None] * u)
+    return e1, np.cross(u, e1)
+
+
+def _ground(core_field: Any, u: F64) -> tuple[F64, F64]:
+    """H(u) (n,) and the ground points (R + H(u)) u (n, 3) of docs/terrain.md."""
+    h = np.asarray(core_field.height(u), np.float64)
+    return h, (core_field.radius_m + h)[:, None] * u
+
+
+def project_to_ground(
+    core_field: Any,
+    points: F64,
+    starts: F64 | None = None,
+    *,
+    trust_m: F64 | float | None = None,
+    iterations: int = PROJECT_ITERATIONS,
+    xtol_m: float = PROJECT_XTOL_M,
+) -> tuple[F64, F64]:
+    """Nearest ground point to each point by a safeguarded Gauss-Newton method on the direction.
+
+    With rho = R + H(u) and g = grad H(u), a tangent step t moves the ground point by
+    rho t + (g . t) u to first order; each iteration solves that 2 x 2 least-squares problem in a
+    tangent frame (Nocedal & Wright, "Numerical Optimization", ch. 10) and limits the step to a
+    trust radius (ch. 4). A step is taken only when the ground point comes closer; otherwise the
+    trust radius halves (bisection of the step), so the distance never grows and each iterate is
+    a ground point: steep flanks (large g), sharp crests and steps where the linear model is
+    wrong only shrink the trust radius. A point ends when a taken step or the trust radius falls
+    below `xtol_m`, i.e. within `xtol_m` of a local minimum or of the crease it stalls on.
+
+    points : (n, 3); starts : (n, 3) first directions (default p/|p|); trust_m : first trust
+    radius in metres (default the first distance). Returns (distance (n,), direction (n, 3)).
+    """
+    R = float(core_field.radius_m)
+    p = np.asarray(points, np.float64)
+    u = _unit(np.array(p if starts is None else starts, np.float64))
+    h, s = _ground(core_field, u)
+    d = np.linalg.norm(s - p, axis=1)
+    trust = np.array(
+        np.broadcast_to(d if trust_m is None else trust_m, d.shape), np.float64, copy=True
+    )
+    active = np.flatnonzero((trust >= xtol_m) & (d > 0))
+    for _ in range(iterations):
+        if active.size == 0:
+            break
+        ua, pa = u[active], p[active]
+        rho = R + h[active]
+        g = np.asarray(core_field.gradient(ua), np.float64)
+        e1, e2 = _tangent_frame(ua)
+        res = rho[:, None] * ua - pa
+        j1 = rho[:, None] * e1 + _dot(g, e1)[:, None] * ua
+        j2 = rho[:, None] * e2 + _dot(g, e2)[:, None] * ua
+        a11, a12, a22 = _dot(j1, j1), _dot(j1, j2), _dot(j2, j2)
+        b1, b2 = -_dot(j1, res), -_dot(j2, res)
+        det = a11 * a22 - a12 * a12
+        solvable = det > 1e-12 * a11 * a22
+        safe = np.where(solvable, det, 1.0)
+        # a singular model (never for rho > 0): a steepest-descent step instead
+        s1 = np.where(solvable, (b1 * a22 - b2 * a12) / safe, b1 / a11)
+        s2 = np.where(solvable, (a11 * b2 - a12 * b1) / safe, b2 / a22)
+        length = rho * np.hypot(s1, s2)
+        scale = np.minimum(1.0, trust[active] / np.maximum(length, 1e-300))
+        un = _unit(ua + (s1 * scale)[:, None] * e1 + (s2 * scale)[:, None] * e2)
+        hn, sn = _ground(core_field, un)
+        dn = np.linalg.norm(sn - pa, axis=1)
+        taken = length * scale
+        better = dn < d[active]
+        win = active[better]
+        u[win], h[win], d[win] = un[better], hn[better], dn[better]
+        trust[win] = 2.0 * taken[better]
+        trust[active[~better]] = 0.5 * taken[~better]
+        done = np.where(better, taken < xtol_m, 0.5 * taken < xtol_m)
+        active = active[~done]
+    return d, u
+
+
+def cap_search(core_field: Any, points: F64, upper: F64, *, grid: int = CAP_GRID) -> F64:
+    """Confirm distances to the ground by a dense search: `min(upper, found)` per point.
+
+    The nearest ground point to p lies within `upper` of p, so its direction lies in the cap of
+    angular radius asin(upper / |p|) around p/|p|. That cap is covered by a `grid` x `grid`
+    gnomonic grid of directions (every node a ground point), and the safeguarded projection
+    starts again from the best node with a trust radius of two grid steps. A basin of the
+    distance narrower than a grid step can be missed; nothing here needs H to be smooth.
+
+    points : (n, 3); upper : (n,) distances to known ground (or wall) points.
+    """
+    p_all = np.asarray(points, np.float64)
+    out = np.array(upper, np.float64, copy=True)
+    g = np.linspace(-1.0, 1.0, grid)
+    gx, gy = (a.ravel() for a in np.meshgrid(g, g))
+    for start in range(0, len(p_all), CAP_BATCH):
+        sel = slice(start, start + CAP_BATCH)
+        p, up = p_all[sel], out[sel]
+        pn = np.linalg.norm(p, axis=1)
+        pu = p / pn[:, None]
+        e1, e2 = _tangent_frame(pu)
+        half = np.tan(np.arcsin(np.clip(up / pn, 0.0, 0.99)))
+        x, y = half[:, None] * gx[None, :], half[:, None] * gy[None, :]
+        dirs = pu[:, None, :] + x[:, :, None] * e1[:, None, :] + y[:, :, None] * e2[:, None, :]
+        dirs = _unit(dirs.reshape(-1, 3))
+        _, s = _ground(core_field, dirs)
+        dist = np.linalg.norm(s.reshape(len(p), gx.size, 3) - p[:, None, :], axis=2)
+        best = np.argmin(dist, axis=1)
+        first = dirs.reshape(len(p), gx.size, 3)[np.arange(len(p)), best]
+        step = 2.0 * half * pn / (grid - 1)
+        dp, _ = project_to_ground(core_field, p, first, trust_m=2.0 * step)
+        out[sel] = np.minimum(up, np.minimum(dist.min(axis=1), dp))
+    return out
+
+
+def ground_distance(core_field: Any, points: F64, confirm_above: F64 | float | None = None) -> F64:
+    """Distance from each point (n, 3) to the ground of docs/terrain.md, walls included.
+
+    The safeguarded projection from the radial direction (its first iterate is the ground point
+    straight above or below, so the result never exceeds the radial bound), the core's distance
+    to the radial wall segments of steps, and for every point still farther than
+    `confirm_above` the dense `cap_search`. Every value is a distance to an actual surface
+    point, so it is an upper bound of the true distance; beyond `confirm_above` it is one that
+    a dense search confirms.
+    """
+    p = np.asarray(points, np.float64)
+    if len(p) == 0:
+        return np.zeros(0)
+    d, _ = project_to_ground(core_field, p)
+    d = np.minimum(d, np.asarray(core_field.wall_distance(p), np.float64))
+    if confirm_above is not None:
+        far = np.flatnonzero(d > np.broadcast_to(confirm_above, d.shape))
+        if len(far):
+            d[far] = cap_search(core_field, p[far], d[far])
+    return d
+
+
+def barycentric_grid(order: int) -> F64:
+    """Weights (s, 3) of the barycentric grid of step 1/order (corners included)."""
+    g = np.array([(i, j) for i in range(order + 1) for j in range(order + 1 - i)], np.float64)
+    g /= order
+    return np.stack([1 - g[:, 0] - g[:, 1], g[:, 0], g[:, 1]], axis=1)
+
+
+def _confirm_largest(
+    core_field: Any, pts: F64, d: F64, above: F64, done: npt.NDArray[np.bool_] | None = None
+) -> F64:
+    """Per row (a triangle's points pts (t, k, 3), their distances d (t, k) from the projection),
+    confirm by `cap_search`, largest first, until the row's largest value is confirmed or at
+    most `above` (t,). Returns the largest value per row; d and `done` (which values are
+    confirmed already) are updated in place."""
+    if done is None:
+        done = np.zeros(d.shape, bool)
+    rows = np.arange(len(d))
+    while True:
+        cand = np.where(done, -np.inf, d)
+        j = np.argmax(cand, axis=1)
+        best_done = np.where(done, d, -np.inf).max(axis=1)
+        top = cand[rows, j]
+        # unresolved: an unconfirmed value above both the threshold and every confirmed one
+        todo = np.flatnonzero((top > above) & (top > best_done))
+        if len(todo) == 0:
+            return np.where(done | (d <= above[:, None]), d, -np.inf).max(axis=1)
+        jj = j[todo]
+        d[todo, jj] = cap_search(core_field, pts[todo, jj], d[todo, jj])
+        done[todo, jj] = True
+
+
+def mesh_to_ground(core_field: Any, tri: F64, order: int, confirm_above: F64) -> tuple[F64, F64]:
+    """Largest distance from each triangle (t, 3, 3) to the ground, by search over the triangle.
+
+    The barycentric grid of step 1/(2 order), then REFINE_STEPS rounds of a 5 x 5 grid of half
+    the previous spacing around the worst point so far (a crest or wall line between grid
+    nodes is found to within the last spacing). Distances by `ground_distance`; every value over
+    `confirm_above` (t,) that could be a triangle's largest is confirmed by the dense
+    `cap_search`, largest first. Returns ((t,) the largest over the nodes of the grid of step
+    1/order; (t,) the largest found).
+    """
+    nt = len(tri)
+    if nt == 0:
+        return np.zeros(0), np.zeros(0)
+    rows = np.arange(nt)
+    w = barycentric_grid(2 * order)
+    # the nodes of the grid of step 1/order: even multiples of 1/(2 order)
+    on_grid = np.all(np.rint(w * 2 * order).astype(np.int64) % 2 == 0, axis=1)
+    pts = np.einsum("sk,tkd->tsd", w, tri)
+    d = ground_distance(core_field, pts.reshape(-1, 3)).reshape(nt, -1)
+    done = np.zeros(d.shape, bool)
+    dg, dn = d[:, on_grid], done[:, on_grid]
+    coarse = _confirm_largest(core_field, pts[:, on_grid], dg, confirm_above, dn)
+    d[:, on_grid], done[:, on_grid] = dg, dn
+    best = _confirm_largest(core_field, pts, d, confirm_above, done)
+    bary = w[np.argmax(np.where(d <= best[:, None], d, -np.inf), axis=1)]
+    o = np.linspace(-1.0, 1.0, 5)
+    ox, oy = (a.ravel() for a in np.meshgrid(o, o))
+    h = 0.5 / order
+    for _ in range(REFINE_STEPS):
+        cand = np.repeat(bary[:, None, :], len(ox), axis=1)
+        cand[:, :, 1] += h * ox
+        cand[:, :, 2] += h * oy
+        cand[:, :, 0] = 1.0 - cand[:, :, 1] - cand[:, :, 2]
+        # back into the triangle: negative weights to 0, then the weights summed to 1
+        cand = np.maximum(cand, 0.0)
+        cand /= cand.sum(axis=2, keepdims=True)
+        pts = np.einsum("tsk,tkd->tsd", cand, tri)
+        dc = ground_distance(core_field, pts.reshape(-1, 3)).reshape(nt, -1)
+        top = _confirm_largest(core_field, pts, dc, np.maximum(confirm_above, best))
+        up = top > best
+        j = np.argmax(np.where(dc <= top[:, None], dc, -np.inf), axis=1)
+        best[up], bary[up] = top[up], cand[rows, j][up]
+        h /= 2.0
+    return coarse, best
+
+
 # ---- the report --------------------------------------------------------------------------------
 
 
@@ -730,7 +991,7 @@ class CheckReport:
         widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
         lines = [
             f"{self.planet}: check of {self.outdir} (float32 allowance {self.allowance_m:.2g} m; "
-            f"deviation sampled at order {MEASURE_ORDER}, exact projection)"
+            f"deviation sampled at order {MEASURE_ORDER}, confirmed by a dense search)"
         ]
         for r in rows:
             lines.append("  " + "  ".join(x.ljust(w) for x, w in zip(r, widths, strict=True)))
@@ -757,9 +1018,7 @@ def _xyz(p: npt.ArrayLike) -> str:
 def surface_samples(core_field: Any, radius_m: float, tri: F64, order: int) -> F64:
     """Points of the true surface straight above or below a barycentric grid of `order` on each
     triangle (corners included): tri (t, 3, 3) -> (t, s, 3) with s = (order+1)(order+2)/2."""
-    g = np.array([(i, j) for i in range(order + 1) for j in range(order + 1 - i)], np.float64)
-    g /= order
-    w = np.stack([1 - g[:, 0] - g[:, 1], g[:, 0], g[:, 1]], axis=1)  # (s, 3)
+    w = barycentric_grid(order)  # (s, 3)
     p = np.einsum("sk,tkd->tsd", w, tri).reshape(-1, 3)
     u = p / np.linalg.norm(p, axis=1, keepdims=True)
     # the ground of docs/terrain.md: (R + H(u)) u
@@ -794,6 +1053,21 @@ def _surface_to_mesh(
     return d.reshape(len(which), k).max(axis=1)
 
 
+def _where(level: int | str) -> str:
+    return f"level {level}" if isinstance(level, int) else str(level)
+
+
+def _reported_error(claimed: Any, level: int | str) -> tuple[float | None, str | None]:
+    """The report's max_error_m of a level as a number, or the reason it is unusable."""
+    if claimed is None:
+        return None, f"{_where(level)}: the report states no max_error_m"
+    if isinstance(claimed, bool) or not isinstance(claimed, (int, float)):
+        return None, f"{_where(level)}: the report's max_error_m {claimed!r} is not a number"
+    if not math.isfinite(float(claimed)) or float(claimed) < 0:
+        return None, f"{_where(level)}: the report's max_error_m {claimed!r} is not a distance"
+    return float(claimed), None
+
+
 def check_deviation(
     core_field: Any,
     positions: F64,
@@ -806,33 +1080,68 @@ def check_deviation(
     level: int | str,
     threads: int = 0,
     order: int = MEASURE_ORDER,
-    claimed: float | None = None,
+    claimed: Any = None,
+    check_claim: bool = False,
 ) -> CheckResult:
-    """Two-sided deviation of a mesh from the true surface against a per-triangle limit.
+    """Two-sided deviation of a mesh from the true surface against a per-triangle limit, and
+    (`check_claim`) against the report's `claimed` max_error_m.
 
-    `_core.measure` gives, per triangle, the larger of mesh -> surface (exact projection of
-    grid samples, walls included) and a bound of surface -> mesh (the surface point above each
-    sample against that one triangle). The bound is pessimistic where the ground is steeper than
-    the triangle, most of all beside vertical walls, so every triangle over its limit is measured
-    again: mesh -> surface on its own, surface -> mesh from the same surface points against the
-    nearest triangle of the whole mesh.
+    `_core.measure` gives, per triangle, the larger of mesh -> surface (projection of grid
+    samples, walls included) and a bound of surface -> mesh (the surface point above each sample
+    against that one triangle). Both can overstate: the projection is local (from a point above
+    the foot of a steep flank it ends on the flat ground below, near the radial bound) and the
+    bound is pessimistic where the ground is steeper than the triangle. So a triangle over its
+    limit, or (largest first) over the claimed figure, is measured again: mesh -> surface by
+    `mesh_to_ground` (the grid at twice the order, the worst point refined, every point over the
+    limit confirmed by the dense `cap_search`), surface -> mesh from the surface points above
+    the grid against the nearest triangle of the whole mesh. It fails only what that confirms.
+
+    The figures a bake reports were measured on its float64 positions; `allowance` (the float32
+    allowance of the module docstring) covers their rounding to float32, for the tolerance and
+    the claimed figure. The claim is compared at the grid of `order` (the bake's own sampling
+    is at least that grid but not the same points, hence REPORT_SAMPLING_SLACK).
     """
     from . import _core
 
     t32 = tris.astype(np.uint32)
     dev = _core.measure(core_field, positions, t32, order, threads)
     per = np.asarray(dev["per_triangle"], np.float64).copy()
-    flagged = np.flatnonzero(per > tri_limit + allowance)
-    if len(flagged):
-        one = np.array([[0, 1, 2]], np.uint32)
-        m2s = np.array(
-            [
-                _core.measure(core_field, positions[tris[t]], one, order, 1)["mesh_to_surface_m"]
-                for t in flagged
-            ]
-        )
-        s2m = _surface_to_mesh(core_field, positions, tris, flagged, order, tri_limit + allowance)
-        per[flagged] = np.maximum(m2s, s2m)
+    # per triangle at the report's sampling (the grid of `order`), for the claimed figure
+    per_grid = per.copy()
+    remeasured = np.zeros(len(per), bool)
+    claim, claim_problem = _reported_error(claimed, level) if check_claim else (None, None)
+    # the figure every re-measured point must be confirmed beyond
+    confirm = tri_limit + allowance
+    claim_limit = math.inf
+    if claim is not None:
+        claim_limit = claim * (1.0 + REPORT_SAMPLING_SLACK) + allowance
+        confirm = np.minimum(confirm, claim_limit)
+
+    def remeasure(which: I64) -> None:
+        which = which[~remeasured[which]]
+        if len(which) == 0:
+            return
+        m2s_grid, m2s = mesh_to_ground(core_field, positions[tris[which]], order, confirm[which])
+        s2m = _surface_to_mesh(core_field, positions, tris, which, order, confirm)
+        per[which] = np.maximum(m2s, s2m)
+        per_grid[which] = np.maximum(m2s_grid, s2m)
+        remeasured[which] = True
+
+    remeasure(np.flatnonzero(per > tri_limit + allowance))
+    understated = None
+    if claim is not None:
+        # largest first, until one confirms the claim is exceeded or none can exceed it
+        batch = 8
+        while True:
+            over = per_grid > claim_limit
+            if np.any(over & remeasured):
+                understated = int(np.argmax(np.where(remeasured, per_grid, -np.inf)))
+                break
+            todo = np.flatnonzero(over & ~remeasured)
+            if len(todo) == 0:
+                break
+            remeasure(todo[np.argsort(-per[todo], kind="stable")[:batch]])
+            batch *= 2
     over = per - (tri_limit + allowance)
     worst = int(np.argmax(per / tri_limit)) if len(per) else 0
     failures = []
@@ -845,20 +1154,33 @@ def check_deviation(
             f"{_fmt(per[t])} m > {_fmt(tri_limit[t])} m near "
             f"{_xyz(positions[tris[t]].mean(axis=0))}"
         )
+    if claim_problem is not None:
+        failures.append(claim_problem)
+    if understated is not None and claim is not None:
+        t = understated
+        failures.append(
+            f"{_where(level)}: the report understates the error: it says max_error_m "
+            f"{_fmt(claim)} m, the check measures {_fmt(per_grid[t])} m (more than "
+            f"{_fmt(claim_limit)} m: {REPORT_SAMPLING_SLACK:.0%} for sampling and "
+            f"{_fmt(allowance)} m for float32) in chunk {int(tri_chunk[t])} near "
+            f"{_xyz(positions[tris[t]].mean(axis=0))}"
+        )
     limit = float(tri_limit.min()) if len(tri_limit) else 0.0
     value = float(per.max()) if len(per) else 0.0
-    details = {
+    details: dict[str, Any] = {
         "max_m": value,
         "tolerance_m": limit,
         "mesh_to_surface_m": float(dev["mesh_to_surface_m"]),
         "surface_to_mesh_bound_m": float(dev["surface_to_mesh_m"]),
-        "remeasured_triangles": int(len(flagged)),
+        "remeasured_triangles": int(remeasured.sum()),
         "samples": int(dev["samples"]),
         "triangles": int(len(tris)),
         "triangles_beyond": int(len(bad)),
     }
     if claimed is not None:
         details["reported_max_error_m"] = claimed
+    if check_claim:
+        details["report_understated"] = understated is not None or claim_problem is not None
     return _result(
         name,
         level,
@@ -1190,6 +1512,62 @@ def check_report(report: dict[str, Any], world: World, collider_tris: int | None
     )
 
 
+def _scene_extras(glb: Glb) -> dict[str, Any]:
+    try:
+        extras = glb.doc["scenes"][glb.doc.get("scene", 0)].get("extras", {})
+    except (KeyError, IndexError, TypeError, AttributeError):
+        raise CheckInputError(f"{glb.name}: no scene") from None
+    return extras if isinstance(extras, dict) else {}
+
+
+def check_provenance(spec: WorldSpec, files: dict[str, dict[str, Any]]) -> CheckResult:
+    """Every file names the spec it was baked from by its content hash (`provenance`): each must
+    carry the hash of `spec`. `files` maps a file name to its metadata (the report, or a .glb's
+    scene extras). Files without a hash (bakes of an older globemill) fail too: nothing ties
+    them to the spec. The globemill version of each file is listed, not checked."""
+    want = spec_hash(spec)
+    failures = []
+    other = False
+    hashes: dict[str, Any] = {}
+    versions: dict[str, Any] = {}
+    for fname, meta in files.items():
+        got = meta.get(SPEC_HASH_KEY)
+        hashes[fname] = got
+        versions[fname] = meta.get(VERSION_KEY)
+        if got is None:
+            failures.append(
+                f"{fname}: no spec hash ({SPEC_HASH_KEY}): an older bake, or not a bake of "
+                "this globemill; bake again to check it"
+            )
+        elif got != want:
+            other = True
+            failures.append(
+                f"{fname}: baked from another spec (file {short_hash(str(got))}, spec "
+                f"{short_hash(want)})"
+            )
+    if other:
+        summary = f"baked from another spec (spec {short_hash(want)})"
+    elif failures:
+        summary = f"{len(failures)} file(s) without a spec hash"
+    else:
+        summary = f"spec {short_hash(want)}"
+    return _result(
+        "baked from this spec",
+        "-",
+        failures,
+        value=float(len(failures)),
+        limit=0.0,
+        unit="files",
+        summary=summary,
+        details={
+            "spec_sha256": want,
+            "files_spec_sha256": hashes,
+            "files_globemill": versions,
+            "other_spec": other,
+        },
+    )
+
+
 def _read_report(path: Path) -> dict[str, Any]:
     try:
         rep = json.loads(path.read_text(encoding="utf-8"))
@@ -1231,21 +1609,28 @@ def run_check(
         raise CheckInputError(
             f"{out / f'{name}.report.json'}: a bake of {report.get('planet')!r}, not {name!r}"
         )
+    main_glb = _read(out / f"{name}.glb")
+    col_glb = _read(out / f"{name}.collision.glb") if report.get("collision") else None
+    files = {f"{name}.report.json": report, f"{name}.glb": _scene_extras(main_glb)}
+    if col_glb is not None:
+        files[f"{name}.collision.glb"] = _scene_extras(col_glb)
+    origin = check_provenance(spec, files)
+    if origin.details["other_spec"]:
+        # measuring the files against another world's surface would only add noise
+        return CheckReport(spec_label, str(out), name, 0.0, [origin])
     radius = report.get("radius_m")
     if radius is not None and not math.isclose(float(radius), spec.radius_m, rel_tol=1e-12):
         raise CheckInputError(
             f"report radius_m {radius} differs from the spec's {spec.radius_m}: wrong spec?"
         )
-    world = read_world(_read(out / f"{name}.glb"))
-    colliders = None
-    if report.get("collision"):
-        colliders = read_colliders(_read(out / f"{name}.collision.glb"))
+    world = read_world(main_glb)
+    colliders = read_colliders(col_glb) if col_glb is not None else None
     fld = Field(spec)
     everything = [world.welded] + (colliders[1] if colliders else [])
     allowance = max(float32_allowance(p) for p in everything)
     pos = world.welded.astype(np.float64)
     min_area = 1e-12 * spec.radius_m**2  # twice this is "zero" area at float32 precision
-    checks: list[CheckResult] = []
+    checks: list[CheckResult] = [origin]
     lods = report["lods"]
     stitched = report.get("seams", "stitch") == "stitch"
     if not stitched:
@@ -1271,6 +1656,7 @@ def run_check(
                 threads=threads,
                 order=order,
                 claimed=claimed,
+                check_claim=k < len(lods),
             )
         )
         checks.append(
@@ -1310,6 +1696,7 @@ def run_check(
                 threads=threads,
                 order=order,
                 claimed=col.get("max_error_m"),
+                check_claim=True,
             )
         )
         checks.append(

@@ -19,11 +19,11 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 
-from . import __version__
 from ._atomic import write_files_atomically
 from .attributes import NO_LAYER, layer_table
 from .bake import BakeResult
 from .export_gltf import GltfBuilder
+from .provenance import provenance
 
 
 def report_json(report: dict[str, Any]) -> bytes:
@@ -131,7 +131,7 @@ def glb_for(result: BakeResult) -> bytes:
         roots,
         scene_name=result.spec.name,
         extras={
-            "globemill": __version__,
+            **provenance(result.spec),
             "radius_m": result.spec.radius_m,
             "chunks": nchunks,
             "levels": nlev,
@@ -155,7 +155,7 @@ def collision_glb_for(result: BakeResult) -> bytes:
     return b.to_glb(
         roots,
         scene_name=f"{result.spec.name}.collision",
-        extras={"globemill": __version__, "collision": report},
+        extras={**provenance(result.spec), "collision": report},
     )
 
 
@@ -185,7 +185,7 @@ def write_outputs(
     if result.colliders:
         paths["collision"] = outdir / f"{name}.collision.glb"
         files[paths["collision"]] = collision_glb_for(result)
-    files[paths["report"]] = report_json(result.report)
+    files[paths["report"]] = report_json({**result.report, **provenance(result.spec)})
     for fmt in dict.fromkeys(formats):
         paths[fmt] = mesh_path(outdir, name, level, fmt)
         files[paths[fmt]] = mesh_bytes(result, level, fmt)
