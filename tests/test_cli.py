@@ -148,3 +148,14 @@ def test_bad_option_value(tmp_path: Path) -> None:
     assert res.returncode == 2
     assert "tolerance_m" in res.stderr and "> 0" in res.stderr
     assert not (tmp_path / "o").exists()
+
+
+def test_help_documents_every_exit_code() -> None:
+    for cmd in ("bake", "farm"):
+        text = " ".join(run(cmd, "--help").stdout.split())
+        for code in ("2 ", "3 ", "4 ", "5 ", "130 ", "143 "):
+            assert code in text, (cmd, code)
+        assert "--max-memory GB" in text
+    text = " ".join(run("bake", "--help").stdout.split())
+    assert "4 a file could not be written or read" in text
+    assert "5 refused before the work" in text

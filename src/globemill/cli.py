@@ -1,7 +1,9 @@
 """The `globemill` command line.
 
 Exit codes: 0 success; 1 a check found a guarantee broken; 2 bad input (spec, options, files);
-3 the bake could not be done (e.g. the triangle budget); 130 interrupted.
+3 the bake could not be done (e.g. the triangle budget); 4 a file could not be written or read
+(the message names it and the cause: disk full, read-only, permission); 5 refused before the
+work: the estimate exceeds --max-memory; 130 interrupted (Ctrl-C); 143 terminated (SIGTERM).
 """
 
 from __future__ import annotations
@@ -17,7 +19,15 @@ from . import __version__
 if TYPE_CHECKING:
     from .bake import BakeResult
 
-EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT, EXIT_BAKE_FAILED, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
+EXIT_OK, EXIT_CHECK_FAILED, EXIT_BAD_INPUT, EXIT_BAKE_FAILED = 0, 1, 2, 3
+EXIT_IO, EXIT_REFUSED, EXIT_INTERRUPTED, EXIT_TERMINATED = 4, 5, 130, 143
+# a farm's exit code when worlds failed: the first kind of failure present, in this order
+FARM_FAILURE_CODES = (
+    ("io", EXIT_IO),
+    ("bake", EXIT_BAKE_FAILED),
+    ("refused", EXIT_REFUSED),
+    ("input", EXIT_BAD_INPUT),
+)
 
 EPILOG = """examples:
   globemill bake examples/pebblemoor.toml -o out/
@@ -32,17 +42,61 @@ EPILOG = """examples:
 
 exit codes:
   0 success, 1 a check found a guarantee broken, 2 bad input (spec, options, files),
-  3 the bake could not be done (e.g. the triangle budget), 130 interrupted (no partial output)
+  3 the bake could not be done (e.g. the triangle budget), 4 a file could not be written or
+  read (named, with the cause: disk full, read-only, permission), 5 refused before the work
+  (the estimated memory exceeds --max-memory), 130 interrupted, 143 terminated (SIGTERM);
+  no partial output in any case
 """
 
 
+def _printable(text: str, stream: object) -> str:
+    """`text` as the stream can encode it (a lone surrogate in a name must not crash a print)."""
+    enc = getattr(stream, "encoding", None) or "utf-8"
+    return text.encode(enc, "backslashreplace").decode(enc, "replace")
+
+
 def _err(msg: str) -> None:
-    print(f"globemill: error: {msg}", file=sys.stderr)
+    print(_printable(f"globemill: error: {msg}", sys.stderr), file=sys.stderr)
 
 
-def _bake_spec(args: argparse.Namespace, levels_needed: int | None = None) -> BakeResult:
-    """Load the spec and bake it with the shared options, a progress bar on a terminal."""
+def _note(msg: str) -> None:
+    print(_printable(f"globemill: {msg}", sys.stderr), file=sys.stderr)
+
+
+def _out(text: str) -> None:
+    print(_printable(text, sys.stdout))
+
+
+def _os_message(exc: OSError) -> str:
+    from ._atomic import WriteError
+
+    if isinstance(exc, WriteError):
+        return str(exc)
+    if exc.filename:
+        return f"{exc.filename}: {exc.strerror or exc}"
+    return str(exc.strerror or exc)
+
+
+def _max_memory(text: str) -> int:
+    """--max-memory GB (decimal gigabytes) as bytes."""
+    try:
+        gb = float(text)
+    except ValueError:
+        gb = float("nan")
+    if not gb > 0 or gb == float("inf"):
+        raise argparse.ArgumentTypeError(f"must be a number of GB > 0, got {text!r}")
+    return int(gb * 1e9)
+
+
+def _bake_spec(
+    args: argparse.Namespace, levels_needed: int | None = None, outdir: Path | None = None
+) -> BakeResult:
+    """Load the spec, estimate the work (printed when large, refused over --max-memory), check
+    that `outdir` can take the files, then bake with the shared options, a progress bar on a
+    terminal."""
+    from ._atomic import probe_folder
     from .bake import bake
+    from .farm import available_memory, check_memory, estimate_bake
     from .spec import load_spec
 
     spec = load_spec(args.spec)
@@ -51,6 +105,16 @@ def _bake_spec(args: argparse.Namespace, levels_needed: int | None = None) -> Ba
             f"level: must be an integer in 0..{spec.lod.levels - 1} (lod.levels of the spec), "
             f"got {levels_needed}"
         )
+    est = None
+    tol = spec.tolerance_m if args.tolerance_m is None else args.tolerance_m
+    if tol > 0:  # else the bake names the bad tolerance
+        est = estimate_bake(spec, tolerance_m=tol, threads=max(0, args.threads))
+        if est.large and not args.quiet:
+            _note(est.describe())
+        limit = args.max_memory if args.max_memory is not None else available_memory()
+        check_memory(est, limit)
+    if outdir is not None:
+        probe_folder(outdir, est.output_bytes if est is not None else 0)
     show = not args.quiet and sys.stderr.isatty()
     bar = None
     if show:
@@ -83,12 +147,12 @@ def _cmd_bake(args: argparse.Namespace) -> int:
     from .output import write_outputs
 
     formats = args.format or []
-    result = _bake_spec(args, args.level if formats else None)
+    result = _bake_spec(args, args.level if formats else None, Path(args.output))
     paths = write_outputs(result, Path(args.output), formats=formats, level=args.level)
     if not args.quiet:
-        print(summary_table(result.report))
+        _out(summary_table(result.report))
         for p in paths.values():
-            print(f"  wrote {p}")
+            _out(f"  wrote {p}")
     return EXIT_OK
 
 
@@ -103,7 +167,7 @@ def _cmd_export(args: argparse.Namespace) -> int:
             f"format: must be one of {', '.join(FORMATS)} (from --format or the file suffix), "
             f"got {fmt!r}"
         )
-    result = _bake_spec(args, args.level)
+    result = _bake_spec(args, args.level, out.parent)
     write_files_atomically({out: mesh_bytes(result, args.level, fmt)})
     if not args.quiet:
         lv = result.report["lods"][args.level]
@@ -121,7 +185,7 @@ def _cmd_preview(args: argparse.Namespace) -> int:
     views = [v.strip() for v in args.views.split("/")]
     for v in views:
         view_frame(v)
-    result = _bake_spec(args, args.level)
+    result = _bake_spec(args, args.level, Path(args.output).parent)
     stats = write_preview(
         result, Path(args.output), color=args.color, level=args.level, size=size, views=views
     )
@@ -143,7 +207,19 @@ def _add_bake_options(p: argparse.ArgumentParser) -> None:
         help="how the mesher measures offset (default: the spec's)",
     )
     p.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
+    _add_memory_option(p)
     p.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
+
+
+def _add_memory_option(p: argparse.ArgumentParser) -> None:
+    p.add_argument(
+        "--max-memory",
+        type=_max_memory,
+        default=None,
+        metavar="GB",
+        help="refuse (exit 5) a bake whose estimated memory exceeds this many GB, before it "
+        "starts (default: the memory available now)",
+    )
 
 
 def summary_table(report: dict) -> str:
@@ -220,20 +296,21 @@ def _cmd_farm(args: argparse.Namespace) -> int:
             threads=args.threads,
             force=args.force,
             progress=not args.quiet and sys.stderr.isatty(),
+            max_memory_bytes=args.max_memory,
+            log=None if args.quiet else _note,
         )
     except FarmError as exc:
         _err(str(exc))
         return EXIT_BAD_INPUT
     if not args.quiet:
-        print(summary.table())
-        print(f"  wrote {summary.outdir / 'farm.json'}")
+        _out(summary.table())
+        _out(f"  wrote {summary.outdir / 'farm.json'}")
     for w in summary.failed:
         _err(f"{w.world} ({w.source}): {w.error}")
     if summary.ok:
         return EXIT_OK
-    # exit 2 when every failure is a bad spec, 3 when a bake failed (as `globemill bake`)
-    bad_bake = any(w.error_kind == "bake" for w in summary.failed)
-    return EXIT_BAKE_FAILED if bad_bake else EXIT_BAD_INPUT
+    kinds = {w.error_kind for w in summary.failed}
+    return next((code for kind, code in FARM_FAILURE_CODES if kind in kinds), EXIT_BAKE_FAILED)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -283,8 +360,10 @@ def build_parser() -> argparse.ArgumentParser:
         description="Bake every world spec into OUTDIR, with a local process pool or on an "
         "existing Dask cluster. Unchanged worlds (same spec, options and globemill version) are "
         "skipped; a world that fails is reported while the others bake. Writes OUTDIR/farm.json. "
-        "Exit 0 when every world is baked or cached, 2 when specs are bad, 3 when a bake failed, "
-        "130 on Ctrl-C.",
+        "One farm at a time writes into OUTDIR (a second one waits). Exit 0 when every world is "
+        "baked or cached; when some failed, the first of: 4 a file could not be written, 3 a "
+        "bake failed, 5 a world was refused over --max-memory, 2 a spec is bad; 2 when no spec "
+        "is found (nothing written), 130 on Ctrl-C, 143 on SIGTERM.",
         epilog="examples:\n"
         "  globemill farm worlds/ -o out/\n"
         "  globemill farm 'worlds/**/*.toml' -o out/ --jobs 4\n"
@@ -320,6 +399,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="threads per bake (default: 1 when bakes run side by side, else all cores)",
     )
     f.add_argument("--force", action="store_true", help="re-bake worlds even when cached")
+    _add_memory_option(f)
     f.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
     f.set_defaults(func=_cmd_farm)
 
@@ -370,6 +450,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from .farm import FarmTerminated, MemoryLimitError
     from .spec import SpecError
 
     parser = build_parser()
@@ -379,19 +460,25 @@ def main(argv: list[str] | None = None) -> int:
     except SpecError as exc:
         _err(str(exc))
         return EXIT_BAD_INPUT
+    except MemoryLimitError as exc:
+        _err(str(exc))
+        return EXIT_REFUSED
     except ValueError as exc:
         msg = str(exc)
         _err(msg)
         return EXIT_BAKE_FAILED if "max_triangles" in msg else EXIT_BAD_INPUT
     except OSError as exc:
-        _err(f"{exc.filename or ''}: {exc.strerror or exc}")
-        return EXIT_BAD_INPUT
+        _err(_os_message(exc))
+        return EXIT_IO
     except ImportError as exc:
         extra = {"matplotlib": "preview", "meshio": "formats"}.get(exc.name or "", "")
         hint = f"; install it with: pip install 'globemill[{extra}]'" if extra else ""
         _err(f"{exc.name or exc} is needed for this command{hint}")
         return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
+    except KeyboardInterrupt as exc:
+        if isinstance(exc, FarmTerminated):
+            _err("terminated (SIGTERM); no partial output was written")
+            return EXIT_TERMINATED
         _err("interrupted; no partial output was written")
         return EXIT_INTERRUPTED
 

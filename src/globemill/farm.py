@@ -10,16 +10,31 @@
   must be a folder every worker sees at the same path (a shared filesystem).
 - Incremental: a world's content hash covers its canonical spec (``model_dump(mode="json")``
   serialised with sorted keys), the bake options that change the output (tolerance, offset) and
-  the globemill version. A world whose hash matches its cache record and whose outputs are all in
-  place with the recorded sizes is skipped and reported as cached. The record,
-  ``outdir/.globemill-cache/<name>.json``, is removed before a world is re-baked and written
-  (atomically) only after its outputs are in place, so a crash in between only costs a re-bake.
-- Failures stay local: an unreadable or invalid spec, a duplicate world name or a failed bake is
-  reported for that world with its error while every other world still bakes. A Dask worker that
+  the globemill version. A world is skipped and reported as cached only when its cache record,
+  ``outdir/.globemill-cache/<name>.json``, holds the same hash and every output it lists holds
+  the bytes whose SHA-256 was recorded when they were written (sizes alone would take a bake of
+  a spec with one colour changed as current). The record is removed before a world is re-baked
+  and written (atomically) only after its outputs are in place and checked, so a crash in
+  between only costs a re-bake.
+- One farm per folder: a farm holds ``outdir/.globemill-farm.lock`` (flock) while it runs; a
+  second farm into the same folder waits, then also waits until every local worker process of
+  the first has exited (they hold ``.globemill-workers.lock`` shared). Then it finishes output
+  sets a killed process left half renamed and removes temporary files that no live process
+  holds.
+- A farm that dies takes its workers with it: each local worker watches the farm process (a
+  pidfd on Linux) and ends itself with SIGTERM when it is gone, and asks for SIGTERM on its
+  parent's death (prctl PR_SET_PDEATHSIG). SIGTERM to the farm stops it like Ctrl-C
+  (FarmTerminated).
+- Failures stay local: an unreadable or invalid spec, a duplicate world name, a world whose
+  estimated memory exceeds the limit, a failed bake or a failed write is reported for that world
+  with its error (the file named) while every other world still bakes. A Dask worker that
   dies mid-bake has its task rescheduled on another worker by the scheduler (up to the cluster's
   ``distributed.scheduler.allowed-failures``); a local worker process that dies breaks its pool, so
   the pool is restarted and the unfinished worlds are baked again, the ones that were running at
   the time each on its own, until one kills its process twice and is reported as failed.
+- Before the work: the output folder is probe-written (an unwritable one raises WriteError, and
+  each bake checks the free space against its estimated files before it starts), and each world's
+  time and memory are estimated from its spec (estimate_bake).
 - Ctrl-C (KeyboardInterrupt) stops cleanly: queued worlds are cancelled, local worker processes are
   terminated, finished worlds keep their outputs and cache records, temporary files of this run's
   worlds are removed, ``farm.json`` records the unfinished worlds as interrupted, and the
@@ -30,6 +45,7 @@
 from __future__ import annotations
 
 import contextlib
+import ctypes
 import glob
 import hashlib
 import json
@@ -37,10 +53,12 @@ import multiprocessing
 import os
 import signal
 import socket
+import sys
 import tempfile
+import threading
 import time
 import uuid
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import asdict, dataclass, field
@@ -49,25 +67,45 @@ from pathlib import Path
 from typing import Any
 
 from . import __version__
-from ._atomic import write_files_atomically
+from ._atomic import (
+    WriteError,
+    finish_interrupted_sets,
+    probe_folder,
+    recorded,
+    sweep_temporaries,
+    write_files_atomically,
+)
 from .spec import SpecError, WorldSpec, load_spec, parse_spec
+
+try:
+    import fcntl
+except ImportError:  # not POSIX: farms into one folder are not kept apart
+    fcntl = None  # type: ignore[assignment]
 
 __all__ = [
     "CACHE_DIR",
     "SUMMARY_NAME",
+    "BakeEstimate",
     "FarmError",
     "FarmSummary",
+    "FarmTerminated",
+    "MemoryLimitError",
     "WorldOutcome",
+    "available_memory",
     "canonical_spec",
     "collect_specs",
+    "estimate_bake",
     "farm",
     "world_hash",
 ]
 
 SUMMARY_NAME = "farm.json"
 CACHE_DIR = ".globemill-cache"
-# bump when the cache record or the hashed document changes shape
-CACHE_FORMAT = 1
+# bump when the cache record or the hashed document changes shape (2: files named by sha256)
+CACHE_FORMAT = 2
+# held by the farm writing into a folder, and (shared) by its local worker processes
+LOCK_NAME = ".globemill-farm.lock"
+WORKERS_LOCK_NAME = ".globemill-workers.lock"
 SPEC_SUFFIXES = (".toml", ".json")
 OUTPUT_SUFFIXES = {"glb": ".glb", "collision": ".collision.glb", "report": ".report.json"}
 # a local world is reported as failed after its worker process died this often while it ran alone
@@ -82,6 +120,14 @@ OnWorld = Callable[["WorldOutcome"], None]
 
 class FarmError(RuntimeError):
     """The farm cannot run at all: no specs, Dask missing, scheduler unreachable."""
+
+
+class FarmTerminated(KeyboardInterrupt):
+    """SIGTERM reached the farm: it stopped as cleanly as for Ctrl-C."""
+
+
+class MemoryLimitError(RuntimeError):
+    """A bake's estimate exceeds the memory it may use; the message gives the figures."""
 
 
 # --------------------------------------------------------------------------------------------
@@ -236,6 +282,148 @@ def world_hash(
 
 
 # --------------------------------------------------------------------------------------------
+# estimates before the work
+
+# Calibrated on this project's 2-core build machine from bakes of examples/pebblemoor.toml at
+# tolerances 2, 1 and 0.5 m with one thread (core estimate 275k / 550k / 1.10M triangles; bake
+# 4.1 / 7.6 / 27.9 s; peak resident memory 87 / 140 / 345 MB over a 46 MB interpreter; outputs
+# 4.9 / 10.8 / 30.8 MB) and from loading a spec of 100,000 hills (1.5 s, 240 MB). Memory and time
+# are the largest of those runs per estimated triangle (or feature), rounded up: on such worlds
+# the core's estimate runs 2-5x above the triangles a bake makes, so they are meant as upper
+# bounds. On tiny worlds (a few thousand triangles) the core's estimate can fall 15 % below the
+# bake's triangles; there the fixed part dominates (a `globemill bake` of a 6,800-triangle world
+# peaked at 54 MB resident, so 64 MB). Time is divided by the threads used (the
+# 1 m bake took 4.7 s with 2 threads, estimated 7.2 s). File bytes are a LOW estimate (the
+# smallest ratio seen, 17.9 B per estimated triangle at 2 m; tiny worlds write 70-80): a folder
+# with less free space than that cannot hold the files, and is refused before the bake.
+BYTES_PER_TRIANGLE = 280
+SECONDS_PER_TRIANGLE = 26e-6  # one thread
+OUTPUT_BYTES_PER_TRIANGLE = 17
+BYTES_PER_FEATURE = 2500
+SECONDS_PER_FEATURE = 16e-6
+BASE_BYTES = 64_000_000
+# the CLI prints the estimate of a bake above either of these
+LARGE_SECONDS = 10.0
+LARGE_BYTES = 1_000_000_000
+
+
+@dataclass(frozen=True)
+class BakeEstimate:
+    """What a bake will cost, from its spec, before it starts (see the calibration above)."""
+
+    world: str
+    features: int
+    tolerance_m: float
+    triangles: int
+    memory_bytes: int
+    seconds: float
+    output_bytes: int  # a low estimate: the files need at least about this much
+    threads: int
+
+    @property
+    def large(self) -> bool:
+        return self.seconds > LARGE_SECONDS or self.memory_bytes > LARGE_BYTES
+
+    def describe(self) -> str:
+        return (
+            f"{self.world}: {self.features:,} features, about {self.triangles:,} triangles at "
+            f"{self.tolerance_m:g} m: estimated {_duration(self.seconds)} and "
+            f"{self.memory_bytes / 1e9:.2f} GB of memory ({self.threads} thread"
+            f"{'s' if self.threads != 1 else ''}), at least "
+            f"{self.output_bytes / 1e6:,.1f} MB of files"
+        )
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 90:
+        return f"{seconds:.0f} s"
+    if seconds < 5400:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+def _cores() -> int:
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def estimate_bake(
+    spec: WorldSpec, *, tolerance_m: float | None = None, threads: int = 0
+) -> BakeEstimate:
+    """Estimate the triangles, memory, time and file size of baking `spec` (threads: 0 = all
+    cores), from the core's triangle estimate for the tolerance and the feature count."""
+    from . import _core
+    from .field import Field
+
+    tol = float(spec.tolerance_m if tolerance_m is None else tolerance_m)
+    if not tol > 0:
+        raise ValueError(f"tolerance_m: must be > 0, got {tol!r}")
+    nfeat = len(spec.features)
+    tris = int(_core.estimate_triangles(Field(spec)._core, tol))
+    tris = min(tris, int(spec.max_triangles))  # the bake stops at its budget
+    used = min(threads, _cores()) if threads > 0 else _cores()
+    return BakeEstimate(
+        world=spec.name,
+        features=nfeat,
+        tolerance_m=tol,
+        triangles=tris,
+        memory_bytes=int(BASE_BYTES + BYTES_PER_TRIANGLE * tris + BYTES_PER_FEATURE * nfeat),
+        seconds=SECONDS_PER_TRIANGLE * tris / used + SECONDS_PER_FEATURE * nfeat,
+        output_bytes=int(OUTPUT_BYTES_PER_TRIANGLE * tris),
+        threads=used,
+    )
+
+
+def available_memory() -> int | None:
+    """Bytes of memory available to new work now (Linux MemAvailable), None when unknown."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def check_memory(est: BakeEstimate, max_memory_bytes: int | None) -> None:
+    """Raise MemoryLimitError when the estimate exceeds `max_memory_bytes` (None: no limit)."""
+    if max_memory_bytes is None or est.memory_bytes <= max_memory_bytes:
+        return
+    raise MemoryLimitError(
+        f"{est.world}: the bake would need about {est.memory_bytes / 1e9:.2f} GB of memory "
+        f"({est.triangles:,} triangles estimated at {est.tolerance_m:g} m, {est.features:,} "
+        f"features), more than the limit of {max_memory_bytes / 1e9:.2f} GB (--max-memory); "
+        "raise the limit or the tolerance"
+    )
+
+
+def _sha256_of(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            h.update(block)
+    return h.hexdigest()
+
+
+def _file_matches(path: Path, entry: Any) -> bool:
+    """`path` holds exactly the bytes `entry` ({"bytes", "sha256"}) names."""
+    try:
+        return (
+            path.stat().st_size == entry["bytes"]
+            and isinstance(entry["sha256"], str)
+            and _sha256_of(path) == entry["sha256"]
+        )
+    except (OSError, KeyError, TypeError):
+        return False
+
+
+# --------------------------------------------------------------------------------------------
 # finding the specs
 
 
@@ -261,8 +449,8 @@ def _is_spec_file(path: Path, summary: Path) -> bool:
 
 def collect_specs(specs: Spec | Iterable[Spec], outdir: Path | None = None) -> list[_Input]:
     """Expand files, folders (their .toml and .json files, not recursive) and glob patterns
-    (``**`` recursive) into spec inputs, in the order given, each file once. A folder or pattern
-    that yields nothing becomes an input with an error."""
+    (``**`` recursive) into spec inputs, in the order given, each file once. A missing file, or a
+    folder or pattern that yields nothing, becomes an input with an error."""
     items: list[Spec]
     if isinstance(specs, (str, os.PathLike, WorldSpec)):
         items = [specs]
@@ -286,8 +474,11 @@ def collect_specs(specs: Spec | Iterable[Spec], outdir: Path | None = None) -> l
             found = sorted(p for p in matches if _is_spec_file(p, summary))
             if not found:
                 out.append(_Input(text, error=f"no .toml or .json world specs match {text!r}"))
+        elif not path.exists():
+            out.append(_Input(text, error=f"{text}: no such file or folder"))
+            continue
         else:
-            found = [path]  # a missing file or a wrong suffix is reported by load_spec
+            found = [path]  # a wrong suffix is reported by load_spec
         for p in found:
             key = p.resolve()
             if key not in seen:
@@ -300,15 +491,95 @@ def collect_specs(specs: Spec | Iterable[Spec], outdir: Path | None = None) -> l
 # the task that runs in a worker process (local pool or Dask worker)
 
 
-def _init_local_worker() -> None:
+PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
+_worker_lock_fd: int | None = None
+
+
+def _die_with_parent() -> None:
+    """Ask Linux to send this process SIGTERM when its parent dies (prctl PR_SET_PDEATHSIG).
+    That covers a pool started with spawn, whose parent is the farm; a fork server's children
+    keep the server alive, so for them the farm is watched by _die_with_farm."""
+    if not sys.platform.startswith("linux"):
+        return
+    parent = os.getppid()
+    with contextlib.suppress(OSError, AttributeError):
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(PR_SET_PDEATHSIG, int(signal.SIGTERM), 0, 0, 0)
+    if os.getppid() != parent:  # the parent died before the request was made
+        os._exit(1)
+
+
+def _wait_for_exit(pid: int) -> None:
+    """Return when process `pid` has exited (a pidfd where Linux has one, else polling)."""
+    import select
+
+    opener = getattr(os, "pidfd_open", None)
+    if opener is not None:
+        try:
+            fd = opener(pid)
+        except ProcessLookupError:
+            return
+        except OSError:
+            fd = None
+        if fd is not None:
+            try:
+                select.select([fd], [], [])  # readable once the process has exited
+            finally:
+                os.close(fd)
+            return
+    while True:
+        try:
+            os.kill(pid, 0)
+        except ProcessLookupError:
+            return
+        except PermissionError:
+            pass
+        time.sleep(0.2)
+
+
+def _die_with_farm(farm_pid: int) -> None:
+    """A thread that sends this worker SIGTERM as soon as the farm process is gone (SIGKILL,
+    crash), so no bake of a dead farm goes on writing. SIGTERM, not SIGKILL: the atomic writer
+    holds it back while an output set is written and renamed."""
+
+    def watch() -> None:
+        if hasattr(signal, "pthread_sigmask"):  # the signal must go to the main thread
+            signal.pthread_sigmask(signal.SIG_BLOCK, {signal.SIGTERM, signal.SIGINT})
+        _wait_for_exit(farm_pid)
+        os.kill(os.getpid(), signal.SIGTERM)
+
+    threading.Thread(target=watch, name="globemill-farm-watch", daemon=True).start()
+
+
+def _init_local_worker(workers_lock: str | None = None, farm_pid: int | None = None) -> None:
     # Ctrl-C reaches the whole process group; the farm process decides what happens to the bakes
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _die_with_parent()
+    if farm_pid is not None:
+        _die_with_farm(farm_pid)
+    global _worker_lock_fd
+    if workers_lock and fcntl is not None:
+        # held (shared) for the life of this process: a later farm into the same folder waits
+        # for it, so a bake of an earlier farm can never land after the later farm's
+        with contextlib.suppress(OSError):
+            _worker_lock_fd = os.open(workers_lock, os.O_RDONLY)
+            fcntl.flock(_worker_lock_fd, fcntl.LOCK_SH)
 
 
 def _error_text(exc: BaseException) -> str:
-    if isinstance(exc, (SpecError, ValueError)):
+    if isinstance(exc, (SpecError, ValueError, WriteError, MemoryLimitError)):
         return str(exc)
+    if isinstance(exc, OSError) and exc.filename:
+        return f"{exc.filename}: {exc.strerror or exc}"
     return f"{type(exc).__name__}: {exc}"
+
+
+def _error_kind(exc: BaseException) -> str:
+    if isinstance(exc, OSError):
+        return "io"
+    if isinstance(exc, MemoryLimitError):
+        return "refused"
+    return "bake"
 
 
 def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
@@ -328,14 +599,20 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         from .output import write_outputs
 
         spec = parse_spec(task["spec"], source=task["source"])
+        outdir = Path(task["outdir"])
+        probe_folder(outdir, int(task.get("need_bytes", 0)))  # a full disk before, not after
         result = bake(
             spec,
             tolerance_m=task["tolerance_m"],
             offset=task["offset"],
             threads=task["threads"],
         )
-        paths = write_outputs(result, Path(task["outdir"]))
-        files = {kind: {"name": p.name, "bytes": p.stat().st_size} for kind, p in paths.items()}
+        with recorded() as sums:  # sizes and SHA-256 of the bytes as written
+            paths = write_outputs(result, outdir)
+        files = {
+            kind: {"name": p.name, "bytes": sums[p][0], "sha256": sums[p][1]}
+            for kind, p in paths.items()
+        }
         col = result.report.get("collision") or {}
         return {
             "ok": True,
@@ -349,6 +626,7 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         return {
             "ok": False,
             "error": _error_text(exc),
+            "kind": _error_kind(exc),
             "seconds": time.perf_counter() - t0,
             "worker": worker,
         }
@@ -363,22 +641,25 @@ def _record_path(outdir: Path, name: str) -> Path:
 
 
 def _cached(outdir: Path, name: str, digest: str) -> dict[str, Any] | None:
-    """The cache record of `name` if it matches `digest` and every output it lists is there with
-    its recorded size."""
+    """The cache record of `name` if it matches `digest` and every output it lists is there
+    with the SHA-256 of the bytes written for that digest."""
     try:
         record = json.loads(_record_path(outdir, name).read_text("utf-8"))
     except (OSError, ValueError):
         return None
-    if not isinstance(record, dict) or record.get("hash") != digest:
+    if (
+        not isinstance(record, dict)
+        or record.get("hash") != digest
+        or record.get("format") != CACHE_FORMAT
+    ):
         return None
     files = record.get("files")
     if not isinstance(files, dict) or "glb" not in files:
         return None
     for entry in files.values():
-        try:
-            if (outdir / entry["name"]).stat().st_size != entry["bytes"]:
-                return None
-        except (OSError, KeyError, TypeError):
+        if not isinstance(entry, dict) or not isinstance(entry.get("name"), str):
+            return None
+        if not _file_matches(outdir / entry["name"], entry):
             return None
     return record
 
@@ -388,14 +669,55 @@ def _write_record(outdir: Path, name: str, record: dict[str, Any]) -> None:
     write_files_atomically({_record_path(outdir, name): data})
 
 
-def _sweep_temporaries(outdir: Path, names: Iterable[str]) -> None:
-    """Remove temporary files that an atomic write of these worlds left behind (its process was
-    killed between writing and renaming); targets are never touched."""
-    for name in names:
-        for suffix in OUTPUT_SUFFIXES.values():
-            for tmp in outdir.glob(f".{name}{suffix}.*.tmp"):
-                with contextlib.suppress(OSError):
-                    tmp.unlink()
+def _clean_folder(outdir: Path, older_than: float | None = None) -> None:
+    """Finish output sets a killed process left half renamed, then remove temporary files of
+    ours that no live process holds (and, when given, last changed before `older_than`)."""
+    for folder in (outdir, outdir / CACHE_DIR):
+        finish_interrupted_sets(folder)
+        sweep_temporaries(folder, older_than=older_than)
+
+
+def _open_locked(path: Path, flags: int, busy: str, log: Callable[[str], None]) -> int:
+    """Open (or create) `path` and take an exclusive flock on it, saying `busy` (a format with
+    {holder}: the file's text) once when it has to wait."""
+    assert fcntl is not None
+    try:
+        fd = os.open(path, flags | os.O_CREAT, 0o666)
+    except OSError as exc:
+        raise WriteError(exc.errno or 5, exc.strerror or str(exc), str(path)) from None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        holder = os.pread(fd, 200, 0).decode("utf-8", "replace").strip() or "another farm"
+        log(busy.format(holder=holder))
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX)
+        except BaseException:
+            os.close(fd)
+            raise
+    return fd
+
+
+@contextlib.contextmanager
+def _folder_lock(outdir: Path, log: Callable[[str], None]) -> Iterator[None]:
+    """Hold `outdir` for this farm: a second farm into it waits here until the first is done,
+    then until every worker process of the first has exited."""
+    if fcntl is None:
+        yield
+        return
+    fd = _open_locked(
+        outdir / LOCK_NAME, os.O_RDWR, f"waiting for the farm {{holder}} writing to {outdir}", log
+    )
+    try:
+        with contextlib.suppress(OSError):
+            os.ftruncate(fd, 0)
+            os.pwrite(fd, f"{socket.gethostname()}:{os.getpid()}\n".encode(), 0)
+        busy = f"waiting for worker processes of an earlier farm into {outdir} to exit"
+        # released at once: our own workers take it shared
+        os.close(_open_locked(outdir / WORKERS_LOCK_NAME, os.O_RDONLY, busy, log))
+        yield
+    finally:
+        os.close(fd)
 
 
 # --------------------------------------------------------------------------------------------
@@ -446,7 +768,10 @@ def _local_batch(
     broken: list[tuple[_Job, bool]] = []
     with tempfile.TemporaryDirectory(prefix="globemill-farm-") as marks:
         pool = ProcessPoolExecutor(
-            max_workers=workers, mp_context=ctx, initializer=_init_local_worker
+            max_workers=workers,
+            mp_context=ctx,
+            initializer=_init_local_worker,
+            initargs=(os.path.join(batch[0].task["outdir"], WORKERS_LOCK_NAME), os.getpid()),
         )
         try:
             futures = {}
@@ -584,10 +909,25 @@ def _run_dask(
 
 
 def _default_jobs() -> int:
+    return _cores()
+
+
+@contextlib.contextmanager
+def _sigterm_stops() -> Iterator[None]:
+    """SIGTERM raises FarmTerminated here (main thread only), so it stops the farm as cleanly
+    as Ctrl-C does: the pool's workers are terminated, farm.json says what was left."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def stop(signum: int, frame: Any) -> None:
+        raise FarmTerminated()
+
+    old = signal.signal(signal.SIGTERM, stop)
     try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # not on Linux
-        return max(1, os.cpu_count() or 1)
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, old)
 
 
 def farm(
@@ -602,6 +942,8 @@ def farm(
     force: bool = False,
     progress: bool = False,
     on_world: OnWorld | None = None,
+    max_memory_bytes: int | None = None,
+    log: Callable[[str], None] | None = None,
 ) -> FarmSummary:
     """Bake every world in `specs` into `outdir`; return the summary (also in outdir/farm.json).
 
@@ -614,14 +956,22 @@ def farm(
     force : bake every world even when its cache record says it is up to date
     progress : show a progress bar across worlds on stderr
     on_world : called with each world's outcome as it is known (cached and failed ones first)
+    max_memory_bytes : a world whose estimated memory exceeds it is refused (reported failed,
+        error_kind "refused"); default: the memory this machine has available now
+    log : called with one-line notes (waiting for another farm, estimates of long work)
+
+    One farm at a time writes into a folder: a second one waits for the first (and its worker
+    processes) to finish. A world counts as cached only when every output holds the bytes
+    (SHA-256) the farm recorded when it wrote them for the same content hash.
 
     The local pool starts its processes from a fork server that imports the calling script's
     main module again, so a script calling farm() must do so under
     ``if __name__ == "__main__":`` (as for any multiprocessing pool).
 
     A failed world does not raise: check ``summary.ok`` / ``summary.failed``. Raises FarmError
-    when nothing can run (no specs, Dask missing, scheduler unreachable), ValueError for bad
-    options, and KeyboardInterrupt again after a clean stop.
+    when nothing can run (no specs, Dask missing, scheduler unreachable), WriteError (an
+    OSError naming the file) when `outdir` cannot be written, ValueError for bad options, and
+    KeyboardInterrupt (FarmTerminated for SIGTERM) again after a clean stop.
     """
     t_start = time.perf_counter()
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
@@ -629,13 +979,61 @@ def farm(
         raise ValueError(f"jobs: must be an integer >= 1, got {jobs!r}")
     if threads is not None and (not isinstance(threads, int) or threads < 0):
         raise ValueError(f"threads: must be an integer >= 0 (0 = all cores), got {threads!r}")
+    if max_memory_bytes is not None and not (
+        isinstance(max_memory_bytes, int) and max_memory_bytes > 0
+    ):
+        raise ValueError(f"max_memory_bytes: must be an integer > 0, got {max_memory_bytes!r}")
+    note = log or (lambda _msg: None)
     out = Path(outdir).resolve()
     inputs = collect_specs(specs, out)
     if not inputs:
         raise FarmError("no world specs given")
-    backend = "dask" if scheduler else "local"
-    out.mkdir(parents=True, exist_ok=True)
+    if all(inp.error is not None for inp in inputs):  # nothing to bake: write nothing
+        raise FarmError("no world specs found: " + "; ".join(str(i.error) for i in inputs))
+    probe_folder(out)  # an unwritable or full output folder is found before any work
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise WriteError(exc.errno or 5, exc.strerror or str(exc), str(out)) from None
+    limit = max_memory_bytes if max_memory_bytes is not None else available_memory()
+    with _sigterm_stops(), _folder_lock(out, note):
+        _clean_folder(out, older_than=time.time())
+        return _farm_locked(
+            inputs,
+            out,
+            jobs=jobs,
+            scheduler=scheduler,
+            tolerance_m=tolerance_m,
+            offset=offset,
+            threads=threads,
+            force=force,
+            progress=progress,
+            on_world=on_world,
+            limit=limit,
+            note=note,
+            t_start=t_start,
+            started=started,
+        )
 
+
+def _farm_locked(
+    inputs: list[_Input],
+    out: Path,
+    *,
+    jobs: int | None,
+    scheduler: str | None,
+    tolerance_m: float | None,
+    offset: str | None,
+    threads: int | None,
+    force: bool,
+    progress: bool,
+    on_world: OnWorld | None,
+    limit: int | None,
+    note: Callable[[str], None],
+    t_start: float,
+    started: str,
+) -> FarmSummary:
+    backend = "dask" if scheduler else "local"
     outcomes: list[WorldOutcome | None] = [None] * len(inputs)
     bar = None
     if progress:
@@ -651,20 +1049,37 @@ def farm(
         if on_world is not None:
             on_world(outcome)
 
-    # read, validate and hash every spec; skip the cached ones
+    def label_of(inp: _Input) -> str:
+        return Path(inp.source).stem if inp.path is not None else inp.source
+
+    # read, validate and hash every spec; skip the cached ones. Anything a file holds ends as
+    # that world's failure, never as the farm's.
     pending: list[tuple[int, WorldSpec, str]] = []
     names: dict[str, str] = {}
     for i, inp in enumerate(inputs):
-        label = Path(inp.source).stem if inp.path is not None else inp.source
         spec = inp.spec
         error = inp.error
-        if spec is None and error is None and inp.path is not None:
-            try:
+        try:
+            if spec is None and error is None and inp.path is not None:
                 spec = load_spec(inp.path)
-            except SpecError as exc:
-                error = str(exc)
+        except SpecError as exc:
+            error = str(exc)
+        except Exception as exc:  # a reader's limit (nesting depth, encoding) is still input
+            error = f"cannot read world spec {inp.source}: {_error_text(exc)}"
         if spec is None:
-            report(i, WorldOutcome(label, inp.source, "failed", error=error, error_kind="input"))
+            report(
+                i,
+                WorldOutcome(label_of(inp), inp.source, "failed", error=error, error_kind="input"),
+            )
+            continue
+        try:
+            digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset)
+        except Exception as exc:
+            error = f"world spec {inp.source} cannot be hashed: {_error_text(exc)}"
+            report(
+                i,
+                WorldOutcome(label_of(inp), inp.source, "failed", error=error, error_kind="input"),
+            )
             continue
         key = spec.name.casefold()  # case-insensitive file systems would merge the outputs too
         if key in names:
@@ -677,7 +1092,6 @@ def farm(
             )
             continue
         names[key] = inp.source
-        digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset)
         record = None if force else _cached(out, spec.name, digest)
         if record is not None:
             outcome = WorldOutcome(
@@ -696,9 +1110,42 @@ def farm(
 
     several = backend == "dask" or min(jobs or _default_jobs(), len(pending)) > 1
     bake_threads = threads if threads is not None else (1 if several else 0)
+
+    # estimates first: a world that cannot fit is refused before anything bakes
+    estimates: dict[int, BakeEstimate] = {}
+    accepted: list[tuple[int, WorldSpec, str]] = []
+    for i, spec, digest in pending:
+        try:
+            est = estimate_bake(spec, tolerance_m=tolerance_m, threads=bake_threads)
+            check_memory(est, limit)
+        except MemoryLimitError as exc:
+            outcome = WorldOutcome(
+                spec.name,
+                inputs[i].source,
+                "failed",
+                hash=digest,
+                error=str(exc),
+                error_kind="refused",
+            )
+            report(i, outcome)
+            continue
+        except Exception:  # the bake itself reports what is wrong with the options
+            est = None
+        if est is not None:
+            estimates[i] = est
+        accepted.append((i, spec, digest))
+    pending = accepted
     workers: int | None = None
     if backend == "local":
         workers = min(jobs or _default_jobs(), len(pending))
+    if estimates:
+        total = sum(e.seconds for e in estimates.values()) / max(1, workers or 1)
+        big = max(estimates.values(), key=lambda e: e.memory_bytes)
+        if total > LARGE_SECONDS or big.memory_bytes > LARGE_BYTES:
+            note(
+                f"{len(pending)} world{'s' if len(pending) != 1 else ''} to bake: estimated "
+                f"{_duration(total)} in all; the largest, {big.describe()}"
+            )
     jobs_list = [
         _Job(
             index=i,
@@ -712,6 +1159,7 @@ def farm(
                 "offset": offset,
                 "threads": bake_threads,
                 "globemill": __version__,
+                "need_bytes": estimates[i].output_bytes if i in estimates else 0,
             },
         )
         for i, spec, digest in pending
@@ -730,18 +1178,18 @@ def farm(
         )
         if not res.get("ok"):
             outcome.error = str(res.get("error"))
-            outcome.error_kind = "bake"
+            outcome.error_kind = str(res.get("kind") or "bake")
             report(job.index, outcome)
             return
         files: dict[str, dict[str, Any]] = res["files"]
         for entry in files.values():
-            path = out / entry["name"]
-            if not path.is_file() or path.stat().st_size != entry["bytes"]:
+            if not _file_matches(out / entry["name"], entry):
                 outcome.error = (
-                    f"worker {res.get('worker')} wrote {entry['name']} but it is not in {out} "
-                    "here: the output folder must be shared by the farm and every worker"
+                    f"worker {res.get('worker')} wrote {entry['name']} but {out} here does not "
+                    "hold those bytes: the output folder must be shared by the farm and every "
+                    "worker, and nothing else may write into it while the farm runs"
                 )
-                outcome.error_kind = "bake"
+                outcome.error_kind = "io"
                 report(job.index, outcome)
                 return
         record = {
@@ -758,8 +1206,8 @@ def farm(
         try:
             _write_record(out, job.name, record)
         except OSError as exc:
-            outcome.error = f"outputs written, but the cache record could not be: {exc}"
-            outcome.error_kind = "bake"
+            outcome.error = f"outputs written, but not the cache record: {_error_text(exc)}"
+            outcome.error_kind = "io"
             report(job.index, outcome)
             return
         outcome.status = "baked"
@@ -787,7 +1235,7 @@ def farm(
     finally:
         if bar is not None:
             bar.close()
-        _sweep_temporaries(out, [job.name for job in jobs_list])
+        _clean_folder(out)
         worlds = []
         for i, inp in enumerate(inputs):
             got = outcomes[i]
@@ -806,9 +1254,8 @@ def farm(
                     outputs={k: v["name"] for k, v in record["files"].items()},
                 )
             elif got is None:  # interrupted, or the backend could not start
-                label = Path(inp.source).stem if inp.path is not None else inp.source
                 got = WorldOutcome(
-                    job.name if job else label,
+                    job.name if job else label_of(inp),
                     inp.source,
                     "interrupted" if interrupted else "failed",
                     hash=job.digest if job else None,
