@@ -75,6 +75,7 @@ from ._atomic import (
     sweep_temporaries,
     write_files_atomically,
 )
+from .provenance import canonical_spec
 from .spec import SpecError, WorldSpec, load_spec, parse_spec
 
 try:
@@ -240,19 +241,6 @@ class FarmSummary:
 
 # --------------------------------------------------------------------------------------------
 # hashing
-
-
-def canonical_spec(spec: WorldSpec) -> str:
-    """The spec as canonical JSON: validated values with defaults filled in, keys sorted, no
-    spaces. Two files that describe the same world (TOML or JSON, any key order, 400 or 400.0)
-    give the same text."""
-    return json.dumps(
-        spec.model_dump(mode="json"),
-        sort_keys=True,
-        separators=(",", ":"),
-        ensure_ascii=False,
-        allow_nan=False,
-    )
 
 
 def bake_options(
