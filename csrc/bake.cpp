@@ -22,6 +22,11 @@ namespace {
 using Clock = std::chrono::steady_clock;
 double since(Clock::time_point t) { return std::chrono::duration<double>(Clock::now() - t).count(); }
 
+// this thread's field evaluations since `before` (parallel_for adds its workers' to it)
+EvalTally since(const EvalTally& before) {
+    return {eval_tally().points - before.points, eval_tally().terms - before.terms};
+}
+
 std::string num(double x) { return format_number(x); }
 
 bool finite_positive(double x) { return std::isfinite(x) && x > 0; }
@@ -183,6 +188,7 @@ bool reusable(const BakeResult& r, const Hierarchy& h, const BakeResult& prev, s
 Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std::string& error,
             const Incremental* inc, BakeState* state) {
     const auto t_start = Clock::now();
+    const EvalTally e_start = eval_tally();
     Status st = check_settings(settings, error);
     if (st != Status::Ok) return st;
     if (field.radius() != settings.radius_m) {
@@ -221,19 +227,24 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     Hierarchy& h = state ? state->hierarchy : local;
     h = Hierarchy{};
     if (settings.progress) estimate = estimate_triangles(field, plan.finest_m);
+    EvalTally ev = eval_tally();
     st = build_hierarchy(field, ro, h, r.stats, error);
     if (st != Status::Ok) return st;
+    r.evaluations.hierarchy = since(ev);
     r.seconds.refine = r.stats.refine_seconds;
     r.seconds.verify = r.stats.verify_seconds;
     r.chunk_count = h.chunks;
 
     // 2. the vertex pool and its attributes
     auto t = Clock::now();
+    ev = eval_tally();
     make_pool(field, h, previous ? inc : nullptr, r);
     r.seconds.attributes = since(t);
+    r.evaluations.attributes = since(ev);
 
     // 3. levels, morph targets and seams
     t = Clock::now();
+    ev = eval_tally();
     progress(kStageLevels, 0, plan.tolerances.size());
     const BakeResult* prev = previous ? inc->previous_result : nullptr;
     std::vector<const Level*> prev_levels;
@@ -282,16 +293,20 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
         progress(kStageChunks, k + 1, levels.size());
     }
     r.seconds.levels = since(t);
+    r.evaluations.levels = since(ev);
 
     // 5. colliders
     if (settings.collision) {
         progress(kStageColliders, 0, 1);
+        ev = eval_tally();
         st = make_colliders(field, h, r, error);
         if (st != Status::Ok) return st;
+        r.evaluations.colliders = since(ev);
         r.seconds.colliders = r.colliders.seconds;
         progress(kStageColliders, 1, 1);
     }
     r.seconds.total = since(t_start);
+    r.evaluations.total = since(e_start);
     return Status::Ok;
 }
 

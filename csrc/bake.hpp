@@ -133,6 +133,11 @@ struct StageSeconds {
     double refine = 0, verify = 0, attributes = 0, levels = 0, colliders = 0, total = 0;
 };
 
+// field evaluations per stage (points and point x feature terms; see EvalTally)
+struct StageEvaluations {
+    EvalTally hierarchy, attributes, levels, colliders, total;
+};
+
 struct BakeResult {
     BakeSettings settings;  // progress cleared
     BakePlan plan;
@@ -148,6 +153,7 @@ struct BakeResult {
     ColliderResult colliders;
     RefineStats stats;
     StageSeconds seconds;
+    StageEvaluations evaluations;
 };
 
 // the previous state of an edit session, for an incremental bake

@@ -459,6 +459,9 @@ double Field::noise(const Feature& f, Vec3 u, Vec3* grad) const {
 
 double Field::eval(Vec3 u, const std::uint32_t* list, std::size_t count, Vec3* grad, int force,
                    double force_m) const {
+    EvalTally& tally = tl_eval_tally;
+    ++tally.points;
+    tally.terms += count;
     double H = 0;
     Vec3 G{};
     const bool wg = grad != nullptr;

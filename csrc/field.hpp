@@ -45,6 +45,15 @@ struct Cap {
     double angle = 0;
 };
 
+// a running count of field evaluations on this thread: points evaluated and point x feature terms.
+// parallel_for hands its workers' counts back to the calling thread, so a caller that reads its
+// tally before and after a call learns what the call cost, whatever the thread count.
+struct EvalTally {
+    std::uint64_t points = 0, terms = 0;
+};
+inline thread_local EvalTally tl_eval_tally;
+inline EvalTally& eval_tally() { return tl_eval_tally; }
+
 enum class Status : int {
     Ok = 0,
     InvalidArgument = 1,

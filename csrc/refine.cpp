@@ -516,11 +516,21 @@ void parallel_for(std::size_t n, int threads, const std::function<void(std::size
             fn(b * block, std::min(n, (b + 1) * block));
         }
     };
+    // the workers' field evaluations are handed back to the calling thread's tally
+    std::atomic<std::uint64_t> points{0}, terms{0};
+    auto worker = [&]() {
+        const EvalTally before = eval_tally();
+        work();
+        points += eval_tally().points - before.points;
+        terms += eval_tally().terms - before.terms;
+    };
     std::vector<std::thread> pool;
     pool.reserve(static_cast<std::size_t>(nt - 1));
-    for (int i = 1; i < nt; ++i) pool.emplace_back(work);
+    for (int i = 1; i < nt; ++i) pool.emplace_back(worker);
     work();
     for (auto& th : pool) th.join();
+    eval_tally().points += points;
+    eval_tally().terms += terms;
 }
 
 void icosahedron(std::vector<Vec3>& v, std::vector<std::uint32_t>& f) {

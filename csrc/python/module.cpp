@@ -324,6 +324,16 @@ public:
         sec["colliders"] = r.seconds.colliders;
         sec["total"] = r.seconds.total;
         st["seconds"] = sec;
+        py::dict ev;
+        auto put = [&ev](const char* k, const EvalTally& t) {
+            ev[k] = py::make_tuple(t.points, t.terms);
+        };
+        put("hierarchy", r.evaluations.hierarchy);
+        put("attributes", r.evaluations.attributes);
+        put("levels", r.evaluations.levels);
+        put("colliders", r.evaluations.colliders);
+        put("total", r.evaluations.total);
+        st["evaluations"] = ev;
         st["tolerances"] = r.plan.tolerances;
         st["collider_m"] = r.plan.collider_m;
         st["skirt_depth_m"] = r.plan.skirt_depth_m;

@@ -296,6 +296,17 @@ def _wrap(
             "seconds": col["seconds"],
         }
     seconds = stats.pop("seconds")
+    triangles = sum(lr.report["triangles"] for lr in levels) + (
+        col_report["triangles"] if col_report else 0
+    )
+    evaluations = {
+        stage: {"points": int(pts), "point_features": int(terms)}
+        for stage, (pts, terms) in stats.pop("evaluations").items()
+    }
+    # field evaluations per output triangle (every level and the colliders)
+    evaluations["per_output_triangle"] = {
+        k: v / max(triangles, 1) for k, v in evaluations["total"].items()
+    }
     for key in ("tolerances", "collider_m", "skirt_depth_m"):
         stats.pop(key)
     report = {
@@ -309,6 +320,7 @@ def _wrap(
         "collision": col_report,
         "refine": stats,
         "stages_seconds": seconds,
+        "evaluations": evaluations,
         "seconds_total": seconds["total"],
     }
     return BakeResult(
