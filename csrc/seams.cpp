@@ -42,7 +42,8 @@ ChunkBorder chunk_border(const LevelSeams& s, std::uint32_t c) {
     b.t0 = s.start[c];
     b.t1 = s.start[c + 1];
     const auto& tri = s.lv.triangles;
-    b.tris.assign(tri.begin() + static_cast<std::ptrdiff_t>(3 * b.t0), tri.begin() + static_cast<std::ptrdiff_t>(3 * b.t1));
+    b.tris.assign(tri.begin() + static_cast<std::ptrdiff_t>(3 * b.t0),
+                  tri.begin() + static_cast<std::ptrdiff_t>(3 * b.t1));
     b.err.assign(s.lv.errors.begin() + static_cast<std::ptrdiff_t>(b.t0),
                  s.lv.errors.begin() + static_cast<std::ptrdiff_t>(b.t1));
     b.in_border.assign(b.count(), 0);
@@ -160,7 +161,8 @@ void make_seams(const Hierarchy& h, const ChunkEdges& edges, const ChunkInfo& ch
             thread_local std::vector<std::uint8_t> removed;
             if (removed.size() != nv) removed.assign(nv, 0);
             std::vector<std::uint32_t> scratch;
-            for (std::size_t c = cb; c < ce; ++c) seam_chunk(s, static_cast<std::uint32_t>(c), removed, scratch, pieces[c]);
+            for (std::size_t c = cb; c < ce; ++c)
+                seam_chunk(s, static_cast<std::uint32_t>(c), removed, scratch, pieces[c]);
         },
         1);
     gather(pieces, lv);

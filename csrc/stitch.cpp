@@ -177,6 +177,9 @@ private:
         return false;
     }
 
+    // the angle of vertex v from the first corner of chunk edge e
+    double along_edge(std::uint32_t e, std::uint32_t v) const { return angle(h_.dir[edges_.ends[e][0]], h_.dir[v]); }
+
     // triangulate one hole loop less its removed vertices (p -> r -> q becomes p -> q)
     bool fill(const Loop& walk, std::vector<std::uint32_t>& out) const {
         Loop loop;
@@ -189,9 +192,9 @@ private:
             const std::uint32_t v = loop[i];
             xy(v, x[i], y[i]);
             if (edges_.corner[v])
-                for (std::uint32_t e : edges_.corner_edges[v]) on[i].add(e, angle(h_.dir[edges_.ends[e][0]], h_.dir[v]));
+                for (std::uint32_t e : edges_.corner_edges[v]) on[i].add(e, along_edge(e, v));
             else if (edges_.cedge[v] != kNone)
-                on[i].add(edges_.cedge[v], angle(h_.dir[edges_.ends[edges_.cedge[v]][0]], h_.dir[v]));
+                on[i].add(edges_.cedge[v], along_edge(edges_.cedge[v], v));
         }
         return ear_clip(loop, x, y, on, out);
     }
