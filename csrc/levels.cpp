@@ -1,0 +1,144 @@
+// levels of detail from one newest-vertex bisection hierarchy (Mitchell 1989). a level at
+// tolerance e is the coarsest conforming mesh of the hierarchy that splits every node whose
+// critical tolerance exceeds e: the smallest node set closed under "parent" and "pair" (the node
+// bisected together with it), which is exactly what conforming bisection needs. each level is
+// verified a posteriori like the finest one: a leaf measured beyond the tolerance is split (with
+// its closure) and its children are measured in turn.
+#include "levels.hpp"
+
+#include <algorithm>
+
+#include "measure.hpp"
+
+namespace gm {
+
+namespace {
+
+// add the nodes on the stack, and everything conforming bisection needs with them, to the split
+// set (every node taken off the stack, the starting ones too, is appended to `added` when given)
+void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& stack,
+               std::vector<std::uint32_t>* added = nullptr) {
+    while (!stack.empty()) {
+        const std::uint32_t x = stack.back();
+        stack.pop_back();
+        if (added) added->push_back(x);
+        const Node& n = h.nodes[x];
+        for (std::uint32_t y : {n.parent, n.pair}) {
+            if (y != kNone && !in[y]) {
+                in[y] = 1;
+                stack.push_back(y);
+            }
+        }
+    }
+}
+
+// the closure at tolerance eps, in one pass from the last node down (a parent comes before its
+// children, so it is reached after them); a pair already passed goes through close_set. 2 marks
+// nodes new to this level (the coarser level's set is closed already).
+void close_at(const Hierarchy& h, double eps, std::vector<std::uint8_t>& in) {
+    std::vector<std::uint32_t> stack;
+    for (std::uint32_t i = static_cast<std::uint32_t>(h.nodes.size()); i-- > 0;) {
+        const Node& n = h.nodes[i];
+        if (!in[i]) {
+            if (n.child == kNone || !(n.level < h.min_level || n.tau > eps)) continue;
+            in[i] = 2;
+        }
+        if (in[i] != 2) continue;
+        if (n.parent != kNone && !in[n.parent]) in[n.parent] = 2;
+        if (n.pair != kNone && !in[n.pair]) {
+            in[n.pair] = 2;
+            if (n.pair > i) stack.push_back(n.pair);
+        }
+    }
+    close_set(h, in, stack);
+    for (std::uint8_t& x : in) x = x ? 1 : 0;
+}
+
+// the leaves of a split set, in node order
+void leaves_of(const Hierarchy& h, const std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& out) {
+    out.clear();
+    for (std::uint32_t i = 0; i < h.nodes.size(); ++i) {
+        const Node& n = h.nodes[i];
+        if (!in[i] && (n.parent == kNone || in[n.parent])) out.push_back(i);
+    }
+}
+
+// measure the nodes not measured yet (the same sampling as the hierarchy's own verification)
+void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& ids, int order,
+                   double spacing, int threads) {
+    parallel_for(ids.size(), threads, [&](std::size_t b, std::size_t e) {
+        for (std::size_t k = b; k < e; ++k) {
+            Node& t = h.nodes[ids[k]];
+            if (t.err >= 0) continue;
+            double m2s, s2m;
+            t.err = static_cast<float>(
+                triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, m2s, s2m, spacing));
+            t.m2s = static_cast<float>(m2s);
+            t.s2m = static_cast<float>(s2m);
+        }
+    });
+}
+
+// verification: first every leaf, then the new leaves under the nodes each repair adds
+void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int threads,
+                       std::vector<std::uint8_t>& in, Level& lv) {
+    const double eps = lv.tolerance_m;
+    std::vector<std::uint32_t> check, added, stack;
+    leaves_of(h, in, check);
+    const double spacing = verify_spacing(field, h.tolerance);
+    while (verify_order > 0 && !check.empty()) {
+        measure_nodes(field, h, check, verify_order, spacing, threads);
+        for (std::uint32_t id : check) {
+            const Node& t = h.nodes[id];
+            if (t.err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
+                in[id] = 1;
+                stack.push_back(id);
+                ++lv.repaired;
+            }
+        }
+        added.clear();
+        close_set(h, in, stack, &added);
+        check.clear();
+        for (std::uint32_t x : added) {
+            const std::uint32_t c = h.nodes[x].child;
+            if (c == kNone) continue;
+            if (!in[c]) check.push_back(c);
+            if (!in[c + 1]) check.push_back(c + 1);
+        }
+        std::sort(check.begin(), check.end());
+    }
+}
+
+// the leaves as the level's triangles, grouped by chunk, in node order within a chunk (a
+// counting sort)
+void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& leaves, Level& lv) {
+    std::vector<std::uint32_t> first(static_cast<std::size_t>(h.chunks) + 1, 0), order(leaves.size());
+    for (std::uint32_t id : leaves) ++first[h.nodes[id].chunk + 1];
+    for (std::size_t c = 0; c < h.chunks; ++c) first[c + 1] += first[c];
+    for (std::uint32_t id : leaves) order[first[h.nodes[id].chunk]++] = id;
+    lv.present.assign(h.dir.size(), 0);
+    lv.triangles.reserve(order.size() * 3);
+    for (std::uint32_t id : order) {
+        const Node& t = h.nodes[id];
+        lv.triangles.insert(lv.triangles.end(), {t.v[0], t.v[1], t.v[2]});
+        lv.chunk.push_back(t.chunk);
+        lv.errors.push_back(t.err);
+        for (int k = 0; k < 3; ++k) lv.present[t.v[k]] = 1;
+        lv.max_error_m = std::max(lv.max_error_m, static_cast<double>(t.err));
+        lv.mesh_to_surface_m = std::max(lv.mesh_to_surface_m, static_cast<double>(t.m2s));
+        lv.surface_to_mesh_m = std::max(lv.surface_to_mesh_m, static_cast<double>(t.s2m));
+    }
+}
+
+}  // namespace
+
+void cut_level(const Field& field, Hierarchy& h, int verify_order, int threads, std::vector<std::uint8_t>& split,
+               Level& lv) {
+    close_at(h, lv.tolerance_m, split);
+    verify_and_repair(field, h, verify_order, threads, split, lv);
+    std::vector<std::uint32_t> leaves;
+    leaves_of(h, split, leaves);
+    collect_triangles(h, leaves, lv);
+}
+
+}  // namespace gm
