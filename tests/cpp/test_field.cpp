@@ -398,19 +398,19 @@ TEST_CASE("bad feature rows are refused with a clear message") {
     Row off_sphere = hill(c, 1, 10);
     off_sphere[5] = 0;  // the zero vector (the core normalises any other centre)
     const Case cases[] = {
-        {kind, gm::Status::InvalidArgument, "kind code must be an integer in 0..5"},
+        {kind, gm::Status::InvalidArgument, "kind: unknown kind code"},
         {nan, gm::Status::NonFinite, "non-finite value in column 10"},
-        {off_sphere, gm::Status::InvalidArgument, "centre must be a unit vector"},
-        {hill(c, 1, 0), gm::Status::InvalidArgument, "sigma_m must be > 0"},
-        {mesa(c, 1, 10, -1), gm::Status::InvalidArgument, "wall_m must be >= 0"},
-        {block(c, 1, 10, 5, 6, 1, 0), gm::Status::InvalidArgument, "corner_m must be in [0, min(half_x_m, half_y_m)]"},
+        {off_sphere, gm::Status::InvalidArgument, "must be a unit vector"},
+        {hill(c, 1, 0), gm::Status::InvalidArgument, "sigma_m: must be > 0"},
+        {mesa(c, 1, 10, -1), gm::Status::InvalidArgument, "wall_m: must be >= 0"},
+        {block(c, 1, 10, 5, 6, 1, 0), gm::Status::InvalidArgument, "corner_m: must be <= 5 (allowed: 0 to min(half_x_m, half_y_m))"},
         {block(c, 1, 1100, 5, 0, 1, 0), gm::Status::InvalidArgument, "within 60 degrees"},
-        {crater(c, 1, 10, 1, 0), gm::Status::InvalidArgument, "rim_width_m must be > 0"},
+        {crater(c, 1, 10, 1, 0), gm::Status::InvalidArgument, "rim_width_m: must be > 0"},
         {ridge(c, gm::normalize(Vec3{0, 0, -1}), 1, 10, 0), gm::Status::InvalidArgument, "arc angle must be in (0, 179] degrees"},
-        {noise(1, 0.1, 13, 0.5, 0), gm::Status::InvalidArgument, "octaves must be an integer in 1..12"},
-        {noise(1, 0.1, 3, 1.5, 0), gm::Status::InvalidArgument, "gain must be in (0, 1]"},
-        {noise(1, 0.1, 3, 0.5, -1), gm::Status::InvalidArgument, "seed must be an integer in 0..2^32-1"},
-        {hill(c, 1, 10, Blend::SmoothMax, 0), gm::Status::InvalidArgument, "blend_width_m must be > 0"},
+        {noise(1, 0.1, 13, 0.5, 0), gm::Status::InvalidArgument, "octaves: must be <= 12 (allowed: integer 1 to 12)"},
+        {noise(1, 0.1, 3, 1.5, 0), gm::Status::InvalidArgument, "gain: must be <= 1 (allowed: > 0 and <= 1)"},
+        {noise(1, 0.1, 3, 0.5, -1), gm::Status::InvalidArgument, "seed: must be >= 0 (allowed: integer 0 to 4294967295)"},
+        {hill(c, 1, 10, Blend::SmoothMax, 0), gm::Status::InvalidArgument, "blend_width_m: must be > 0"},
     };
     for (const Case& k : cases) {
         Field f;
