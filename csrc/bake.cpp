@@ -72,6 +72,26 @@ Status check_settings(const BakeSettings& s, std::string& error) {
     return Status::Ok;
 }
 
+Status check_feature_sizes(const Field& field, double tol, std::string& error) {
+    for (std::size_t i = 0; i < field.size(); ++i) {
+        const Feature& f = field.feature(i);
+        if (f.kind == Kind::Noise || !(f.amp_m > tol)) continue;
+        double smallest = (tol / 8) * std::sqrt(f.amp_m / tol);
+        if (f.scale_m >= smallest) continue;
+        // quoted rounded up to three significant digits: a size that passes
+        const double unit = std::pow(10.0, std::floor(std::log10(smallest)) - 2);
+        smallest = std::ceil(smallest / unit) * unit;
+        static const char* const kSize[] = {"sigma_m", "radius_m", "min(half_x_m, half_y_m)",
+                                            "min(radius_m, rim_width_m)", "half_width_m", ""};
+        error = "features[" + std::to_string(i) + "]: too thin to mesh at tolerance " + num(tol) + " m: its " +
+                kSize[static_cast<int>(f.kind)] + " is " + num(f.scale_m) + " m; at this tolerance a feature " +
+                num(f.amp_m) + " m tall needs at least " + num(smallest) +
+                " m (tolerance/8 x sqrt(amplitude/tolerance)); widen it, lower it, or raise tolerance_m";
+        return Status::InvalidArgument;
+    }
+    return Status::Ok;
+}
+
 BakePlan plan_bake(const BakeSettings& s) {
     BakePlan p;
     p.tolerances.resize(static_cast<std::size_t>(s.levels));
@@ -196,6 +216,8 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
                 num(settings.radius_m);
         return Status::InvalidArgument;
     }
+    st = check_feature_sizes(field, plan_bake(settings).finest_m, error);
+    if (st != Status::Ok) return st;
     r = BakeResult{};
     r.settings = settings;
     r.settings.progress = nullptr;
@@ -307,6 +329,20 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     }
     r.seconds.total = since(t_start);
     r.evaluations.total = since(e_start);
+    if (!settings.accept_over_tolerance) {
+        auto missed = [&](const std::string& what, double measured, double tol) {
+            error = what + " measures " + num(measured) + " m from the true surface, beyond its tolerance " + num(tol) +
+                    " m (refinement reached its size floor there); raise the tolerance, soften the feature, "
+                    "or accept it explicitly (accept_over_tolerance)";
+            return Status::ToleranceMissed;
+        };
+        for (std::size_t k = 0; k < r.levels.size(); ++k) {
+            const Level& lv = r.levels[k].mesh;
+            if (lv.max_error_m > lv.tolerance_m) return missed("level " + std::to_string(k), lv.max_error_m, lv.tolerance_m);
+        }
+        if (r.colliders.made && r.colliders.max_error_m > r.colliders.tolerance_m)
+            return missed("the collider", r.colliders.max_error_m, r.colliders.tolerance_m);
+    }
     return Status::Ok;
 }
 

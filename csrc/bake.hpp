@@ -58,6 +58,9 @@ struct BakeSettings {
     std::uint64_t collider_cap = 65535;  // triangles per chunk collider
     std::vector<LayerRule> layers;
     int threads = 0;  // 0: every hardware thread; the result does not depend on it
+    // keep a bake whose level or collider measures beyond its tolerance (default: it fails with
+    // Status::ToleranceMissed, naming the level and the figures)
+    bool accept_over_tolerance = false;
     // called between refinement rounds and after each later stage, on the calling thread:
     // (stage, done, total) with stage one of the kStage* names
     std::function<void(const char*, std::uint64_t, std::uint64_t)> progress;
@@ -71,6 +74,13 @@ extern const char* const kStageColliders;
 
 // check every setting against its allowed range; the message names the setting and the range
 Status check_settings(const BakeSettings& s, std::string& error);
+
+// features too thin to mesh within `tolerance_m`: a feature of amplitude A above the tolerance
+// needs triangles of about scale * sqrt(tolerance / A) at its peak, and refinement stops at
+// triangles tolerance / 8 across (refine.cpp, at_floor), so a feature whose scale is below
+// (tolerance / 8) * sqrt(A / tolerance) would be missed. The message names the feature, its size
+// and the smallest size allowed at this tolerance. (Noise is sampled by its wavelengths instead.)
+Status check_feature_sizes(const Field& field, double tolerance_m, std::string& error);
 
 // what the settings make of a bake: level tolerances (finest first), the collider tolerance
 // asked for, the finest tolerance the hierarchy must reach, and the skirt depth (0: stitched)

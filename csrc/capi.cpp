@@ -96,6 +96,8 @@ gm_status from_core(gm::Status s, const std::string& msg, gm_error* err) {
             return ok(err);
         case gm::Status::BudgetExceeded:
             return fail(err, GM_ERROR_BUDGET, msg);
+        case gm::Status::ToleranceMissed:
+            return fail(err, GM_ERROR_TOLERANCE, msg);
         case gm::Status::InvalidArgument:
         case gm::Status::NonFinite:
             return fail(err, GM_ERROR_INVALID_ARGUMENT, msg);
@@ -218,6 +220,7 @@ gm_status settings_of(const gm::SpecData& spec, const gm_bake_options& o, gm::Ba
     s.collision_centered = spec.collision_centered;
     s.collider_cap = spec.max_triangles_per_chunk;
     s.threads = o.threads;
+    s.accept_over_tolerance = o.accept_over_tolerance != 0;
     s.layers = layers_of(spec);
     if (o.progress) {
         gm_progress_fn fn = o.progress;
@@ -280,6 +283,7 @@ GM_API const char* gm_status_name(int32_t status) {
         case GM_ERROR_BUFFER_TOO_SMALL: return "buffer too small";
         case GM_ERROR_OUT_OF_MEMORY: return "out of memory";
         case GM_ERROR_INTERNAL: return "internal error";
+        case GM_ERROR_TOLERANCE: return "tolerance missed";
         default: return "unknown status";
     }
 }

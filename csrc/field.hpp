@@ -60,6 +60,7 @@ enum class Status : int {
     BudgetExceeded = 2,
     NonFinite = 3,
     Internal = 4,
+    ToleranceMissed = 5,  // a level measured beyond its tolerance (the mesher's size floor)
 };
 
 class Field {

@@ -87,6 +87,7 @@ namespace Globemill
         public ulong MaxTriangles;
         public IntPtr Progress;      // a ProgressFn from Marshal.GetFunctionPointerForDelegate, or zero
         public IntPtr ProgressUser;
+        public int AcceptOverTolerance; // 1: keep a bake measured beyond a tolerance
     }
 
     [StructLayout(LayoutKind.Sequential)]

@@ -39,6 +39,7 @@ cdef extern from "globemill.h" nogil:
         uint64_t max_triangles
         gm_progress_fn progress
         void* progress_user
+        int32_t accept_over_tolerance
     ctypedef struct gm_bake_info:
         uint64_t vertex_count
         uint32_t level_count

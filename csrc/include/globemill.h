@@ -52,7 +52,10 @@
  *
  * Versioning.  GM_VERSION is the version of this header, gm_version() that of the library loaded
  *   at run time; hosts should check that their major versions agree. Structs that may grow carry a
- *   struct_size member set by their *_init call.
+ *   struct_size member set by their *_init call; they grow only at their end. A *_init call fills
+ *   the whole struct as this library's header declares it, so declare the struct from the header
+ *   shipped with the library you load (a shorter struct filled by hand with its own struct_size
+ *   is read up to that size, the rest taking the defaults).
  * ---------------------------------------------------------------------------------------------
  */
 #ifndef GLOBEMILL_H
@@ -98,7 +101,10 @@ typedef enum gm_status {
     GM_ERROR_BUDGET = 4,            /* the tolerance needs more triangles than max_triangles */
     GM_ERROR_BUFFER_TOO_SMALL = 5,  /* an output capacity below the count the call writes */
     GM_ERROR_OUT_OF_MEMORY = 6,
-    GM_ERROR_INTERNAL = 7           /* a broken invariant inside the core (please report it) */
+    GM_ERROR_INTERNAL = 7,          /* a broken invariant inside the core (please report it) */
+    GM_ERROR_TOLERANCE = 8          /* a level or the collider measured beyond its tolerance (the
+                                     * mesher's size floor); set options.accept_over_tolerance to
+                                     * keep such a bake */
 } gm_status;
 
 #define GM_ERROR_MESSAGE_SIZE 1024
@@ -246,6 +252,8 @@ typedef struct gm_bake_options {
     uint64_t max_triangles;  /* triangle budget; 0: the spec's max_triangles */
     gm_progress_fn progress; /* may be NULL */
     void* progress_user;     /* passed to progress */
+    int32_t accept_over_tolerance; /* 1: keep a bake measured beyond a tolerance; 0 (default):
+                                    * it fails with GM_ERROR_TOLERANCE */
 } gm_bake_options;
 
 /* Fill options with the defaults (every value from the spec, all threads, colliders on).

@@ -35,6 +35,11 @@ py::array_t<T> to_numpy(std::vector<T>&& v, std::vector<py::ssize_t> shape) {
     return py::array_t<T>(shape, heap->data(), owner);
 }
 
+// a bake that could not be done (budget, tolerance missed): globemill.BakeError, a ValueError
+struct BakeFailure : std::runtime_error {
+    using std::runtime_error::runtime_error;
+};
+
 void raise_status(Status s, const std::string& msg) {
     switch (s) {
         case Status::Ok:
@@ -43,7 +48,8 @@ void raise_status(Status s, const std::string& msg) {
         case Status::NonFinite:
             throw py::value_error(msg);
         case Status::BudgetExceeded:
-            throw py::value_error(msg);
+        case Status::ToleranceMissed:
+            throw BakeFailure(msg);
         default:
             throw std::runtime_error(msg);
     }
@@ -200,6 +206,7 @@ BakeSettings settings_from(const py::dict& d) {
     s.collision_centered = get("collision_centered").cast<bool>();
     s.collider_cap = get("collider_cap").cast<std::uint64_t>();
     s.threads = get("threads").cast<int>();
+    s.accept_over_tolerance = get("accept_over_tolerance").cast<bool>();
     s.layers = layers_from(get("layers"));
     return s;
 }
@@ -441,6 +448,7 @@ PYBIND11_MODULE(_core, m) {
         .def("height", &PyField::height, py::arg("directions"))
         .def("gradient", &PyField::gradient, py::arg("directions"))
         .def("wall_distance", &PyField::wall_distance, py::arg("points"));
+    py::register_exception<BakeFailure>(m, "BakeError", PyExc_ValueError);
     m.attr("MEASURE_ORDER") = kMeasureOrder;
     m.attr("MIN_ANGLE_DEG") = kMinAngleDeg;
     m.attr("NO_LAYER") = kNoLayer;

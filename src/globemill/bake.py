@@ -5,8 +5,10 @@ no copies) in dataclasses; it computes nothing itself."""
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
-from collections.abc import Callable
+import re
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from dataclasses import field as dc_field
 from typing import Any
@@ -162,6 +164,7 @@ def settings(
     chunk_level: int | None = None,
     collision: bool = True,
     threads: int = 0,
+    accept_over_tolerance: bool = False,
 ) -> dict[str, Any]:
     """The core's bake settings for `spec` with the given overrides (None: the spec's). The core
     checks every range (csrc/bake.cpp, check_settings); here only the types are checked."""
@@ -195,6 +198,7 @@ def settings(
         "collision_tolerance_m": float(col.tolerance_m or 0.0),
         "collision_centered": col.bias == "centered",
         "collider_cap": int(col.max_triangles_per_chunk),
+        "accept_over_tolerance": bool(accept_over_tolerance),
         "layers": _layer_rows(spec),
     }
 
@@ -351,6 +355,7 @@ def bake(
     chunk_level: int | None = None,
     collision: bool = True,
     threads: int = 0,
+    accept_over_tolerance: bool = False,
     progress: Progress | None = None,
 ) -> BakeResult:
     """Mesh `spec` to within `tolerance_m` (default: the spec's) of the true surface, with every
@@ -358,7 +363,10 @@ def bake(
 
     The result is deterministic: the same spec gives the same arrays whatever `threads` is.
     `progress(stage, done, total)` is called as the bake goes (see `Progress`).
-    Raises ValueError for bad options or a tolerance that would exceed `spec.max_triangles`.
+    Raises ValueError for bad options or a feature too thin to mesh at the tolerance, and
+    BakeError (a ValueError) when the bake cannot be done: a tolerance that would exceed
+    `spec.max_triangles`, or a level measured beyond its tolerance (unless
+    `accept_over_tolerance`).
     """
     s = settings(
         spec,
@@ -369,5 +377,25 @@ def bake(
         chunk_level=chunk_level,
         collision=collision,
         threads=threads,
+        accept_over_tolerance=accept_over_tolerance,
     )
-    return _wrap(spec, s, _core.bake(Field(spec)._core, s, progress))
+    with named_features(spec):
+        return _wrap(spec, s, _core.bake(Field(spec)._core, s, progress))
+
+
+BakeError = _core.BakeError
+
+
+@contextlib.contextmanager
+def named_features(spec: WorldSpec) -> Iterator[None]:
+    """Core messages name features by index (``features[3]: ...``); add the feature's name."""
+    try:
+        yield
+    except ValueError as exc:
+        msg = str(exc)
+        m = re.match(r"features\[(\d+)\]", msg)
+        if m and int(m.group(1)) < len(spec.features):
+            name = getattr(spec.features[int(m.group(1))], "name", None)
+            if name:
+                raise type(exc)(f"{m.group(0)} ({name!r}){msg[m.end() :]}") from None
+        raise

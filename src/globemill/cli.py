@@ -136,6 +136,7 @@ def _bake_spec(
             tolerance_m=args.tolerance_m,
             offset=args.offset,
             threads=args.threads,
+            accept_over_tolerance=args.accept_over_tolerance,
             progress=progress,
         )
     finally:
@@ -207,6 +208,12 @@ def _add_bake_options(p: argparse.ArgumentParser) -> None:
         help="how the mesher measures offset (default: the spec's)",
     )
     p.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
+    p.add_argument(
+        "--accept-over-tolerance",
+        action="store_true",
+        help="keep a bake whose level or collider measures beyond its tolerance (by default it "
+        "fails with exit 3 and writes nothing)",
+    )
     _add_memory_option(p)
     p.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
 
@@ -450,6 +457,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from ._core import BakeError
     from .farm import FarmTerminated, MemoryLimitError
     from .spec import SpecError
 
@@ -463,6 +471,9 @@ def main(argv: list[str] | None = None) -> int:
     except MemoryLimitError as exc:
         _err(str(exc))
         return EXIT_REFUSED
+    except BakeError as exc:
+        _err(str(exc))
+        return EXIT_BAKE_FAILED
     except ValueError as exc:
         msg = str(exc)
         _err(msg)

@@ -26,7 +26,7 @@ import numpy as np
 import numpy.typing as npt
 
 from . import _core
-from .bake import BakeResult, ChunkMesh, _layer_rows, _wrap, settings
+from .bake import BakeResult, ChunkMesh, _layer_rows, _wrap, named_features, settings
 from .field import Field
 from .spec import Feature, Ridge, WorldSpec, parse_spec, unit_vector
 
@@ -145,6 +145,7 @@ class EditSession:
         chunk_level: int | None = None,
         collision: bool = False,
         threads: int = 0,
+        accept_over_tolerance: bool = False,
     ) -> None:
         self._settings = settings(
             spec,
@@ -155,10 +156,12 @@ class EditSession:
             chunk_level=chunk_level,
             collision=collision,
             threads=threads,
+            accept_over_tolerance=accept_over_tolerance,
         )
         self._lock = threading.RLock()
         self._spec = spec
-        self._core = _core.EditSession(Field(spec)._core, self._settings)
+        with named_features(spec):
+            self._core = _core.EditSession(Field(spec)._core, self._settings)
         self._result = _wrap(spec, self._settings, self._core.result())
 
     # ---- reading ---------------------------------------------------------------------------
@@ -277,7 +280,8 @@ class EditSession:
         return self._apply(parse_spec(data, source="edit"))
 
     def _apply(self, spec: WorldSpec) -> EditReport:
-        done = self._core.update(Field(spec)._core, _layer_rows(spec))
+        with named_features(spec):
+            done = self._core.update(Field(spec)._core, _layer_rows(spec))
         result = _wrap(spec, self._settings, self._core.result(), self._result)
         self._spec, self._result = spec, result
         changed: dict[int, list[int]] = {}
