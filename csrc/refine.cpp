@@ -433,12 +433,14 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
     stats.rounds = round;
     auto clock1 = std::chrono::steady_clock::now();
     stats.refine_seconds = std::chrono::duration<double>(clock1 - clock0).count();
+    const std::uint64_t verify_from = eval_tally().points;
     if (opt.verify_order > 0) {
         Status st = verify(stats, error);
         if (st != Status::Ok) return st;
     }
     stats.verify_seconds =
         std::chrono::duration<double>(std::chrono::steady_clock::now() - clock1).count();
+    stats.verify_points = eval_tally().points - verify_from;
     int maxl = 0;
     for (const Node& t : tris)
         if (t.child == kNone) maxl = std::max(maxl, static_cast<int>(t.level));

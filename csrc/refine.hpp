@@ -53,6 +53,7 @@ struct RefineStats {
     int max_level = 0;
     double refine_seconds = 0;  // probing and splitting
     double verify_seconds = 0;  // a posteriori measurement and repair
+    std::uint64_t verify_points = 0;  // field evaluations of the a posteriori measurement
 };
 
 // one triangle of the bisection hierarchy

@@ -148,6 +148,7 @@ py::dict stats_dict(const RefineStats& stats) {
     st["reused"] = stats.reused;
     st["refine_seconds"] = stats.refine_seconds;
     st["verify_seconds"] = stats.verify_seconds;
+    st["verify_points"] = stats.verify_points;
     return st;
 }
 
