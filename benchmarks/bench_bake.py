@@ -32,7 +32,7 @@ import globemill
 HERE = Path(__file__).resolve().parent
 DEMO = HERE.parent / "examples" / "pebblemoor.toml"
 TOLERANCE_M = 0.5
-ROUNDS = 2
+ROUNDS = int(os.environ.get("GLOBEMILL_BENCH_ROUNDS", "2"))
 RESULTS: dict[str, Any] = {}
 
 

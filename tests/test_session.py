@@ -347,3 +347,30 @@ def test_the_live_edit_example_prints_latencies_and_writes_frames(tmp_path) -> N
     frames = sorted(tmp_path.glob("frame_*.png"))
     assert [f.name for f in frames] == ["frame_000.png", "frame_001.png"]
     assert all(f.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for f in frames)
+
+
+def test_two_threads_editing_one_session_run_one_after_the_other() -> None:
+    # the thread contract (session.py, csrc/session.cpp): calls serialise on the session's lock,
+    # so concurrent edits neither crash nor interleave; the result is a fresh bake of the spec the
+    # last edit left, and every edit saw a consistent spec
+    import threading
+
+    s = EditSession(_spec(), **OPTIONS)
+    hill = next(i for i, f in enumerate(s.spec.features) if f.kind == "hill")
+    errors: list[BaseException] = []
+
+    def edit(dlat: float) -> None:
+        try:
+            for k in range(3):
+                f = s.spec.features[hill]
+                s.move_feature(hill, (f.lat_deg + dlat, f.lon_deg + 0.1 * k))
+        except BaseException as exc:  # pragma: no cover - the failure is the assertion below
+            errors.append(exc)
+
+    threads = [threading.Thread(target=edit, args=(d,)) for d in (0.2, -0.3)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert not errors
+    assert_same(s.result, bake(s.spec, **OPTIONS))
