@@ -525,99 +525,210 @@ double Field::eval(Vec3 u, const std::uint32_t* list, std::size_t count, Vec3* g
     return H;
 }
 
-int Field::cell_of(Vec3 u) const {
+namespace {
+
+// cube map: face 0 +x, 1 -x, 2 +y, 3 -y, 4 +z, 5 -z; on each face the coordinates (s, t) in
+// [-1, 1]^2 are the other two components divided by the largest one's magnitude
+Vec3 face_direction(int face, double s, double t) {
+    double sg = (face % 2 == 0) ? 1.0 : -1.0;
+    if (face < 2) return normalize({sg, s, t});
+    if (face < 4) return normalize({s, sg, t});
+    return normalize({s, t, sg});
+}
+
+int face_coords(Vec3 u, double& s, double& t) {
     double ax = std::fabs(u.x), ay = std::fabs(u.y), az = std::fabs(u.z);
-    int face;
-    double s, t;
+    if (!(ax + ay + az > 0)) {
+        s = t = 0;
+        return 0;
+    }
     if (ax >= ay && ax >= az) {
-        face = u.x > 0 ? 0 : 1;
         s = u.y / ax;
         t = u.z / ax;
-    } else if (ay >= az) {
-        face = u.y > 0 ? 2 : 3;
+        return u.x > 0 ? 0 : 1;
+    }
+    if (ay >= az) {
         s = u.x / ay;
         t = u.z / ay;
-    } else {
-        face = u.z > 0 ? 4 : 5;
-        s = u.x / az;
-        t = u.y / az;
+        return u.y > 0 ? 2 : 3;
     }
-    auto idx = [&](double v) {
-        int k = static_cast<int>(std::floor((v + 1) * 0.5 * n_));
-        return std::min(std::max(k, 0), n_ - 1);
-    };
-    if (!(ax + ay + az > 0)) return 0;
-    return (face * n_ + idx(s)) * n_ + idx(t);
+    s = u.x / az;
+    t = u.y / az;
+    return u.z > 0 ? 4 : 5;
+}
+
+// a cell of the cube-map quadtree: face, level and position (i, j) among the 2^level x 2^level
+// cells of the face. its corners are dyadic fractions, exact in double, so they equal the
+// midpoints a query computes while it descends.
+struct QuadCell {
+    int face = 0, level = 0;
+    std::uint32_t i = 0, j = 0;
+    std::uint32_t node = 0;               // its node in the index
+    std::size_t start = 0, count = 0;     // its list in the build's pool
+};
+
+// the cap around the cell: centre the direction of the cell's middle, radius the largest angle
+// to a corner (a spherical quadrilateral of great-circle arcs within a hemisphere lies in the
+// cap through its corners), plus a margin for rounding
+Cap bounding_cap(const QuadCell& c) {
+    double w = std::ldexp(1.0, 1 - c.level);
+    double s0 = -1 + w * c.i, s1 = s0 + w, t0 = -1 + w * c.j, t1 = t0 + w;
+    Cap cap;
+    cap.c = face_direction(c.face, 0.5 * (s0 + s1), 0.5 * (t0 + t1));
+    for (Vec3 corner : {face_direction(c.face, s0, t0), face_direction(c.face, s0, t1),
+                        face_direction(c.face, s1, t0), face_direction(c.face, s1, t1)})
+        cap.angle = std::max(cap.angle, angle(cap.c, corner));
+    cap.angle += 1e-9;
+    return cap;
+}
+
+}  // namespace
+
+std::size_t Field::index_bound_bytes(std::size_t features) {
+    return std::max<std::size_t>(std::size_t{16} << 20, 128 * features);
+}
+
+std::size_t Field::cell_of(Vec3 u) const {
+    double s, t;
+    std::size_t id = static_cast<std::size_t>(face_coords(u, s, t));
+    double s0 = -1, s1 = 1, t0 = -1, t1 = 1;
+    while (index_nodes_[id].child >= 0) {
+        double sm = 0.5 * (s0 + s1), tm = 0.5 * (t0 + t1);
+        std::size_t q = 0;
+        if (s >= sm) {
+            q += 2;
+            s0 = sm;
+        } else {
+            s1 = sm;
+        }
+        if (t >= tm) {
+            q += 1;
+            t0 = tm;
+        } else {
+            t1 = tm;
+        }
+        id = static_cast<std::size_t>(index_nodes_[id].child) + q;
+    }
+    return id;
 }
 
 void Field::build_index() {
-    // cells roughly the size of a typical footprint, bounded so building stays cheap
-    std::vector<double> angles;
-    for (const auto& f : features_)
-        if (f.cap_angle < kPi) angles.push_back(f.cap_angle);
-    int n = 1;
-    if (!angles.empty()) {
-        std::nth_element(angles.begin(), angles.begin() + angles.size() / 2, angles.end());
-        double med = std::max(angles[angles.size() / 2], 1e-6);
-        n = static_cast<int>(std::ceil((kPi / 2) / med));
-        int cap = static_cast<int>(std::sqrt(4.0e6 / (6.0 * static_cast<double>(features_.size()))));
-        n = std::max(1, std::min({n, 64, std::max(cap, 1)}));
-    }
-    n_ = n;
-    const int cells = 6 * n * n;
-    std::vector<Vec3> centre(static_cast<std::size_t>(cells));
-    std::vector<double> cos_r(static_cast<std::size_t>(cells)), sin_r(static_cast<std::size_t>(cells));
-    std::vector<double> rad(static_cast<std::size_t>(cells));
+    // breadth first, one level at a time, so that when the memory bound stops splitting it
+    // stops at the same depth everywhere rather than starving one side of the sphere.
+    // a cell splits when it lists more than kIndexLeafItems features and either
+    // - its children together list at most kSplitGrowth times as many (the split pays: a query
+    //   in an average child scans fewer), or
+    // - most of its features have footprints under half the cell's size: those lie in few
+    //   children one level or two further down (a cluster on the cell's middle, the corner of
+    //   all four children, is separated at the next level).
+    // a feature that covers a cell lands in every child, so cells stop at about the size of the
+    // footprints that crowd them; the memory bound caps the rest.
+    constexpr double kSplitGrowth = 2.5;
+    const std::size_t bound = index_bound_bytes(features_.size());
+    index_nodes_.assign(6, IndexNode{});
+    index_items_.clear();
+    std::vector<QuadCell> cur, next;
+    std::vector<std::uint32_t> cur_items, next_items;
+    auto bytes = [&]() {
+        return sizeof(IndexNode) * index_nodes_.size() +
+               sizeof(std::uint32_t) * (index_items_.size() + cur_items.size() + next_items.size());
+    };
+    // the features of `list` whose footprints touch cell c, appended to `out`
+    auto gather = [&](QuadCell& c, const std::uint32_t* list, std::size_t count, bool all,
+                      std::vector<std::uint32_t>& out) {
+        Cap cap = bounding_cap(c);
+        double cc = std::cos(cap.angle), sc = std::sin(cap.angle);
+        c.start = out.size();
+        for (std::size_t k = 0; k < count; ++k) {
+            std::uint32_t f = all ? static_cast<std::uint32_t>(k) : list[k];
+            if (touches(f, cap, cc, sc)) out.push_back(f);
+        }
+        c.count = out.size() - c.start;
+        return cap;
+    };
     for (int face = 0; face < 6; ++face) {
-        for (int i = 0; i < n; ++i) {
-            for (int j = 0; j < n; ++j) {
-                auto dir = [&](double s, double t) {
-                    double sg = (face % 2 == 0) ? 1.0 : -1.0;
-                    if (face < 2) return normalize({sg, s, t});
-                    if (face < 4) return normalize({s, sg, t});
-                    return normalize({s, t, sg});
-                };
-                double s0 = -1 + 2.0 * i / n, s1 = -1 + 2.0 * (i + 1) / n;
-                double t0 = -1 + 2.0 * j / n, t1 = -1 + 2.0 * (j + 1) / n;
-                Vec3 cc = dir(0.5 * (s0 + s1), 0.5 * (t0 + t1));
-                double r = 0;
-                for (Vec3 corner_dir : {dir(s0, t0), dir(s0, t1), dir(s1, t0), dir(s1, t1)})
-                    r = std::max(r, angle(cc, corner_dir));
-                r += 1e-9;
-                std::size_t id = static_cast<std::size_t>((face * n + i) * n + j);
-                centre[id] = cc;
-                rad[id] = r;
-                cos_r[id] = std::cos(r);
-                sin_r[id] = std::sin(r);
+        QuadCell c;
+        c.face = face;
+        c.node = static_cast<std::uint32_t>(face);
+        gather(c, nullptr, features_.size(), true, cur_items);
+        cur.push_back(c);
+    }
+    while (!cur.empty()) {
+        next.clear();
+        next_items.clear();
+        for (const QuadCell& c : cur) {
+            const std::uint32_t* list = cur_items.data() + c.start;
+            bool split = c.count > kIndexLeafItems && c.level < kIndexMaxDepth &&
+                         bytes() + 4 * sizeof(IndexNode) <= bound;
+            if (split) {
+                const std::size_t mark = next_items.size();
+                double half = 0;
+                std::size_t sum = 0;
+                for (std::uint32_t q = 0; q < 4; ++q) {
+                    QuadCell k;
+                    k.face = c.face;
+                    k.level = c.level + 1;
+                    k.i = 2 * c.i + (q >> 1);
+                    k.j = 2 * c.j + (q & 1);
+                    k.node = static_cast<std::uint32_t>(index_nodes_.size()) + q;
+                    half = gather(k, list, c.count, false, next_items).angle;  // about half the cell
+                    sum += k.count;
+                    next.push_back(k);
+                }
+                bool pays = static_cast<double>(sum) <= kSplitGrowth * static_cast<double>(c.count);
+                if (!pays) {
+                    std::size_t small = 0;
+                    for (std::size_t k = 0; k < c.count; ++k)
+                        small += features_[list[k]].cap_angle < half;
+                    pays = 2 * small > c.count;
+                }
+                split = pays && bytes() + 4 * sizeof(IndexNode) <= bound;
+                if (split) {
+                    index_nodes_[c.node].child = static_cast<std::int32_t>(index_nodes_.size());
+                    index_nodes_.resize(index_nodes_.size() + 4);
+                } else {
+                    next_items.resize(mark);
+                    next.resize(next.size() - 4);
+                }
+            }
+            if (!split) {
+                IndexNode& node = index_nodes_[c.node];
+                node.start = static_cast<std::uint32_t>(index_items_.size());
+                node.count = static_cast<std::uint32_t>(c.count);
+                index_items_.insert(index_items_.end(), list, list + c.count);
             }
         }
+        std::swap(cur, next);
+        std::swap(cur_items, next_items);
     }
-    cell_start_.assign(static_cast<std::size_t>(cells) + 1, 0);
-    cell_items_.clear();
-    for (int id = 0; id < cells; ++id) {
-        std::size_t sid = static_cast<std::size_t>(id);
-        cell_start_[sid] = static_cast<std::uint32_t>(cell_items_.size());
-        for (std::size_t f = 0; f < features_.size(); ++f) {
-            const Feature& ft = features_[f];
-            bool hit;
-            if (ft.cap_angle + rad[sid] >= kPi) {
-                hit = true;
-            } else {
-                // angle(cell, cap) <= r_cell + r_cap  <=>  dot >= cos(r_cell + r_cap)
-                double ca = std::cos(ft.cap_angle), sa = std::sin(ft.cap_angle);
-                double lim = cos_r[sid] * ca - sin_r[sid] * sa;
-                hit = dot(centre[sid], ft.cap_c) >= lim - 1e-12;
-            }
-            if (hit) cell_items_.push_back(static_cast<std::uint32_t>(f));
+    index_nodes_.shrink_to_fit();
+    index_items_.shrink_to_fit();
+}
+
+Field::IndexStats Field::index_stats() const {
+    IndexStats st;
+    st.nodes = index_nodes_.size();
+    st.items = index_items_.size();
+    st.bytes = sizeof(IndexNode) * st.nodes + sizeof(std::uint32_t) * st.items;
+    // depth by walking down from the roots (children always follow their parent)
+    std::vector<int> depth(index_nodes_.size(), 0);
+    for (std::size_t id = 0; id < index_nodes_.size(); ++id) {
+        const IndexNode& n = index_nodes_[id];
+        if (n.child >= 0) {
+            for (std::size_t q = 0; q < 4; ++q) depth[static_cast<std::size_t>(n.child) + q] = depth[id] + 1;
+            continue;
         }
+        ++st.leaves;
+        st.longest = std::max<std::size_t>(st.longest, n.count);
+        st.depth = std::max(st.depth, depth[id]);
     }
-    cell_start_[static_cast<std::size_t>(cells)] = static_cast<std::uint32_t>(cell_items_.size());
+    return st;
 }
 
 void Field::candidates(Vec3 u, const std::uint32_t*& list, std::size_t& count) const {
-    std::size_t id = static_cast<std::size_t>(cell_of(u));
-    list = cell_items_.data() + cell_start_[id];
-    count = cell_start_[id + 1] - cell_start_[id];
+    const IndexNode& leaf = index_nodes_[cell_of(u)];
+    list = index_items_.data() + leaf.start;
+    count = leaf.count;
 }
 
 double Field::eval(Vec3 u, Vec3* grad) const {

@@ -80,8 +80,26 @@ public:
     // the same using the spatial index to find candidate features
     double eval(Vec3 u, Vec3* grad) const;
 
-    // candidate features for a point (ascending indices)
+    // candidate features for a point (ascending indices): every feature whose footprint cap
+    // reaches u, and maybe a few that do not (those change nothing). no allocation; cost is the
+    // depth of the footprint index, at most kIndexMaxDepth steps.
     void candidates(Vec3 u, const std::uint32_t*& list, std::size_t& count) const;
+
+    // the footprint index: a quadtree on each face of the cube map, a leaf listing (ascending)
+    // every feature whose footprint cap touches the leaf's bounding cap. a cell is split while it
+    // lists more than kIndexLeafItems features, most of them with footprints smaller than half
+    // the cell, it is less than kIndexMaxDepth levels deep, and the index stays within its
+    // memory bound: index_bound_bytes(n) = max(16 MiB, 128 bytes per feature).
+    static constexpr int kIndexMaxDepth = 24;
+    static constexpr std::size_t kIndexLeafItems = 8;
+    static std::size_t index_bound_bytes(std::size_t features);
+    struct IndexStats {
+        std::size_t nodes = 0, leaves = 0, items = 0;  // items: sum of the leaves' list lengths
+        std::size_t bytes = 0;                         // memory of nodes and lists
+        std::size_t longest = 0;                       // the longest leaf list
+        int depth = 0;                                 // the deepest leaf
+    };
+    IndexStats index_stats() const;
     bool touches(std::size_t f, const Cap& cap) const;
     // the same for many features against one cap: cap_cos, cap_sin are cos and sin of cap.angle
     bool touches(std::size_t f, const Cap& cap, double cap_cos, double cap_sin) const;
@@ -119,7 +137,7 @@ private:
     void contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& out) const;
     double noise(const Feature& f, Vec3 u, Vec3* grad) const;
     void build_index();
-    int cell_of(Vec3 u) const;
+    std::size_t cell_of(Vec3 u) const;  // the index leaf holding u
 
     double radius_ = 1;
     bool has_steps_ = false;
@@ -127,10 +145,14 @@ private:
     std::vector<std::uint32_t> creases_;  // the features with creases, ascending
     std::vector<Feature> features_;
     std::vector<std::array<std::uint8_t, 512>> perms_;
-    // cube-map grid: 6 * n_ * n_ cells, each with a list of features that may reach it
-    int n_ = 1;
-    std::vector<std::uint32_t> cell_start_;  // size cells + 1
-    std::vector<std::uint32_t> cell_items_;
+    // footprint index: nodes 0..5 are the roots of the cube faces; an inner node's four
+    // children are consecutive, child + 2 * (upper half in s) + (upper half in t)
+    struct IndexNode {
+        std::int32_t child = -1;            // first child, -1 for a leaf
+        std::uint32_t start = 0, count = 0;  // a leaf's list in index_items_
+    };
+    std::vector<IndexNode> index_nodes_;
+    std::vector<std::uint32_t> index_items_;
 };
 
 }  // namespace gm

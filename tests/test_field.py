@@ -18,6 +18,7 @@ naming (N, 3); non-unit directions are normalised, since H and ∇H are defined 
 
 from __future__ import annotations
 
+import math
 import sys
 from pathlib import Path
 from typing import Any
@@ -31,6 +32,7 @@ from reference_terrain import (
     ReferenceTerrain,
     difference_mismatch,
     direction,
+    directions_near,
     feature_row,
     random_directions,
     sample_directions,
@@ -488,3 +490,67 @@ def test_non_unit_directions_are_normalised(crater_field: Any) -> None:
     np.testing.assert_allclose(
         crater_field.gradient(u * scale), crater_field.gradient(u), atol=1e-7 * R
     )
+
+
+# ---------------------------------------------------------------------------------------------
+# the footprint index with many features (docs/meshing.md: a point query costs the features at
+# that point, not the world's): exact against evaluating only the features that reach
+# ---------------------------------------------------------------------------------------------
+
+INDEX_R = 200_000.0
+
+
+def _hill_rows(centres: np.ndarray, amplitude: np.ndarray, sigma: np.ndarray) -> np.ndarray:
+    rows = np.zeros((len(centres), 16))
+    rows[:, 0] = KIND_CODES["hill"]
+    rows[:, 3:6] = centres
+    rows[:, 6:9] = centres
+    rows[:, 9] = amplitude
+    rows[:, 10] = sigma
+    return rows
+
+
+def test_index_of_100000_features_is_exact_where_few_reach() -> None:
+    # 100,000 small hills (4 sigma under 0.3 degrees) anywhere, blends add and max alternating;
+    # probes within 3 degrees of +Z. The features whose footprints can reach a probe are picked
+    # here by angle alone; the core, with its index, must give bit for bit what the core gives
+    # for a world of only those (same arithmetic, same order: the C++ against itself), and that
+    # world must match the numpy reference.
+    rng = np.random.default_rng(3)
+    n = 100_000
+    centres = random_directions(rng, n)
+    sigma = rng.uniform(20.0, 200.0, n)
+    rows = _hill_rows(centres, rng.uniform(-1.0, 1.0, n), sigma)
+    rows[1::2, 1] = 1  # blend max
+    axis = np.array([0.0, 0.0, 1.0])
+    probes = directions_near(rng, axis, math.radians(3.0), 20_000)
+    ang = np.arccos(np.clip(centres @ axis, -1.0, 1.0))
+    near = ang < math.radians(3.0) + 4.0 * sigma / INDEX_R + 1e-6
+    assert 50 < near.sum() < 2_000
+    full = globemill._core.Field(INDEX_R, rows)
+    sub = globemill._core.Field(INDEX_R, rows[near])
+    np.testing.assert_array_equal(full.height(probes), sub.height(probes))
+    np.testing.assert_array_equal(full.gradient(probes), sub.gradient(probes))
+    ref = ReferenceTerrain(INDEX_R, rows[near])
+    np.testing.assert_allclose(
+        sub.height(probes[:2000]), ref.height(probes[:2000]), rtol=0, atol=HEIGHT_RTOL * INDEX_R
+    )
+
+
+def test_index_of_10000_features_on_one_spot_is_exact() -> None:
+    # every hill centred within 20 m of the middle of a cube face (the worst spot for the index)
+    rng = np.random.default_rng(4)
+    n = 10_000
+    spot = np.array([0.0, 0.0, 1.0])
+    c = spot + rng.uniform(-1e-4, 1e-4, (n, 3))
+    c /= np.linalg.norm(c, axis=1, keepdims=True)
+    rows = _hill_rows(c, rng.uniform(-1.0, 1.0, n), rng.uniform(100.0, 300.0, n))
+    fld = globemill._core.Field(INDEX_R, rows)
+    dirs = directions_near(rng, spot, 1500.0 / INDEX_R, 400)
+    ref = ReferenceTerrain(INDEX_R, rows)
+    np.testing.assert_allclose(
+        fld.height(dirs), ref.height(dirs), rtol=0, atol=HEIGHT_RTOL * INDEX_R
+    )
+    # beyond every footprint (4 x 300 m): exactly the base sphere
+    far = directions_near(rng, -spot, math.radians(170.0), 2000)
+    np.testing.assert_array_equal(fld.height(far), np.zeros(len(far)))

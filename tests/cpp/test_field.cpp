@@ -427,3 +427,159 @@ TEST_CASE("bad feature rows are refused with a clear message") {
     CHECK(init_field(f, 0, {}, err) == gm::Status::InvalidArgument);
     CHECK(err.find("radius_m must be a finite number > 0") != std::string::npos);
 }
+
+namespace {
+
+// the features whose footprint cap holds u (every one that can change H there), by scanning all
+const std::vector<std::uint32_t>& reaching(const Field& f, Vec3 u, std::vector<std::uint32_t>& out) {
+    out.clear();
+    for (std::size_t i = 0; i < f.size(); ++i) {
+        const gm::Feature& ft = f.feature(i);
+        if (ft.cap_angle >= kPi || gm::dot(u, ft.cap_c) >= ft.cap_cos) out.push_back(static_cast<std::uint32_t>(i));
+    }
+    return out;
+}
+
+// the index against scanning every feature at u: its list is strictly ascending and holds every
+// feature whose cap holds u, and the height and gradient are, bit for bit, those of the scan's
+// list and (when `all` is given) of evaluating every feature in order
+void check_point(const Field& f, Vec3 u, std::vector<std::uint32_t>& scan, const std::vector<std::uint32_t>* all) {
+    const std::uint32_t* list;
+    std::size_t count;
+    f.candidates(u, list, count);
+    for (std::size_t k = 1; k < count; ++k) REQUIRE(list[k - 1] < list[k]);
+    reaching(f, u, scan);
+    std::size_t k = 0;
+    for (std::uint32_t want : scan) {
+        while (k < count && list[k] < want) ++k;
+        INFO("feature " << want << " reaches the point but is not a candidate; angle "
+             << gm::angle(u, f.feature(want).cap_c) << " cap " << f.feature(want).cap_angle
+             << " rad");
+        REQUIRE((k < count && list[k] == want));
+    }
+    Vec3 g1, g2;
+    double h1 = f.eval(u, &g1);
+    double h2 = f.eval(u, scan.data(), scan.size(), &g2);
+    REQUIRE(same_bits(h1, h2));
+    REQUIRE((same_bits(g1.x, g2.x) && same_bits(g1.y, g2.y) && same_bits(g1.z, g2.z)));
+    if (all) {
+        double h3 = f.eval(u, all->data(), all->size(), &g2);
+        REQUIRE(same_bits(h1, h3));
+        REQUIRE((same_bits(g1.x, g2.x) && same_bits(g1.y, g2.y) && same_bits(g1.z, g2.z)));
+    }
+}
+
+// the point at geodesic distance d from unit c, in a random heading
+Vec3 near(Vec3 c, Rng& rng, double radius, double d) {
+    Vec3 v = rng.direction();
+    return gm::normalize(along(c, gm::normalize(v - gm::dot(v, c) * c), radius, d));
+}
+
+// directions on the lines where the index's cells meet: cube edges and corners, the middle lines
+// of the faces and dyadic fractions of them, where a query's descent compares equal values
+std::vector<Vec3> cell_border_points(Rng& rng) {
+    std::vector<Vec3> pts;
+    const double fr[] = {-1, -0.5, -0.25, 0, 0.125, 0.25, 0.5, 0.75, 1, 0x1p-10, -0x1p-20};
+    for (double a : fr)
+        for (double b : fr) {
+            double c = rng.uniform(-1, 1);
+            for (Vec3 v : {Vec3{1, a, b}, Vec3{-1, a, c}, Vec3{a, 1, b}, Vec3{c, -1, a}, Vec3{a, b, 1}, Vec3{b, c, -1}})
+                pts.push_back(gm::normalize(v));
+        }
+    return pts;
+}
+
+}  // namespace
+
+// 100,000 features of every kind and of sizes from metres to a hemisphere, blends mixed, one noise
+// layer over everything: the index must give what scanning all features gives, bit for bit, at
+// random points, at points near feature centres, and on the borders of its cells, and stay
+// within its stated memory bound
+TEST_CASE("spatial index matches evaluating every feature in a world of 100,000 features") {
+    const double big = 200000;
+    std::vector<Row> rows;
+    Rng rng(7);
+    for (int i = 0; i < 100000; ++i) {
+        Vec3 c = rng.direction();
+        double size = std::exp(rng.uniform(std::log(20.0), std::log(5000.0)));  // metres
+        if (i % 997 == 0) size = rng.uniform(30000, 150000);                       // a few wide ones
+        const double amp = rng.uniform(-0.5, 0.5);
+        const Blend blends[] = {Blend::Add, Blend::Max, Blend::Min, Blend::SmoothMax};
+        const Blend b = blends[(i / 5) % 4];
+        switch (i % 5) {
+            case 0: rows.push_back(hill(c, amp, size, b, b == Blend::SmoothMax ? 0.1 : 0)); break;
+            case 1: rows.push_back(mesa(c, amp, size, i % 2 ? 0 : 0.3 * size, b == Blend::SmoothMax ? Blend::Max : b)); break;
+            case 2: rows.push_back(crater(c, std::fabs(amp), size, 0.2, 0.5 * size)); break;
+            case 3: rows.push_back(block(c, amp, size, 0.6 * size, 0.1 * size, 0.2 * size, rng.uniform(0, 180))); break;
+            default: {
+                Vec3 t = some_tangent(c);
+                rows.push_back(ridge(along(c, t, big, -2 * size), along(c, t, big, 2 * size), amp, 0.3 * size, i % 2));
+            }
+        }
+        if (i == 50000) rows.push_back(noise(0.2, 1.0 / 3000, 2, 0.5, 9));
+    }
+    Field f;
+    make_field(f, big, rows);
+    const Field::IndexStats st = f.index_stats();
+    CHECK(st.bytes <= Field::index_bound_bytes(f.size()));
+    CHECK(st.depth <= Field::kIndexMaxDepth);
+    std::vector<std::uint32_t> all(f.size()), scan;
+    std::iota(all.begin(), all.end(), 0u);
+    std::size_t candidates = 0, reached = 0;
+    const int n = 4000;
+    for (int i = 0; i < n; ++i) {
+        Vec3 u = rng.direction();
+        if (i % 2) {
+            const Row& r = rows[rng.next() % rows.size()];
+            u = near(gm::normalize(Vec3{r[3], r[4], r[5]}), rng, big, rng.uniform(0, 2000));
+        }
+        // every feature at every 50th point: 80 x 100,000 evaluations
+        check_point(f, u, scan, i % 50 == 0 ? &all : nullptr);
+        const std::uint32_t* list;
+        std::size_t count;
+        f.candidates(u, list, count);
+        candidates += count;
+        reached += scan.size();
+    }
+    std::size_t k = 0;
+    for (Vec3 u : cell_border_points(rng)) check_point(f, u, scan, ++k % 8 == 0 ? &all : nullptr);
+    // a point is checked against the features that reach it and a few more, not against the
+    // world: at most three times as many candidates as reaching features, on average
+    INFO("candidates " << candidates << ", reaching " << reached);
+    CHECK(static_cast<double>(candidates) < 3.0 * static_cast<double>(reached));
+}
+
+// 10,000 hills on one spot, the middle of a cube face (the common corner of the four cells of
+// the first split, the worst place): the index stays within its memory bound, queries away from
+// the spot see none of them, and queries at the spot give what scanning every feature gives
+TEST_CASE("spatial index of 10,000 features on one spot stays small and exact") {
+    const double big = 200000;
+    for (Vec3 spot : {Vec3{0, 0, 1}, gm::normalize(Vec3{0.3, 0.4, 0.866})}) {
+        std::vector<Row> rows;
+        Rng rng(11);
+        for (int i = 0; i < 10000; ++i) {
+            Vec3 c = gm::normalize(spot + 1e-4 * Vec3{rng.uniform(-1, 1), rng.uniform(-1, 1), rng.uniform(-1, 1)});
+            rows.push_back(hill(c, rng.uniform(-1, 1), rng.uniform(100, 300), i % 3 ? Blend::Add : Blend::Max));
+        }
+        Field f;
+        make_field(f, big, rows);
+        const Field::IndexStats st = f.index_stats();
+        CHECK(st.bytes <= Field::index_bound_bytes(f.size()));
+        CHECK(st.longest == rows.size());  // the spot itself: every hill reaches it
+        std::vector<std::uint32_t> all(f.size()), scan;
+        std::iota(all.begin(), all.end(), 0u);
+        for (int i = 0; i < 300; ++i) {
+            Vec3 u = near(spot, rng, big, rng.uniform(0, 1500));
+            check_point(f, u, scan, i % 3 == 0 ? &all : nullptr);
+        }
+        // footprints reach at most 4 x 300 m + 0.02 km from the spot; 2 degrees is 7 km
+        for (int i = 0; i < 2000; ++i) {
+            Vec3 u = rng.direction();
+            if (gm::angle(u, spot) < rad(2)) continue;
+            const std::uint32_t* list;
+            std::size_t count;
+            f.candidates(u, list, count);
+            REQUIRE(count == 0);
+        }
+    }
+}
