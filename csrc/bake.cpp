@@ -216,12 +216,13 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
                 num(settings.radius_m);
         return Status::InvalidArgument;
     }
-    st = check_feature_sizes(field, plan_bake(settings).finest_m, error);
+    BakePlan plan0 = plan_bake(settings);
+    st = check_feature_sizes(field, plan0.finest_m, error);
     if (st != Status::Ok) return st;
     r = BakeResult{};
     r.settings = settings;
     r.settings.progress = nullptr;
-    r.plan = plan_bake(settings);
+    r.plan = std::move(plan0);
     const BakePlan& plan = r.plan;
     auto progress = [&](const char* stage, std::uint64_t done, std::uint64_t total) {
         if (settings.progress) settings.progress(stage, done, total);

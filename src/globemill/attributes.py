@@ -59,7 +59,8 @@ class VertexAttributes:
         )
 
 
-def _rows(layers: Sequence[Layer]) -> F64:
+def layer_rows(layers: Sequence[Layer]) -> F64:
+    """The layer rules as the core reads them: (n, 7) slope lo, hi, altitude lo, hi, colour."""
     if len(layers) > MAX_LAYERS:
         raise ValueError(f"layers: at most {MAX_LAYERS} layer rules fit _LAYER, got {len(layers)}")
     rows = [[*r.slope_deg, *r.altitude_m, *r.color] for r in layers]
@@ -81,7 +82,7 @@ def assign_layers(
     NO_LAYER. slope_deg, altitude_m : (N,) -> (N,) uint8."""
     s = np.ascontiguousarray(slope_deg, dtype=np.float64).reshape(-1)
     a = np.ascontiguousarray(altitude_m, dtype=np.float64).reshape(-1)
-    layer, _ = _core.assign_layers(_rows(layers), s, a)
+    layer, _ = _core.assign_layers(layer_rows(layers), s, a)
     return layer
 
 
@@ -99,7 +100,7 @@ def vertex_attributes(
     """Slope, altitude, layer and colour at every direction of `directions` (N, 3)."""
     fld = fld if fld is not None else Field(spec)
     slope, alt = slope_and_altitude(fld, directions)
-    layer, color = _core.assign_layers(_rows(spec.layers), slope, alt)
+    layer, color = _core.assign_layers(layer_rows(spec.layers), slope, alt)
     return VertexAttributes(slope, alt, layer, color)
 
 

@@ -17,6 +17,7 @@ import numpy as np
 import numpy.typing as npt
 
 from . import _core
+from .attributes import layer_rows
 from .field import Field
 from .spec import WorldSpec
 
@@ -148,12 +149,6 @@ class BakeResult:
         return self.vertices[ids], remap[lv.triangles]
 
 
-def _layer_rows(spec: WorldSpec) -> F64:
-    """The layer rules as the core reads them: (n, 7) slope lo, hi, altitude lo, hi, colour."""
-    rows = [[*rule.slope_deg, *rule.altitude_m, *rule.color] for rule in spec.layers]
-    return np.asarray(rows, dtype=np.float64).reshape(-1, 7)
-
-
 def settings(
     spec: WorldSpec,
     *,
@@ -199,7 +194,7 @@ def settings(
         "collision_centered": col.bias == "centered",
         "collider_cap": int(col.max_triangles_per_chunk),
         "accept_over_tolerance": bool(accept_over_tolerance),
-        "layers": _layer_rows(spec),
+        "layers": layer_rows(spec.layers),
     }
 
 

@@ -26,7 +26,8 @@ import numpy as np
 import numpy.typing as npt
 
 from . import _core
-from .bake import BakeResult, ChunkMesh, _layer_rows, _wrap, named_features, settings
+from .attributes import layer_rows
+from .bake import BakeResult, ChunkMesh, _wrap, named_features, settings
 from .field import Field
 from .spec import Feature, Ridge, WorldSpec, parse_spec, unit_vector
 
@@ -281,7 +282,7 @@ class EditSession:
 
     def _apply(self, spec: WorldSpec) -> EditReport:
         with named_features(spec):
-            done = self._core.update(Field(spec)._core, _layer_rows(spec))
+            done = self._core.update(Field(spec)._core, layer_rows(spec.layers))
         result = _wrap(spec, self._settings, self._core.result(), self._result)
         self._spec, self._result = spec, result
         changed: dict[int, list[int]] = {}
