@@ -10,6 +10,11 @@ import sys
 import bpy
 
 
+def bounds(o: object) -> list[list[float]]:
+    w = [o.matrix_world @ v.co for v in o.data.vertices]
+    return [[min(p[i] for p in w) for i in range(3)], [max(p[i] for p in w) for i in range(3)]]
+
+
 def counts(objs: list) -> dict:
     out = {}
     for o in objs:
@@ -22,6 +27,8 @@ def counts(objs: list) -> dict:
             "shape_keys": len(m.shape_keys.key_blocks) if m.shape_keys else 0,
             "attributes": sorted(a.name for a in m.attributes),
             "uv_layers": [u.name for u in m.uv_layers],
+            # world-space bounds (Blender is Z up: its (x, y, z) is glTF's (x, -z, y))
+            "bounds": bounds(o),
         }
     return out
 

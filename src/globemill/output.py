@@ -131,7 +131,9 @@ def prepare(result: BakeResult, options: GlbOptions | None = None) -> Prepared:
     acmr: list[dict[str, Any]] = []
     for lv, row in zip(result.levels, bufs, strict=True):
         tris = sum(len(b.triangles) for b in row)
-        entry: dict[str, Any] = {"level": lv.level, "triangles": tris}
+        # vertices as the files hold them: each chunk its own buffer (border vertices repeated)
+        verts = sum(len(b.positions) for b in row)
+        entry: dict[str, Any] = {"level": lv.level, "triangles": tris, "chunk_vertices": verts}
         for size in CACHE_SIZES:
             before = sum(
                 misses(_concat(ch.triangles, ch.skirt), len(ch.positions), size) for ch in lv.chunks
