@@ -23,7 +23,8 @@ import trimesh
 import globemill
 from globemill.attributes import vertex_attributes
 from globemill.export_gltf import GltfBuilder, quantize_color
-from globemill.output import collision_glb_for, glb_for, write_outputs
+from globemill.gpu_buffers import draw_buffers
+from globemill.output import GlbOptions, collision_glb_for, glb_for, write_outputs
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "examples" / "pebblemoor.toml"
@@ -281,13 +282,15 @@ def test_trimesh_loads_every_chunk_and_level_exactly(demo: Any) -> None:
     every = vertex_attributes(result.spec, result.directions)
     for lv in result.levels:
         for ch in lv.chunks[::7]:
+            # the chunk as written: vertex cache and fetch order (tests/test_gpu_buffers.py)
+            d = draw_buffers(ch)
             m = scene.geometry[f"chunk{ch.chunk}.lod{lv.level}"]
-            np.testing.assert_array_equal(m.vertices, ch.positions.astype(np.float32))
-            np.testing.assert_array_equal(m.faces, ch.triangles)
+            np.testing.assert_array_equal(m.vertices, d.positions.astype(np.float32))
+            np.testing.assert_array_equal(m.faces, d.triangles[: len(ch.triangles)])
             np.testing.assert_array_equal(
-                m.vertex_normals, ch.normals.astype(np.float32).astype(np.float64)
+                m.vertex_normals, d.normals.astype(np.float32).astype(np.float64)
             )
-            att = every.take(ch.vertex_ids)
+            att = every.take(ch.vertex_ids[d.order])
             va = {k: np.asarray(v).reshape(-1) for k, v in m.vertex_attributes.items()}
             np.testing.assert_array_equal(va["_SLOPE"], att.slope_deg.astype(np.float32))
             np.testing.assert_array_equal(va["_ALTITUDE"], att.altitude_m.astype(np.float32))
@@ -324,16 +327,17 @@ def check_layout_with_pygltflib(pygltflib: Any, result: globemill.BakeResult, pa
         for k, n in enumerate(chain):
             mesh = gl.meshes[gl.nodes[n].mesh]
             ch = result.levels[k].chunks[c]
+            d = draw_buffers(ch)
             assert mesh.extras["chunk"] == c and mesh.extras["level"] == k
             prim = mesh.primitives[0]
             assert gl.materials[prim.material].pbrMetallicRoughness.metallicFactor == 0.0
             pos = g.accessor(prim.attributes.POSITION)
-            np.testing.assert_array_equal(pos, ch.positions.astype(np.float32))
+            np.testing.assert_array_equal(pos, d.positions.astype(np.float32))
             tris = g.accessor(prim.indices).reshape(-1, 3)
-            np.testing.assert_array_equal(tris, np.concatenate([ch.triangles, ch.skirt]))
+            np.testing.assert_array_equal(tris, d.triangles)
             assert mesh.extras.get("skirt_triangles", 0) == len(ch.skirt)
             # skirt vertices hang straight below the ground: same direction, same attributes
-            att = vertex_attributes(result.spec, ch.positions, fld)
+            att = vertex_attributes(result.spec, d.positions, fld)
             np.testing.assert_array_equal(
                 g.accessor(prim.attributes._SLOPE).reshape(-1), att.slope_deg.astype(np.float32)
             )
@@ -345,16 +349,14 @@ def check_layout_with_pygltflib(pygltflib: Any, result: globemill.BakeResult, pa
             # normalized unsigned bytes: f = c / 255 (glTF 2.0), so colours within half a step
             assert np.abs(col[:, :3] / 255.0 - att.color).max() <= 0.5 / 255 + 1e-12
             if k + 1 < nlev:
-                d = g.accessor(prim.targets[0]["POSITION"]).astype(np.float64)
-                morph = pos.astype(np.float64) + d
-                assert np.abs(morph - ch.morph).max() < 1e-3
+                disp = g.accessor(prim.targets[0]["POSITION"]).astype(np.float64)
+                morph = pos.astype(np.float64) + disp
+                assert np.abs(morph - d.morph).max() < 1e-3
                 assert mesh.extras["targetNames"] == ["coarser"]
             else:
                 assert not prim.targets
             for mask, acc in mesh.extras.get("seams", {}).items():
-                np.testing.assert_array_equal(
-                    g.accessor(acc).reshape(-1, 3), ch.stitched[int(mask)]
-                )
+                np.testing.assert_array_equal(g.accessor(acc).reshape(-1, 3), d.stitched[int(mask)])
             assert set(mesh.extras.get("seams", {})) == {str(m) for m in ch.stitched}
     extras = gl.scenes[gl.scene].extras
     assert [t["name"] for t in extras["layers"]] == [lay.name for lay in result.spec.layers]
@@ -368,7 +370,7 @@ def test_demo_colours_and_attributes_read_back(demo: Any) -> None:
     for mesh in g.doc["meshes"]:
         ch = result.levels[mesh["extras"]["level"]].chunks[mesh["extras"]["chunk"]]
         attrs = mesh["primitives"][0]["attributes"]
-        att = every.take(ch.vertex_ids)
+        att = every.take(ch.vertex_ids[draw_buffers(ch).order])
         np.testing.assert_array_equal(g.accessor(attrs["COLOR_0"]), quantize_color(att.color))
         np.testing.assert_array_equal(
             g.accessor(attrs["_ALTITUDE"]).reshape(-1), att.altitude_m.astype(np.float32)
@@ -598,3 +600,234 @@ def test_ctrl_c_during_the_bake_leaves_the_previous_outputs(
     assert proc.returncode == 130, err  # documented exit code for an interruption
     assert "interrupted" in err
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+
+
+# ---- layouts for engines that ignore MSFT_lod, standard channels, quantization -----------------
+
+ALL_LAYOUTS = GlbOptions(level_files=True, uv_attributes=True, quantize=True)
+
+
+@pytest.fixture(scope="module")
+def layouts(demo: Any, tmp_path_factory: pytest.TempPathFactory) -> tuple[Any, Path, dict]:
+    result, _ = demo
+    out = tmp_path_factory.mktemp("layouts")
+    paths = write_outputs(result, out, options=ALL_LAYOUTS)
+    return result, out, paths
+
+
+@pytest.fixture(scope="module")
+def level_files_plain(
+    demo: Any, tmp_path_factory: pytest.TempPathFactory
+) -> tuple[Any, Path, dict]:
+    result, _ = demo
+    out = tmp_path_factory.mktemp("levels")
+    return result, out, write_outputs(result, out, options=GlbOptions(level_files=True))
+
+
+def test_validator_reports_no_errors_for_every_layout(layouts: Any, level_files_plain: Any) -> None:
+    result, out, paths = layouts
+    _, out2, paths2 = level_files_plain
+    files = [p for k, p in paths.items() if k.startswith("glb")]
+    files += [p for k, p in paths2.items() if k.startswith("glb_lod")]
+    assert len(files) == 1 + 2 * len(result.levels)
+    reports = validate(files)
+    for r in reports:
+        assert_clean(r)
+    for r in reports[1:]:
+        # a level file is complete on its own: every chunk drawn once, no MSFT_lod
+        assert r["info"]["drawCallCount"] == len(result.levels[0].chunks)
+        assert "MSFT_lod" not in r["info"].get("extensionsUsed", [])
+
+
+def test_level_files_hold_one_level_with_the_same_nodes_and_extras(
+    demo: Any, level_files_plain: Any
+) -> None:
+    result, out_main = demo
+    _, out, paths = level_files_plain
+    main = read(out_main / "pebblemoor.glb")
+    by_name = {m["name"]: m for m in main.doc["meshes"]}
+    report = json.loads((out / "pebblemoor.report.json").read_text())
+    for k, lv in enumerate(result.levels):
+        g = read(paths[f"glb_lod{k}"])
+        assert "MSFT_lod" not in g.doc.get("extensionsUsed", [])
+        roots = g.doc["scenes"][0]["nodes"]
+        assert [g.doc["nodes"][r]["name"] for r in roots] == [
+            f"chunk{c}.lod{k}" for c in range(len(lv.chunks))
+        ]
+        assert len(g.doc["nodes"]) == len(roots)  # nothing but the level's chunks
+        assert g.doc["scenes"][0]["extras"]["level_file"] == k
+        tris = 0
+        for mesh in g.doc["meshes"]:
+            mine, ref_extras = dict(mesh["extras"]), dict(by_name[mesh["name"]]["extras"])
+            # the same extras; seam accessors hold the same indices under their own numbers
+            seams, ref_seams = mine.pop("seams", {}), ref_extras.pop("seams", {})
+            assert mine == ref_extras and set(seams) == set(ref_seams)
+            for mask, acc in seams.items():
+                np.testing.assert_array_equal(g.accessor(acc), main.accessor(ref_seams[mask]))
+            prim = mesh["primitives"][0]
+            ref = by_name[mesh["name"]]["primitives"][0]
+            np.testing.assert_array_equal(
+                g.accessor(prim["attributes"]["POSITION"]),
+                main.accessor(ref["attributes"]["POSITION"]),
+            )
+            np.testing.assert_array_equal(
+                g.accessor(prim["indices"]), main.accessor(ref["indices"])
+            )
+            tris += g.doc["accessors"][prim["indices"]]["count"] // 3
+        assert tris == report["lods"][k]["triangles"]
+
+
+def test_standard_channels_carry_slope_altitude_and_layer(layouts: Any) -> None:
+    result, out, _ = layouts
+    g = read(out / "pebblemoor.glb")
+    assert g.doc["scenes"][0]["extras"]["standard_channels"]["TEXCOORD_0"] == [
+        "_SLOPE",
+        "_ALTITUDE",
+    ]
+    for mesh in g.doc["meshes"][::11]:
+        a = mesh["primitives"][0]["attributes"]
+        uv0, uv1 = g.accessor(a["TEXCOORD_0"]), g.accessor(a["TEXCOORD_1"])
+        np.testing.assert_array_equal(uv0[:, 0], g.accessor(a["_SLOPE"])[:, 0])
+        np.testing.assert_array_equal(uv0[:, 1], g.accessor(a["_ALTITUDE"])[:, 0])
+        np.testing.assert_array_equal(uv1[:, 0], g.accessor(a["_LAYER"])[:, 0])
+        assert not uv1[:, 1].any()
+
+
+def dequantized(g: Glb, node: dict[str, Any]) -> np.ndarray:
+    """World positions of a quantized node as a renderer computes them in float32:
+    translation + scale * q (KHR_mesh_quantization, SHORT not normalized)."""
+    prim = g.doc["meshes"][node["mesh"]]["primitives"][0]
+    q = g.accessor(prim["attributes"]["POSITION"]).astype(np.float32)
+    s = np.float32(node["scale"][0])
+    t = np.array(node["translation"], np.float32)
+    return q * s + t
+
+
+def test_quantized_positions_stay_within_the_stated_share(layouts: Any) -> None:
+    result, out, _ = layouts
+    report = json.loads((out / "pebblemoor.report.json").read_text())
+    q = report["export"]["quantization"]
+    assert q["applied"] and q["allowed_share"] == 0.1
+    g = read(out / "pebblemoor.glb")
+    assert g.doc["extensionsRequired"] == ["KHR_mesh_quantization"]
+    nodes = {n["name"]: n for n in g.doc["nodes"]}
+    for k, lv in enumerate(result.levels):
+        worst = 0.0
+        for ch in lv.chunks:
+            node = nodes[f"chunk{ch.chunk}.lod{k}"]
+            mesh = g.doc["meshes"][node["mesh"]]
+            prim = mesh["primitives"][0]
+            assert g.doc["accessors"][prim["attributes"]["POSITION"]]["componentType"] == 5122
+            nrm = g.doc["accessors"][prim["attributes"]["NORMAL"]]
+            assert nrm["componentType"] == 5120 and nrm["normalized"]
+            p = dequantized(g, node).astype(np.float64)
+            d = draw_buffers(ch)
+            worst = max(worst, float(np.linalg.norm(p - d.positions, axis=1).max()))
+            if "targets" in prim:
+                # the morph target still ends on the coarser level (within float32 of the grid)
+                tgt = g.accessor(prim["targets"][0]["POSITION"]).astype(np.float64)
+                moved = (g.accessor(prim["attributes"]["POSITION"]) + tgt) * node["scale"][0]
+                moved += node["translation"]
+                assert np.abs(moved - d.morph).max() < 1e-3
+        # the error measured here from the file is the one reported, within float32 rounding
+        lvq = q["levels"][k]
+        assert worst == pytest.approx(lvq["max_position_error_m"], abs=1e-4)
+        assert worst <= 0.1 * lv.tolerance_m + 1e-4
+        # an int8 normal is off by at most about half a step of 1/127 per component
+        assert lvq["max_normal_error_deg"] < 0.7
+
+
+def test_quantized_seams_meet_exactly(layouts: Any) -> None:
+    # a vertex two neighbouring chunks share lands on the same float32 point in both after the
+    # node transforms (the grid is world-wide and the transform exact in float32)
+    result, out, _ = layouts
+    g = read(out / "pebblemoor.glb")
+    nodes = {n["name"]: n for n in g.doc["nodes"]}
+    lv = result.levels[0]
+    matched = 0
+    for c in range(0, len(lv.chunks), 4):
+        mine = {tuple(x) for x in draw_buffers(lv.chunks[c]).positions.tolist()}
+        p = dequantized(g, nodes[f"chunk{c}.lod0"])
+        for nb in result.chunk_neighbors[c]:
+            theirs = draw_buffers(lv.chunks[int(nb)])
+            shared = [i for i, x in enumerate(theirs.positions.tolist()) if tuple(x) in mine]
+            q = dequantized(g, nodes[f"chunk{int(nb)}.lod0"])[shared]
+            mine_q = {x.tobytes() for x in p}
+            assert shared and all(x.tobytes() in mine_q for x in q), (c, int(nb))
+            matched += len(shared)
+    assert matched > 0
+
+
+def test_quantization_beyond_the_share_falls_back_to_float(demo: Any, tmp_path: Path) -> None:
+    result, _ = demo
+    paths = write_outputs(result, tmp_path, options=GlbOptions(quantize=True, quantize_share=1e-4))
+    q = result.report["export"]["quantization"]
+    assert q["applied"] is False and "float32" in q["reason"]
+    g = read(paths["glb"])
+    assert "KHR_mesh_quantization" not in g.doc.get("extensionsUsed", [])
+    assert glb_for(result, GlbOptions()) == paths["glb"].read_bytes()
+
+
+@pytest.mark.parametrize(
+    "kwargs, field",
+    [
+        ({"quantize_share": 0.0}, "quantize_share"),
+        ({"quantize_share": 2.0}, "quantize_share"),
+        ({"level_files": "yes"}, "level_files"),
+        ({"gpu_order": 1}, "gpu_order"),
+    ],
+)
+def test_bad_layout_options_are_refused(kwargs: dict[str, Any], field: str) -> None:
+    with pytest.raises(ValueError, match=field):
+        GlbOptions(**kwargs)
+
+
+def test_report_holds_sizes_and_the_cache_miss_ratio(layouts: Any) -> None:
+    result, out, paths = layouts
+    report = json.loads((out / "pebblemoor.report.json").read_text())
+    ex = report["export"]
+    assert ex["files"]["pebblemoor.glb"] == paths["glb"].stat().st_size
+    assert ex["files"]["pebblemoor.lod0.glb"] == paths["glb_lod0"].stat().st_size
+    for entry, lv in zip(ex["acmr"], report["lods"], strict=True):
+        assert entry["triangles"] == lv["triangles"]
+        for size in ("fifo16", "fifo32"):
+            assert entry[size]["after"] < entry[size]["before"] <= 3.0
+
+
+def test_bake_layout_flags_write_the_level_files(tmp_path: Path) -> None:
+    spec = tmp_path / "pip.json"
+    spec.write_text(json.dumps(SMALL))
+    out = tmp_path / "out"
+    flags = ["--level-files", "--uv-attributes", "--quantize", "--quantize-share", "0.2"]
+    res = subprocess.run(
+        [sys.executable, "-m", "globemill", *bake_cmd(spec, out, "3.0"), *flags],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert res.returncode == 0, res.stderr
+    report = json.loads((out / "pip.report.json").read_text())
+    names = sorted(p.name for p in out.iterdir())
+    assert names == sorted(
+        ["pip.glb", "pip.collision.glb", "pip.report.json"]
+        + [f"pip.lod{k}.glb" for k in range(len(report["lods"]))]
+    )
+    assert report["export"]["uv_attributes"] is True
+    assert report["export"]["quantization"]["allowed_share"] == 0.2
+
+
+@pytest.mark.parametrize("value", ["0", "1.5", "abc"])
+def test_a_bad_quantize_share_exits_2_and_writes_nothing(tmp_path: Path, value: str) -> None:
+    spec = tmp_path / "pip.json"
+    spec.write_text(json.dumps(SMALL))
+    out = tmp_path / "out"
+    res = subprocess.run(
+        [sys.executable, "-m", "globemill", *bake_cmd(spec, out, "3.0")]
+        + ["--quantize", "--quantize-share", value],
+        capture_output=True,
+        text=True,
+        timeout=600,
+    )
+    assert res.returncode == 2
+    assert "--quantize-share" in res.stderr and "(0, 1]" in res.stderr
+    assert not out.exists()

@@ -16,6 +16,9 @@
 #include "measure.hpp"
 #include "attributes.hpp"
 #include "bake.hpp"
+#include "cache_order.hpp"
+#include "cache_stats.hpp"
+#include "fetch_order.hpp"
 #include "refine.hpp"
 #include "session.hpp"
 
@@ -439,6 +442,18 @@ py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& tr
     return out;
 }
 
+// an index array whose every entry is below vertex_count, else ValueError naming the argument
+const std::uint32_t* checked_indices(const Indices& a, std::size_t vertex_count, const char* what) {
+    const std::uint32_t* p = a.data();
+    const std::size_t n = static_cast<std::size_t>(a.size());
+    for (std::size_t i = 0; i < n; ++i)
+        if (p[i] >= vertex_count)
+            throw py::value_error(std::string(what) + "[" + std::to_string(i) + "] = " +
+                                  std::to_string(p[i]) + " is not below vertex_count " +
+                                  std::to_string(vertex_count));
+    return p;
+}
+
 }  // namespace
 
 PYBIND11_MODULE(_core, m) {
@@ -492,6 +507,46 @@ PYBIND11_MODULE(_core, m) {
         },
         py::arg("layers"), py::arg("slope_deg"), py::arg("altitude_m"),
         "(layer (N,) uint8, colour (N, 3)) of the first rule whose closed bands hold each vertex");
+    m.def(
+        "cache_order",
+        [](const Indices& tris, std::size_t vertex_count) {
+            if (tris.ndim() != 2 || tris.shape(1) != 3)
+                throw py::value_error("triangles must have shape (T, 3)");
+            const std::uint32_t* t = checked_indices(tris, vertex_count, "triangles");
+            const std::size_t n = static_cast<std::size_t>(tris.shape(0));
+            std::vector<std::uint32_t> out(3 * n);
+            {
+                py::gil_scoped_release nogil;
+                cache_order(out.data(), t, n, vertex_count);
+            }
+            return to_numpy(std::move(out), {ss(n), 3});
+        },
+        py::arg("triangles"), py::arg("vertex_count"),
+        "the same (T, 3) triangles in vertex cache order (Forsyth 2006), deterministic");
+    m.def(
+        "fetch_order",
+        [](const Indices& idx, std::size_t vertex_count) {
+            const std::uint32_t* p = checked_indices(idx, vertex_count, "indices");
+            std::vector<std::uint32_t> remap(vertex_count);
+            std::size_t used;
+            {
+                py::gil_scoped_release nogil;
+                used = fetch_order(remap.data(), p, static_cast<std::size_t>(idx.size()), vertex_count);
+            }
+            return py::make_tuple(to_numpy(std::move(remap), {ss(vertex_count)}), used);
+        },
+        py::arg("indices"), py::arg("vertex_count"),
+        "(remap (vertex_count,) uint32 with remap[old] = new in order of first use, used count)");
+    m.def(
+        "fifo_misses",
+        [](const Indices& idx, std::size_t vertex_count, std::size_t cache_size) {
+            if (cache_size < 1) throw py::value_error("cache_size must be at least 1");
+            const std::uint32_t* p = checked_indices(idx, vertex_count, "indices");
+            py::gil_scoped_release nogil;
+            return fifo_misses(p, static_cast<std::size_t>(idx.size()), vertex_count, cache_size);
+        },
+        py::arg("indices"), py::arg("vertex_count"), py::arg("cache_size"),
+        "vertices a FIFO post-transform cache of cache_size entries transforms for the index list");
     m.def("bake", &bake_py, py::arg("field"), py::arg("settings"), py::arg("progress") = nullptr,
           "bake a world: every level, chunk, seam, attribute and collider, with the GIL released");
     py::class_<PyEditSession>(m, "EditSession")

@@ -12,7 +12,7 @@ import argparse
 import json
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from . import __version__
 
@@ -148,8 +148,11 @@ def _cmd_bake(args: argparse.Namespace) -> int:
     from .output import write_outputs
 
     formats = args.format or []
+    options = _glb_options(args)
     result = _bake_spec(args, args.level if formats else None, Path(args.output))
-    paths = write_outputs(result, Path(args.output), formats=formats, level=args.level)
+    paths = write_outputs(
+        result, Path(args.output), formats=formats, level=args.level, options=options
+    )
     if not args.quiet:
         _out(summary_table(result.report))
         for p in paths.values():
@@ -216,6 +219,67 @@ def _add_bake_options(p: argparse.ArgumentParser) -> None:
     )
     _add_memory_option(p)
     p.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
+
+
+# ---- .glb layout flags (output.GlbOptions; docs/gltf.md, "Layouts") ----------------------------
+
+
+def _share(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not 0 < value <= 1:
+        raise argparse.ArgumentTypeError(f"must be a number in (0, 1], got {text!r}")
+    return value
+
+
+def _add_layout_options(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group(".glb layout (docs/gltf.md, Layouts)")
+    g.add_argument(
+        "--level-files",
+        action="store_true",
+        help="also write one complete OUTDIR/<name>.lod<k>.glb per level (for engines that "
+        "ignore MSFT_lod)",
+    )
+    g.add_argument(
+        "--uv-attributes",
+        action="store_true",
+        help="also put slope and altitude in TEXCOORD_0 and the layer in TEXCOORD_1",
+    )
+    g.add_argument(
+        "--no-gpu-order",
+        action="store_true",
+        help="keep the core's triangle and vertex order (default: vertex cache and fetch order)",
+    )
+    g.add_argument(
+        "--quantize",
+        action="store_true",
+        help="int16 positions and int8 normals (KHR_mesh_quantization) when the rounding error "
+        "stays within --quantize-share of every level's tolerance, else float32",
+    )
+    g.add_argument(
+        "--quantize-share",
+        type=_share,
+        default=None,
+        metavar="SHARE",
+        help="largest rounding error allowed, as a share of the level's tolerance (default 0.1)",
+    )
+
+
+def _glb_options(args: argparse.Namespace) -> Any:
+    from .output import QUANTIZE_SHARE, GlbOptions
+
+    return GlbOptions(
+        level_files=args.level_files,
+        uv_attributes=args.uv_attributes,
+        gpu_order=not args.no_gpu_order,
+        quantize=args.quantize,
+        quantize_share=QUANTIZE_SHARE if args.quantize_share is None else args.quantize_share,
+    )
+
+
+# ---- end of .glb layout flags ----------------------------------------------------------------
 
 
 def _add_memory_option(p: argparse.ArgumentParser) -> None:
@@ -347,6 +411,7 @@ def build_parser() -> argparse.ArgumentParser:
         help="also write level --level as OUTDIR/<name>.lod<level>.<format> (repeatable)",
     )
     b.add_argument("--level", type=int, default=0, help="level for --format (default 0, finest)")
+    _add_layout_options(b)
     b.set_defaults(func=_cmd_bake)
 
     c = sub.add_parser(

@@ -16,6 +16,8 @@ import numpy.typing as npt
 _ARRAY_BUFFER = 34962
 _ELEMENT_ARRAY_BUFFER = 34963
 _FLOAT = 5126
+_BYTE = 5120
+_SHORT = 5122
 _UNSIGNED_BYTE = 5121
 _UNSIGNED_SHORT = 5123
 _UNSIGNED_INT = 5125
@@ -28,7 +30,7 @@ class _Buffer:
         self.views: list[dict[str, Any]] = []
         self.accessors: list[dict[str, Any]] = []
 
-    def add(self, data: bytes, target: int | None) -> int:
+    def add(self, data: bytes, target: int | None, stride: int | None = None) -> int:
         pad = (-self.size) % 4
         if pad:
             self.parts.append(b"\0" * pad)
@@ -36,6 +38,8 @@ class _Buffer:
         view: dict[str, Any] = {"buffer": 0, "byteOffset": self.size, "byteLength": len(data)}
         if target is not None:
             view["target"] = target
+        if stride is not None:
+            view["byteStride"] = stride
         self.parts.append(data)
         self.size += len(data)
         self.views.append(view)
@@ -55,6 +59,46 @@ class _Buffer:
                 "max": [float(x) for x in arr.max(axis=0)] if len(arr) else [0.0, 0.0, 0.0],
             }
         )
+        return len(self.accessors) - 1
+
+    def vec2(self, values: npt.ArrayLike) -> int:
+        """A float32 VEC2 vertex attribute (TEXCOORD_n)."""
+        arr = np.ascontiguousarray(values, dtype="<f4").reshape(-1, 2)
+        view = self.add(arr.tobytes(), _ARRAY_BUFFER)
+        self.accessors.append(
+            {
+                "bufferView": view,
+                "componentType": _FLOAT,
+                "count": int(arr.shape[0]),
+                "type": "VEC2",
+                "min": [float(x) for x in arr.min(axis=0)] if len(arr) else [0.0, 0.0],
+                "max": [float(x) for x in arr.max(axis=0)] if len(arr) else [0.0, 0.0],
+            }
+        )
+        return len(self.accessors) - 1
+
+    def int_vec3(self, values: npt.NDArray[np.integer], *, normalized: bool) -> int:
+        """A VEC3 of int16 (SHORT) or int8 (BYTE) per KHR_mesh_quantization, each element padded
+        to a 4-byte stride (8 and 4 bytes) as glTF 2.0 wants vertex elements aligned; min/max hold
+        the stored integers."""
+        q = np.asarray(values)
+        dt, comp = ("<i2", _SHORT) if q.dtype == np.int16 else ("<i1", _BYTE)
+        size = np.dtype(dt).itemsize
+        stride = 8 if size == 2 else 4
+        padded = np.zeros((len(q), stride // size), dtype=dt)
+        padded[:, :3] = q
+        view = self.add(padded.tobytes(), _ARRAY_BUFFER, stride)
+        acc: dict[str, Any] = {
+            "bufferView": view,
+            "componentType": comp,
+            "count": int(q.shape[0]),
+            "type": "VEC3",
+            "min": [int(x) for x in q.min(axis=0)] if len(q) else [0, 0, 0],
+            "max": [int(x) for x in q.max(axis=0)] if len(q) else [0, 0, 0],
+        }
+        if normalized:
+            acc["normalized"] = True
+        self.accessors.append(acc)
         return len(self.accessors) - 1
 
     def scalar(self, values: npt.ArrayLike) -> int:
@@ -128,10 +172,21 @@ class GltfBuilder:
         self.nodes: list[dict[str, Any]] = []
         self.materials: list[dict[str, Any]] = []
         self.extensions_used: set[str] = set()
+        self.extensions_required: set[str] = set()
 
     def add_material(self, material: dict[str, Any]) -> int:
         self.materials.append(material)
         return len(self.materials) - 1
+
+    def vec2_attribute(self, values: npt.ArrayLike) -> int:
+        """Accessor of a float32 VEC2 vertex attribute (TEXCOORD_n)."""
+        return self.buf.vec2(values)
+
+    def quantized_attribute(self, values: npt.NDArray[np.integer], *, normalized: bool) -> int:
+        """Accessor of an int16 / int8 VEC3 attribute (KHR_mesh_quantization)."""
+        self.extensions_used.add("KHR_mesh_quantization")
+        self.extensions_required.add("KHR_mesh_quantization")
+        return self.buf.int_vec3(values, normalized=normalized)
 
     def scalar_attribute(self, values: npt.ArrayLike) -> int:
         """Accessor of a float32 SCALAR vertex attribute."""
@@ -155,12 +210,20 @@ class GltfBuilder:
         attributes: dict[str, int] | None = None,
         material: int | None = None,
         extras: dict[str, Any] | None = None,
+        morph_displacement: npt.NDArray[np.float64] | None = None,
     ) -> int:
         """A mesh with one triangle primitive; `morph_positions` become one morph target (the
-        glTF target stores displacements: morph - position). `attributes` adds accessors made
-        beforehand (COLOR_0, _SLOPE, ...) by semantic."""
-        attributes_ = {"POSITION": self.buf.vec3(positions)}
-        if normals is not None:
+        glTF target stores displacements: morph - position; or give `morph_displacement` as it
+        is to be stored). `attributes` adds accessors made beforehand (COLOR_0, _SLOPE, ...) by
+        semantic; a POSITION or NORMAL among them (quantized ones) replaces the float32 one."""
+        attributes = dict(attributes or {})
+        if "POSITION" in attributes:
+            attributes_ = {"POSITION": attributes.pop("POSITION")}
+        else:
+            attributes_ = {"POSITION": self.buf.vec3(positions)}
+        if "NORMAL" in attributes:
+            attributes_["NORMAL"] = attributes.pop("NORMAL")
+        elif normals is not None:
             attributes_["NORMAL"] = self.buf.vec3(normals)
         if attributes:
             attributes_.update(attributes)
@@ -172,7 +235,10 @@ class GltfBuilder:
         if material is not None:
             prim["material"] = material
         mesh: dict[str, Any] = {"name": name, "primitives": [prim]}
-        if morph_positions is not None:
+        if morph_displacement is not None:
+            prim["targets"] = [{"POSITION": self.buf.vec3(morph_displacement)}]
+            mesh["weights"] = [0.0]
+        elif morph_positions is not None:
             # displacement of the float32 values as stored, so position + target is exact
             d = morph_positions.astype("<f4").astype(np.float64) - positions.astype("<f4").astype(
                 np.float64
@@ -191,8 +257,14 @@ class GltfBuilder:
         *,
         extensions: dict[str, Any] | None = None,
         extras: dict[str, Any] | None = None,
+        translation: list[float] | None = None,
+        scale: list[float] | None = None,
     ) -> int:
         node: dict[str, Any] = {"name": name, "mesh": mesh}
+        if translation is not None:
+            node["translation"] = translation
+        if scale is not None:
+            node["scale"] = scale
         if extensions:
             node["extensions"] = extensions
             self.extensions_used.update(extensions)
@@ -218,6 +290,8 @@ class GltfBuilder:
             doc["materials"] = self.materials
         if self.extensions_used:
             doc["extensionsUsed"] = sorted(self.extensions_used)
+        if self.extensions_required:
+            doc["extensionsRequired"] = sorted(self.extensions_required)
         if extras:
             doc["scenes"][0]["extras"] = extras
         body = b"".join(self.buf.parts)
