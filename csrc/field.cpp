@@ -310,6 +310,7 @@ Status Field::init(double radius_m, const double* rows, std::size_t n, std::stri
         if (f.step) steps_.push_back(static_cast<std::uint32_t>(features_.size()));
         f.cap_cos = std::cos(std::min(f.cap_angle, kPi));
         f.cap_sin = std::sin(std::min(f.cap_angle, kPi));
+        f.outside_cos = f.cap_angle < kPi ? f.cap_cos - 1e-12 : -2.0;
         features_.push_back(f);
         if (has_creases(features_.size() - 1)) creases_.push_back(static_cast<std::uint32_t>(features_.size() - 1));
     }
@@ -321,6 +322,9 @@ void Field::contribution(const Feature& f, Vec3 u, bool want_grad, Contribution&
     const double R = radius_;
     const double* p = f.prm;
     o = Contribution{};
+    // surely outside the footprint cap, where every profile below gives weight 0: skip the
+    // angle (an atan2) and the profile
+    if (dot(u, f.cap_c) < f.outside_cos) return;
     switch (f.kind) {
         case Kind::Hill: {
             double th = angle(u, f.c), d = R * th, s = p[1];

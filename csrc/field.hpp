@@ -27,6 +27,9 @@ struct Feature {
     Vec3 cap_c;            // footprint cap centre
     double cap_angle = 0;  // footprint cap angular radius (rad); >= pi means everywhere
     double cap_cos = 1, cap_sin = 0;  // of cap_angle
+    // a point with dot(u, cap_c) below this lies surely outside the footprint (the margin keeps
+    // the test conservative against rounding); -2 for a feature that covers the world
+    double outside_cos = -2;
     double scale_m = 0;    // smallest length a probe grid must resolve to see the feature
     double amp_m = 0;      // largest change of H the feature can make (m)
     bool step = false;     // wall of width zero: H jumps across the rim

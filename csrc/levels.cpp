@@ -63,16 +63,24 @@ void leaves_of(const Hierarchy& h, const std::vector<std::uint8_t>& in, std::vec
     }
 }
 
-// measure the nodes not measured yet (the same sampling as the hierarchy's own verification)
+// measure the nodes not measured yet at the sampling this level asks for (the same sampling rule
+// as the hierarchy's own verification, at the level's own tolerance); a node that is a leaf of
+// several levels keeps its value where their sampling orders agree. each value is a function of
+// the node and the level alone, so an edit that keeps a node keeps its numbers
 void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& ids, int order,
                    double spacing, int threads) {
     parallel_for(ids.size(), threads, [&](std::size_t b, std::size_t e) {
         for (std::size_t k = b; k < e; ++k) {
             Node& t = h.nodes[ids[k]];
-            if (t.err >= 0) continue;
+            // a leaf of the hierarchy keeps the (denser) measurement of the hierarchy's own
+            // verification, whatever level it is a leaf of
+            if (t.child == kNone && t.err >= 0) continue;
+            const int need = sampling_order(h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, spacing);
+            if (t.err >= 0 && t.err_order == need) continue;
             double m2s, s2m;
             t.err = static_cast<float>(
-                triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, m2s, s2m, spacing));
+                triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), need, m2s, s2m));
+            t.err_order = static_cast<std::uint8_t>(need);
             t.m2s = static_cast<float>(m2s);
             t.s2m = static_cast<float>(s2m);
         }
@@ -85,7 +93,8 @@ void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int t
     const double eps = lv.tolerance_m;
     std::vector<std::uint32_t> check, added, stack;
     leaves_of(h, in, check);
-    const double spacing = verify_spacing(field, h.tolerance);
+    // the detail a level must resolve is what its own tolerance sees (docs/meshing.md)
+    const double spacing = verify_spacing(field, eps);
     while (verify_order > 0 && !check.empty()) {
         measure_nodes(field, h, check, verify_order, spacing, threads);
         for (std::uint32_t id : check) {

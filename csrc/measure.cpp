@@ -11,14 +11,19 @@
 
 namespace gm {
 
-double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
-                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m) {
-    const double R = field.radius();
+int sampling_order(Vec3 V0, Vec3 V1, Vec3 V2, int order, double spacing_m) {
     if (spacing_m > 0) {
         double edge = std::max({norm(V1 - V0), norm(V2 - V1), norm(V0 - V2)});
         double need = std::ceil(edge / spacing_m);
         if (need > order) order = static_cast<int>(std::min(need, 32.0));
     }
+    return order;
+}
+
+double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
+                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m) {
+    const double R = field.radius();
+    order = sampling_order(V0, V1, V2, order, spacing_m);
     constexpr int kMaxSamples = 600;  // order <= 32
     // plain arrays: no per-call initialisation of the sample storage
     double px[kMaxSamples], py[kMaxSamples], pz[kMaxSamples];

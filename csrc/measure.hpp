@@ -15,8 +15,12 @@ struct Deviation {
     std::uint64_t samples = 0;
 };
 
-// largest deviation of one triangle over a barycentric grid of the given order, raised (up to
-// 32) so that samples are at most `spacing_m` apart along the edges (0: no such bound)
+// the barycentric grid order triangle_deviation samples at: `order`, raised (up to 32) so that
+// samples are at most `spacing_m` apart along the edges (0: no such bound)
+int sampling_order(Vec3 V0, Vec3 V1, Vec3 V2, int order, double spacing_m);
+
+// largest deviation of one triangle over a barycentric grid of order
+// sampling_order(V0, V1, V2, order, spacing_m): a function of the corners and that order alone
 double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
                           double& mesh_to_surface, double& surface_to_mesh, double spacing_m = 0);
 

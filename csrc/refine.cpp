@@ -114,6 +114,7 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     if (!std::isnan(o.mid_r)) t.mid_r = o.mid_r;
     if (o.err >= 0) {
         t.err = o.err;
+        t.err_order = o.err_order;
         t.m2s = o.m2s;
         t.s2m = o.s2m;
     }
@@ -464,11 +465,12 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
         parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
             for (std::size_t i = b; i < e; ++i) {
                 Node& t = tris[check[i]];
-                if (t.err < 0) {  // (an incremental rebuild may have it already)
+                const int order = sampling_order(pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), opt.verify_order, spacing);
+                if (t.err < 0 || t.err_order != order) {  // (an incremental rebuild may have it already)
                     double m2s, s2m;
-                    double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]),
-                                                  opt.verify_order, m2s, s2m, spacing);
+                    double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), order, m2s, s2m);
                     t.err = static_cast<float>(w);
+                    t.err_order = static_cast<std::uint8_t>(order);
                     t.m2s = static_cast<float>(m2s);
                     t.s2m = static_cast<float>(s2m);
                 }

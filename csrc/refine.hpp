@@ -67,6 +67,7 @@ struct Node {
     std::uint32_t list_off = 0, list_cnt = 0;  // candidate features in the pool
     std::uint8_t level = 0;
     std::uint8_t tested = 0;
+    std::uint8_t err_order = 0;  // the sampling order err was measured at (see sampling_order)
     double mid_r = NAN;  // R + H at the base midpoint once known
     // critical tolerance: the probes and feature seeding want this node split at every
     // tolerance below tau (0: never)
