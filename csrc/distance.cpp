@@ -67,6 +67,9 @@ double project_distance(const Field& field, Vec3 p, const std::uint32_t* list, s
         double s2 = (a11 * b2 - a12 * b1) / det;
         // keep steps small: the linear model is only local
         double step = std::sqrt(s1 * s1 + s2 * s2);
+        // converged: the next ground point would lie within about a micrometre (times the
+        // slope) of this one, far below any tolerance; the step no longer pays for its gradient
+        if (r * step < 1e-6) break;
         if (step > 0.25) {
             s1 *= 0.25 / step;
             s2 *= 0.25 / step;
