@@ -14,21 +14,10 @@ import sys
 from pathlib import Path
 
 import pytest
+from test_blender import WORLD  # the same small world as the Blender import
 
 REPO = Path(__file__).resolve().parents[1]
 CLIENTS = REPO / "benchmarks" / "clients"
-
-WORLD = {
-    "name": "tarn",
-    "radius_m": 300.0,
-    "tolerance_m": 0.6,
-    "lod": {"levels": 3, "chunk_level": 1},
-    "features": [
-        {"kind": "hill", "lat_deg": 10.0, "lon_deg": 20.0, "amplitude_m": 20.0, "sigma_m": 30.0},
-        {"kind": "noise", "amplitude_m": 1.0, "frequency_per_m": 0.05, "octaves": 3, "seed": 5},
-    ],
-    "layers": [{"name": "steep", "color": [0.4, 0.3, 0.2], "slope_deg": [30.0, 90.0]}],
-}
 
 
 @pytest.fixture(scope="module")
