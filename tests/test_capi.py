@@ -1316,3 +1316,21 @@ def test_core_field_refuses_rows_outside_the_table() -> None:
                 )
                 with pytest.raises(ValueError, match=rf"features\[{kind_index}\]\.{rule['key']}"):
                     _core.Field(spec.radius_m, bad)
+
+
+def test_a_toml_spec_converted_to_json_is_read_by_the_c_abi(api: Api, tmp_path: Path) -> None:
+    # `globemill spec convert` exists so engines can feed TOML-authored worlds to gm_world_create
+    from globemill.spec_files import convert
+
+    out = tmp_path / "pebblemoor.json"
+    convert(ROOT / "examples" / "pebblemoor.toml", out)
+    status, msg = api.spec_check(out.read_bytes())
+    assert status == OK, msg
+    status, w, msg = api.world(out.read_bytes())
+    assert status == OK, msg
+    try:
+        want = load_spec(ROOT / "examples" / "pebblemoor.toml").core_features()
+        got = api.array("gm_world_features", want.size, np.float64, w).reshape(want.shape)
+        assert same(got, want)
+    finally:
+        api.lib.gm_world_destroy(w)

@@ -22,6 +22,7 @@ from .field import Field
 from .spec import WorldSpec
 
 OFFSET_MODES = {"radial": 0, "normal": 1, "exact": 2}
+SEAM_MODES = ("stitch", "skirt")
 # the core's constants (csrc/bake.hpp), read from it
 MEASURE_ORDER: int = _core.MEASURE_ORDER
 MIN_ANGLE_DEG: float = _core.MIN_ANGLE_DEG
@@ -157,6 +158,7 @@ def settings(
     levels: int | None = None,
     ratio: float | None = None,
     chunk_level: int | None = None,
+    seams: str | None = None,
     collision: bool = True,
     threads: int = 0,
     accept_over_tolerance: bool = False,
@@ -166,6 +168,11 @@ def settings(
     mode = spec.offset if offset is None else offset
     if mode not in OFFSET_MODES:
         raise ValueError(f"offset: must be one of {', '.join(OFFSET_MODES)}, got {mode!r}")
+    seam = spec.lod.seams if seams is None else seams
+    if seam not in SEAM_MODES:
+        raise ValueError(f"seams: must be one of {', '.join(SEAM_MODES)}, got {seam!r}")
+    if not isinstance(collision, bool):
+        raise ValueError(f"collision: must be true or false, got {collision!r}")
     tol = spec.tolerance_m if tolerance_m is None else tolerance_m
     rat = spec.lod.ratio if ratio is None else ratio
     for name, value in (("tolerance_m", tol), ("ratio", rat)):
@@ -187,7 +194,7 @@ def settings(
         "ratio": float(rat),
         **values,
         "max_triangles": int(spec.max_triangles),
-        "stitch": spec.lod.seams == "stitch",
+        "stitch": seam == "stitch",
         "skirt_depth_m": float(spec.lod.skirt_depth_m),
         "collision": bool(collision),
         "collision_tolerance_m": float(col.tolerance_m or 0.0),
@@ -196,6 +203,22 @@ def settings(
         "accept_over_tolerance": bool(accept_over_tolerance),
         "layers": layer_rows(spec.layers),
     }
+
+
+def feature_table(spec: WorldSpec) -> list[dict[str, Any]]:
+    """Each feature's index, name, kind and centre (lat_deg, lon_deg; a ridge: the midpoint of
+    its arc; noise: none), so a bake's files can be labelled without the spec."""
+    rows = []
+    for i, f in enumerate(spec.features):
+        dirs = f.directions()
+        row: dict[str, Any] = {"index": i, "name": f.name, "kind": f.kind}
+        if dirs:
+            u = np.sum(dirs, axis=0)
+            u /= np.linalg.norm(u)
+            row["lat_deg"] = float(np.degrees(np.arcsin(np.clip(u[1], -1.0, 1.0))))
+            row["lon_deg"] = float(np.degrees(np.arctan2(u[0], u[2])))
+        rows.append(row)
+    return rows
 
 
 def _chunk(level: int, c: int, ids: U32, d: dict[str, Any]) -> ChunkMesh:
@@ -314,13 +337,14 @@ def _wrap(
         "tolerance_m": levels[0].tolerance_m,
         "offset": next(k for k, v in OFFSET_MODES.items() if v == s["offset"]),
         "chunk_level": s["chunk_level"],
-        "seams": spec.lod.seams,
+        "seams": "stitch" if s["stitch"] else "skirt",
         "lods": [lr.report for lr in levels],
         "collision": col_report,
         "refine": stats,
         "stages_seconds": seconds,
         "evaluations": evaluations,
         "seconds_total": seconds["total"],
+        "features": feature_table(spec),
     }
     return BakeResult(
         spec=spec,
@@ -348,6 +372,7 @@ def bake(
     levels: int | None = None,
     ratio: float | None = None,
     chunk_level: int | None = None,
+    seams: str | None = None,
     collision: bool = True,
     threads: int = 0,
     accept_over_tolerance: bool = False,
@@ -355,6 +380,9 @@ def bake(
 ) -> BakeResult:
     """Mesh `spec` to within `tolerance_m` (default: the spec's) of the true surface, with every
     level of detail (tolerance_m * ratio^k), chunk, stitched seam and collider.
+
+    levels, ratio, chunk_level, seams ("stitch" or "skirt") override the spec's `lod` table;
+    collision=False bakes no colliders.
 
     The result is deterministic: the same spec gives the same arrays whatever `threads` is.
     `progress(stage, done, total)` is called as the bake goes (see `Progress`).
@@ -370,6 +398,7 @@ def bake(
         levels=levels,
         ratio=ratio,
         chunk_level=chunk_level,
+        seams=seams,
         collision=collision,
         threads=threads,
         accept_over_tolerance=accept_over_tolerance,

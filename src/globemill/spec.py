@@ -68,6 +68,7 @@ __all__ = [
     "json_schema",
     "load_spec",
     "parse_spec",
+    "read_spec_data",
     "unit_vector",
 ]
 
@@ -1076,17 +1077,9 @@ def _parse_json(text: str, source: str) -> Any:
     raise SpecError(source, [problem], what="cannot read world spec")
 
 
-def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
-    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
-
-    Raises
-    ------
-    SpecError
-        When the file is missing, unreadable or larger than ``LIMITS["max_bytes"]``, is not
-        well-formed TOML/JSON or nests tables and lists deeper than ``LIMITS["max_depth"]``
-        levels (the message gives the line and column), or describes an invalid world (every
-        problem listed).
-    """
+def read_spec_data(path: str | os.PathLike[str]) -> Any:
+    """The parsed document of a spec file (TOML for ``.toml``, JSON for ``.json``), not yet
+    validated. Raises SpecError as :func:`load_spec` does for files that cannot be read."""
     file = Path(path)
     source = str(file)
     suffix = file.suffix.lower()
@@ -1101,5 +1094,18 @@ def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
         fmt = "TOML" if toml else "JSON"
         problem = f"malformed {fmt} at {_line_col(text, deep)}: nested deeper than {limit} levels"
         raise SpecError(source, [problem], what="cannot read world spec")
-    data = _parse_toml(text, source) if toml else _parse_json(text, source)
-    return parse_spec(data, source=source)
+    return _parse_toml(text, source) if toml else _parse_json(text, source)
+
+
+def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
+    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
+
+    Raises
+    ------
+    SpecError
+        When the file is missing, unreadable or larger than ``LIMITS["max_bytes"]``, is not
+        well-formed TOML/JSON or nests tables and lists deeper than ``LIMITS["max_depth"]``
+        levels (the message gives the line and column), or describes an invalid world (every
+        problem listed).
+    """
+    return parse_spec(read_spec_data(path), source=str(Path(path)))
