@@ -756,11 +756,16 @@ def test_invalid_specs_list_the_same_problems_as_python(
 _NUMBER = re.compile(r"-?\d+(?:\.\d+)?(?:e[+-]?\d+)?")
 
 
+# what the Python loader adds for people: the closest key (difflib) and the feature's name
+_HINTS = re.compile(r"(; did you mean '[^']*'\?)?( \((feature|layer) '.*'\))?$")
+
+
 def problem_key(line: str) -> tuple[str, str]:
     """What both loaders must agree on in a problem line: the field path and the allowed range
     (numbers compared by value; each side writes numbers its own way, and the offending value
-    after "got" in its own notation)."""
+    after "got" in its own notation). The Python loader's hints are left out."""
     path, _, rest = line.partition(": ")
+    rest = _HINTS.sub("", rest)
     for head in (" (allowed: ", " (allowed keys: ", "(allowed: "):
         start = rest.find(head)
         if start >= 0:

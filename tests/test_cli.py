@@ -349,3 +349,30 @@ def test_spec_validate_and_format(tmp_path: Path, small: Path) -> None:
     assert res.returncode == 2 and not (tmp_path / "x.json").exists()
     res = run("spec", "convert", str(small), "-o", str(tmp_path / "x.yaml"))
     assert res.returncode == 2 and ".yaml" in res.stderr and not (tmp_path / "x.yaml").exists()
+
+
+def test_uncovered_ground_is_warned_about(tmp_path: Path, small: Path) -> None:
+    import globemill
+    from globemill.spec_warnings import layer_coverage
+
+    # a single rule for flat ground only: the hill's flanks get no layer
+    narrow = tmp_path / "narrow.toml"
+    narrow.write_text(SMALL.replace("slope_deg = [0.0, 90.0]", "slope_deg = [0.0, 3.0]"))
+    spec = globemill.load_spec(narrow)
+    share = layer_coverage(spec)["uncovered"]
+    # the same share measured on a bake: each vertex stands for a third of its triangles' area
+    result = globemill.bake(spec, tolerance_m=0.5, collision=False)
+    pos, tris = result.mesh(0)
+    corner = pos[tris]
+    area = 0.5 * np.linalg.norm(
+        np.cross(corner[:, 1] - corner[:, 0], corner[:, 2] - corner[:, 0]), axis=1
+    )
+    bare = (result.layer[np.flatnonzero(result.levels[0].present)] == 255)[tris].mean(axis=1)
+    assert share > 0.01 and abs(share - float((bare * area).sum() / area.sum())) < 0.01
+    res = run("spec", "validate", str(narrow))
+    assert res.returncode == 0 and f"no rule covers {100 * share:.0f}% of the ground" in res.stderr
+    res = run("bake", str(narrow), "-o", str(tmp_path / "o"))
+    assert res.returncode == 0 and "warning:" in res.stderr and "no rule covers" in res.stderr
+    # full bands: nothing to say
+    res = run("spec", "validate", str(small))
+    assert res.returncode == 0 and "warning" not in res.stderr

@@ -689,3 +689,44 @@ def test_models_follow_the_rule_table() -> None:
                 assert node.get(word) == rule.get(bound), (kind["kind"], rule["key"], bound)
             assert ("default" in node) == ("default" in rule)
             assert node.get("default") == rule.get("default")
+
+
+# ---- authoring help ---------------------------------------------------------------------------
+
+
+def test_problems_name_the_feature_and_layer() -> None:
+    doc = world(
+        [feature("hill", name="Gorse Knoll", sigma_m=-1), feature("hill", sigma_m=-2)],
+        layers=[{"name": "moss", "color": [0, 0, 2]}],
+    )
+    lines = problems_of(doc).splitlines()
+    assert any(
+        ln.endswith(
+            "features[0].sigma_m: must be > 0 (allowed: > 0), got -1 (feature 'Gorse Knoll')"
+        )
+        for ln in lines
+    )
+    # an unnamed feature is named by its index alone
+    assert any(
+        ln.endswith("features[1].sigma_m: must be > 0 (allowed: > 0), got -2") for ln in lines
+    )
+    assert any("layers[0].color[2]" in ln and ln.endswith("(layer 'moss')") for ln in lines)
+
+
+@pytest.mark.parametrize(
+    ("doc", "suggestion"),
+    [
+        (world([feature("hill", sigm_m=3)]), "did you mean 'sigma_m'?"),
+        (world(tolerence_m=0.5), "did you mean 'tolerance_m'?"),
+        (world(layers=[{"name": "x", "colour": [0, 0, 0]}]), "did you mean 'color'?"),
+        (world([{"kind": "crator"}]), "did you mean 'crater'?"),
+        (world([feature("hill", blend="smoth_max")]), "did you mean 'smooth_max'?"),
+    ],
+)
+def test_misspelled_keys_and_values_get_a_suggestion(doc: dict[str, Any], suggestion: str) -> None:
+    # the suggestion is difflib's closest match (Python standard library, ratio >= 0.6)
+    assert suggestion in problems_of(doc)
+
+
+def test_far_off_keys_get_no_suggestion() -> None:
+    assert "did you mean" not in problems_of(world([feature("hill", zzzz=3)]))

@@ -15,6 +15,7 @@ Errors are reported as one :class:`SpecError` that lists every problem found, on
 from __future__ import annotations
 
 import copy
+import difflib
 import functools
 import json
 import math
@@ -852,6 +853,32 @@ def _describe(root: dict[str, Any], node: dict[str, Any]) -> str:
     return "anything"
 
 
+def _did_you_mean(word: str, choices: Sequence[str]) -> str:
+    """ "; did you mean 'x'?" for the closest of `choices` (difflib's ratio >= 0.6), else ""."""
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
+    return f"; did you mean {close[0]!r}?" if close else ""
+
+
+_ITEM_PATH = re.compile(r"^(features|layers)\[(\d+)\]")
+
+
+def _with_names(problems: Sequence[str], data: Mapping[str, Any]) -> list[str]:
+    """Each problem about a feature or a layer that has a name ends by naming it:
+    ``features[3].sigma_m: ... , got -1 (feature 'Gorse Knoll')``."""
+    out = []
+    for line in problems:
+        m = _ITEM_PATH.match(line)
+        items = data.get(m.group(1)) if m else None
+        if m and isinstance(items, list) and int(m.group(2)) < len(items):
+            item = items[int(m.group(2))]
+            name = item.get("name") if isinstance(item, Mapping) else None
+            if isinstance(name, str) and name and not any(_is_surrogate(c) for c in name):
+                what = "feature" if m.group(1) == "features" else "layer"
+                line = f"{line} ({what} {name!r})"
+        out.append(line)
+    return out
+
+
 def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
     """Problem lines for one pydantic error."""
     kind: str = error["type"]
@@ -877,10 +904,13 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
             return [f"{path}: {_problem('is required', kinds)}"]
         if kind == "union_tag_not_found":
             return [f"{path[:-5]}: {_problem('must be a table with a kind', kinds, value)}"]
-        return [f"{path}: {_problem('unknown kind', kinds, ctx.get('tag', value))}"]
+        tag = ctx.get("tag", value)
+        line = f"{path}: {_problem('unknown kind', kinds, tag)}"
+        return [line + _did_you_mean(str(tag), list(KIND_CODES))]
     if kind == "extra_forbidden":
-        known = ", ".join((parent or {}).get("properties", {}))
-        return [f"{path}: unknown key (allowed keys: {known}), got {_got(value)}"]
+        keys = list((parent or {}).get("properties", {}))
+        line = f"{path}: unknown key (allowed keys: {', '.join(keys)}), got {_got(value)}"
+        return [line + _did_you_mean(str(last), keys)]
     if kind == "missing" and isinstance(last, int):  # a fixed-length list that is too short
         path, node, _ = _walk(root, error["loc"][:-1])
         what = f"must have {node.get('minItems', last + 1)} items"
@@ -895,6 +925,9 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
         what = f"must be {bounds[kind]} {_num(limit)}"
     elif kind == "literal_error":
         what = "unknown value"
+        choices = [str(c) for c in node.get("enum", [])]
+        if isinstance(value, str) and choices:
+            return [f"{path}: {_problem(what, allowed, value)}" + _did_you_mean(value, choices)]
     elif kind == "too_long" and node.get("minItems") == node.get("maxItems"):
         what = f"must have {node.get('maxItems')} items"  # a fixed-length list
     elif kind == "too_long":
@@ -1013,7 +1046,7 @@ def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     except ValidationError as exc:
         root = _schema()
         problems = [line for err in exc.errors() for line in _error_lines(root, err)]
-        raise SpecError(source, problems) from None
+        raise SpecError(source, _with_names(problems, data)) from None
 
 
 _TOML_POSITION = re.compile(r"^(?P<msg>.*?)\s*\(at line (?P<line>\d+), column (?P<col>\d+)\)$")
