@@ -63,7 +63,7 @@ def small_world(i: int, *, name: str | None = None, tolerance_m: float | None = 
             "lon_deg": 150.0,
             "height_m": 12.0,
             "radius_m": 35.0,
-            "wall_m": 10.0,
+            "wall_width_m": 10.0,
         },
         {
             "kind": "ridge",

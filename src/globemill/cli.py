@@ -11,6 +11,7 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, NoReturn
 
@@ -760,12 +761,31 @@ def _cmd_spec_format(args: argparse.Namespace) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from .spec import SpecDeprecationWarning
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    with warnings.catch_warnings():
+        # a renamed spec key: one line, as the other messages
+        warnings.simplefilter("always", SpecDeprecationWarning)
+        shown = warnings.showwarning
+
+        def show(message: Any, category: Any, *rest: Any, **kw: Any) -> None:
+            if issubclass(category, SpecDeprecationWarning):
+                if not getattr(args, "quiet", False):
+                    _note(f"warning: {message}")
+            else:
+                shown(message, category, *rest, **kw)
+
+        warnings.showwarning = show
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     from ._core import BakeError
     from .farm import FarmTerminated, MemoryLimitError
     from .spec import SpecError
 
-    parser = build_parser()
-    args = parser.parse_args(argv)
     try:
         return int(args.func(args))
     except SpecError as exc:

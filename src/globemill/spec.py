@@ -23,6 +23,7 @@ import operator
 import os
 import re
 import sys
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -64,6 +65,7 @@ __all__ = [
     "Mesa",
     "Noise",
     "Ridge",
+    "SpecDeprecationWarning",
     "SpecError",
     "WorldSpec",
     "json_schema",
@@ -97,6 +99,10 @@ class SpecError(ValueError):
             lines = "\n".join(f"  - {p}" for p in self.problems)
             message = f"{what} {source} ({len(self.problems)} problems):\n{lines}"
         super().__init__(message)
+
+
+class SpecDeprecationWarning(FutureWarning):
+    """A spec uses a key that was renamed; it is read for one more release (docs/spec.md)."""
 
 
 class _Problems(ValueError):
@@ -297,6 +303,19 @@ def _nonzero(value: float) -> float:
 
 # --------------------------------------------------------------------------------------------
 # geometry helpers (docs/terrain.md, "Frame and directions")
+
+
+def heading_of_bearing(bearing_deg: float) -> float:
+    """A block's bearing (degrees clockwise from north) as the core's heading (degrees counter-
+    clockwise from east): 90 - bearing, wrapped into -360..360 (csrc/spec_rules.cpp, the same)."""
+    h = 90.0 - bearing_deg
+    return h - 360.0 if h > 360.0 else h
+
+
+def bearing_of_heading(heading_deg: float) -> float:
+    """The inverse of heading_of_bearing (for specs that still give heading_deg)."""
+    b = 90.0 - heading_deg
+    return b - 360.0 if b > 360.0 else b
 
 
 def _sin_cos_deg(angle_deg: float) -> tuple[float, float]:
@@ -517,10 +536,10 @@ class _FeatureBase(_Model):
         return math.degrees(_angle(c0, c1))
 
     def footprint_angle_deg(self, radius_m: float) -> float:
-        """Largest angle (degrees) between the centre and a point of the footprint ``s <= wall_m``
-        of a kind with a ``footprint`` entry (a block).
+        """Largest angle (degrees) between the centre and a point of the footprint
+        ``s <= wall_width_m`` of a kind with a ``footprint`` entry (a block).
 
-        The footprint is the rounded rectangle grown by ``wall_m``. A point with local
+        The footprint is the rounded rectangle grown by ``wall_width_m``. A point with local
         coordinates (x, y) lies at angle θ from the centre with
         ``tan²θ = tan²(x/R) + tan²(y/R)`` (from the definition of x and y in docs/terrain.md);
         that grows with |x| and |y|, so the farthest point is on the outer corner arc, which is
@@ -577,6 +596,8 @@ class _FeatureBase(_Model):
                     rule = _field_rule(rules, entry["key"])
                     if rule["type"] == "choice":
                         value = rule["values"].index(value)
+                    if entry.get("from_bearing"):
+                        value = heading_of_bearing(value)
                     row[col] = math.radians(value) if entry.get("radians") else value
         return row
 
@@ -682,7 +703,7 @@ class _WorldChecks(_Model):
             reach = feature.footprint_angle_deg(self.radius_m)
             if reach > max_deg + _ANGLE_SLACK_DEG:
                 what = (
-                    f"{feature.kind} footprint (half sizes grown by wall_m) must stay within "
+                    f"{feature.kind} footprint (half sizes grown by wall_width_m) must stay within "
                     f"{_num(max_deg)}° of its centre"
                 )
                 allowed = f"<= {_num(max_deg)}° at radius_m = {_num(self.radius_m)}"
@@ -711,9 +732,10 @@ class WorldSpec(_section("world", _MODELS, _WorldChecks)):  # type: ignore[misc]
             9.. kind parameters (the ``row`` of each kind in ``spec_rules.json``):
 
             - hill: 9 amplitude_m, 10 sigma_m
-            - mesa: 9 height_m, 10 radius_m, 11 wall_m
-            - block: 9 height_m, 10 half_x_m, 11 half_y_m, 12 corner_m, 13 wall_m,
-              14 heading (radians)
+            - mesa: 9 height_m, 10 radius_m, 11 wall_width_m
+            - block: 9 height_m, 10 half_x_m, 11 half_y_m, 12 corner_radius_m,
+              13 wall_width_m, 14 heading: radians counter-clockwise from east,
+              of heading_of_bearing(bearing_deg)
             - crater: 9 depth_m, 10 radius_m, 11 rim_height_m, 12 rim_width_m
             - ridge: 9 height_m, 10 half_width_m, 11 profile (:data:`PROFILE_CODES`)
             - noise: 9 amplitude_m, 10 frequency_per_m, 11 octaves, 12 gain, 13 seed
@@ -740,7 +762,7 @@ def _schema() -> dict[str, Any]:
         "description": (
             "One world for globemill: base sphere, ordered features and material layers. "
             "Formulas in docs/terrain.md. Cross-field limits (tolerance_m <= radius_m / 10, "
-            "corner_m <= half sizes, block footprints within 60°, ridge arcs in (0°, 179°], "
+            "corner_radius_m <= half sizes, block footprints within 60°, ridge arcs in (0°, 179°], "
             "sum of amplitudes < 0.9 radius_m) are checked by the loader only."
         ),
     }
@@ -1026,6 +1048,52 @@ def _input_problems(data: Any) -> list[str]:
 # loading
 
 
+def migrate_renamed(data: Mapping[str, Any]) -> tuple[dict[str, Any], list[str]]:
+    """The document with renamed keys (each kind's ``renamed`` in the rule table) in their new
+    spelling, headings turned into bearings, and a message for each; `data` is not changed. A
+    feature that gives both spellings keeps both (validation then names the old one)."""
+    out = dict(data)
+    notes: list[str] = []
+    features = data.get("features")
+    if not isinstance(features, list):
+        return out, notes
+    new_features = []
+    for i, f in enumerate(features):
+        tag = f.get("kind") if isinstance(f, Mapping) else None
+        kind = _KINDS.get(tag) if isinstance(tag, str) else None
+        if kind is None or not kind.get("renamed"):
+            new_features.append(f)
+            continue
+        g = dict(f)
+        for rn in kind["renamed"]:
+            old, new = rn["from"], rn["to"]
+            if old not in g or new in g:
+                continue
+            value = g.pop(old)
+            name = f.get("name")
+            what = f"features[{i}]" + (f" ({name!r})" if isinstance(name, str) else "")
+            if rn.get("convert") == "heading_to_bearing" and _is_number(value):
+                value = bearing_of_heading(float(value))
+                notes.append(
+                    f"{what}: heading_deg (counter-clockwise from east) is deprecated and will "
+                    f"not be read after this release; write bearing_deg = {_num(value)} "
+                    "(clockwise from north) instead"
+                )
+            else:
+                notes.append(
+                    f"{what}: {old} is deprecated and will not be read after this release; "
+                    f"write {new} instead"
+                )
+            g[new] = value
+        new_features.append(g)
+    out["features"] = new_features
+    return out, notes
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
 def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     """Validate a world spec given as plain data (the parsed TOML or JSON document).
 
@@ -1041,6 +1109,9 @@ def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     refused = _input_problems(data)
     if refused:
         raise SpecError(source, refused)
+    data, notes = migrate_renamed(data)
+    for note in notes:
+        warnings.warn(SpecDeprecationWarning(f"{source}: {note}"), stacklevel=2)
     try:
         return WorldSpec.model_validate(dict(data))
     except ValidationError as exc:
