@@ -29,8 +29,11 @@ MIN_ANGLE_DEG: float = _core.MIN_ANGLE_DEG
 NO_LAYER: int = _core.NO_LAYER
 
 Progress = Callable[[str, int, int], None]
-"""progress(stage, done, total): stage is "refine" (triangles so far of about total), "levels",
-"chunks" (levels done) or "colliders"; called on the calling thread."""
+"""progress(stage, done, total), called on the calling thread, stages in this order: "refine"
+(leaf triangles so far, of about total), "verify" (triangles measured), "levels" and "seams"
+(levels cut, levels stitched), "chunks" (levels whose chunk buffers are made), "colliders" (0 of 1,
+then 1 of 1); `output.write_outputs` adds "write" (chunk levels prepared, then the files).
+`globemill.progress.BakeProgress` turns these into one fraction of the whole."""
 U32 = npt.NDArray[np.uint32]
 F64 = npt.NDArray[np.float64]
 

@@ -124,7 +124,10 @@ def _max_memory(text: str) -> int:
 
 
 def _bake_spec(
-    args: argparse.Namespace, levels_needed: int | None = None, outdir: Path | None = None
+    args: argparse.Namespace,
+    levels_needed: int | None = None,
+    outdir: Path | None = None,
+    keep_bar: bool = False,
 ) -> BakeResult:
     """Load the spec, estimate the work (printed when large, refused over --max-memory), check
     that `outdir` can take the files, then bake with the shared options, a progress bar on a
@@ -159,22 +162,18 @@ def _bake_spec(
     show = not args.quiet and sys.stderr.isatty()
     bar = None
     if show:
-        from tqdm import tqdm
+        from .progress import ProgressBar
 
-        bar = tqdm(total=None, unit="", desc=f"baking {spec.name}", leave=False)
-
-    def progress(stage: str, done: int, total: int) -> None:
-        # stages: refine (triangles of about `total`), levels, chunks (levels done), colliders
-        if bar is not None:
-            bar.set_description(f"baking {spec.name}: {stage}")
-            bar.total = total
-            bar.n = done
-            bar.refresh()
-
+        bar = ProgressBar(spec.name, collision=not args.no_collision)
+    args.progress_bar = bar  # the writer reports its stage to the same bar
+    progress = bar
+    ok = False
     try:
-        return bake(spec, **bake_options(args), progress=progress)
+        result = bake(spec, **bake_options(args), progress=progress)
+        ok = True
+        return result
     finally:
-        if bar is not None:
+        if bar is not None and not (ok and keep_bar):
             bar.close()
 
 
@@ -202,10 +201,20 @@ def _cmd_bake(args: argparse.Namespace) -> int:
         from .watch import watch
 
         return watch(args, options, note=_note, out=_out)
-    result = _bake_spec(args, args.level if formats else None, Path(args.output))
-    paths = write_outputs(
-        result, Path(args.output), formats=formats, level=args.level, options=options
-    )
+    result = _bake_spec(args, args.level if formats else None, Path(args.output), keep_bar=True)
+    bar = args.progress_bar
+    try:
+        paths = write_outputs(
+            result,
+            Path(args.output),
+            formats=formats,
+            level=args.level,
+            options=options,
+            progress=bar,
+        )
+    finally:
+        if bar is not None:
+            bar.close()
     if not args.quiet:
         _out(summary_table(result.report))
         for p in paths.values():
