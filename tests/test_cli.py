@@ -7,6 +7,7 @@ import struct
 import subprocess
 import sys
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pytest
@@ -376,3 +377,64 @@ def test_uncovered_ground_is_warned_about(tmp_path: Path, small: Path) -> None:
     # full bands: nothing to say
     res = run("spec", "validate", str(small))
     assert res.returncode == 0 and "warning" not in res.stderr
+
+
+# ---- the help and the docs tell the truth -------------------------------------------------------
+
+
+def _subparsers(parser: Any) -> dict[str, Any]:
+    import argparse
+
+    out = {}
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            for name, sub in action.choices.items():
+                out[name] = sub
+                out.update({f"{name} {k}": v for k, v in _subparsers(sub).items()})
+    return out
+
+
+def test_top_level_help_lists_every_option_of_every_command() -> None:
+    from globemill.cli import build_parser
+
+    text = run("--help").stdout
+    flat = " ".join(text.split())
+    for name, sub in _subparsers(build_parser()).items():
+        if name == "spec":
+            continue  # a group: its actions are listed
+        assert f"globemill {name} " in flat, name
+        for action in sub._actions:
+            # the usage line names each option by its first spelling (-o for -o/--output)
+            first = action.option_strings[0] if action.option_strings else None
+            if first and first != "-h":
+                assert f"[{first}" in flat or f" {first} " in flat, (name, first)
+
+
+def test_each_command_has_its_own_examples_and_they_parse() -> None:
+    import shlex
+
+    from globemill.cli import EXAMPLES, build_parser
+
+    parser = build_parser()
+    seen: dict[str, str] = {}
+    for cmd in EXAMPLES:
+        text = run(cmd, "--help").stdout
+        lines = [ln.strip() for ln in text.split("examples:")[1].splitlines() if ln.strip()]
+        examples = [ln for ln in lines if ln.startswith("globemill ")]
+        assert examples == EXAMPLES[cmd], cmd
+        for line in examples:
+            assert line not in seen, (line, cmd, seen.get(line))  # no example repeated
+            seen[line] = cmd
+            args = parser.parse_args(shlex.split(line.split(" > ")[0])[1:])
+            assert args.command == cmd
+
+
+def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
+    import globemill
+
+    layers = {x.name: x for x in globemill.load_spec(DEMO).layers}
+    edge = layers["shingle"].altitude_m[1]
+    assert edge == layers["moor grass"].altitude_m[0] == -2.0
+    tutorial = (DEMO.parents[1] / "docs" / "tutorial.md").read_text()
+    step = tutorial.split("## 5.")[1].split("## 6.")[0]
+    assert "from −2 m up to +1 m" in step  # the boundary as the spec has it, moved elsewhere

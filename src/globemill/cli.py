@@ -681,8 +681,17 @@ def build_parser() -> argparse.ArgumentParser:
     s = command("schema", "print the JSON Schema of world spec files", codes=False)
     s.set_defaults(func=_cmd_schema)
     # the top-level help ends with every command's usage: every option, as the README says
+    import textwrap
+
     usages = "".join(
-        "  " + " ".join(parser.format_usage().split()[1:]) + "\n"
+        textwrap.fill(
+            " ".join(parser.format_usage().split()[1:]),
+            width=96,
+            initial_indent="  ",
+            subsequent_indent="      ",
+            break_on_hyphens=False,
+        )
+        + "\n"
         for parser in (b, c, e, v, f, sv, sc, sf, s)
     )
     p.epilog = f"every command and option (COMMAND --help explains each):\n{usages}\n{EPILOG}"
