@@ -438,3 +438,14 @@ def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
     tutorial = (DEMO.parents[1] / "docs" / "tutorial.md").read_text()
     step = tutorial.split("## 5.")[1].split("## 6.")[0]
     assert "from −2 m up to +1 m" in step  # the boundary as the spec has it, moved elsewhere
+
+
+def test_an_over_budget_bake_names_the_feature_and_key_behind_it(tmp_path: Path) -> None:
+    # a broad hill and fine noise: the noise alone needs nearly every triangle
+    spec = DEMO.parents[1] / "tests" / "data" / "over_budget_noise.toml"
+    res = run("bake", str(spec), "-o", str(tmp_path / "out"))
+    assert res.returncode == 3
+    line = res.stderr.strip()
+    assert "max_triangles" in line and "features[1] ('grit'), a noise" in line
+    assert "frequency_per_m = 0.2" in line
+    assert not (tmp_path / "out").exists()
