@@ -243,11 +243,7 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     if (settings.progress)
     {
         ro.progress = [&](int, std::uint64_t leaves) { progress(kStageRefine, leaves, std::max(estimate, leaves)); };
-        // verification starts from every leaf refinement made: that closes refine's estimate
-        ro.verify_progress = [&, refined = false](std::uint64_t done, std::uint64_t total) mutable {
-            if (!refined) progress(kStageRefine, total, total), refined = true;
-            progress(kStageVerify, done, total);
-        };
+        ro.verify_progress = [&](std::uint64_t done, std::uint64_t total) { progress(kStageVerify, done, total); };
     }
     const Hierarchy* previous = inc && inc->previous ? &inc->previous->hierarchy : nullptr;
     if (previous) {

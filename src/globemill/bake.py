@@ -407,7 +407,23 @@ def bake(
         accept_over_tolerance=accept_over_tolerance,
     )
     with named_features(spec), budget_named(spec, s["tolerance_m"]):
-        return _wrap(spec, s, _core.bake(Field(spec)._core, s, progress))
+        return _wrap(spec, s, _core.bake(Field(spec)._core, s, _closing_refine(progress)))
+
+
+def _closing_refine(progress: Progress | None) -> Progress | None:
+    """The core's refine reports count against an estimate; verification starts from every
+    leaf refinement made, so its first report closes refine at that count."""
+    if progress is None:
+        return None
+    refined = [False]
+
+    def relay(stage: str, done: int, total: int) -> None:
+        if stage == "verify" and not refined[0]:
+            refined[0] = True
+            progress("refine", total, total)
+        progress(stage, done, total)
+
+    return relay
 
 
 BakeError = _core.BakeError
