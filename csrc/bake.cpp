@@ -13,7 +13,9 @@
 namespace gm {
 
 const char* const kStageRefine = "refine";
+const char* const kStageVerify = "verify";
 const char* const kStageLevels = "levels";
+const char* const kStageSeams = "seams";
 const char* const kStageChunks = "chunks";
 const char* const kStageColliders = "colliders";
 
@@ -239,7 +241,10 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     ro.tau_cap = plan.tau_cap_m;
     std::uint64_t estimate = 0;
     if (settings.progress)
+    {
         ro.progress = [&](int, std::uint64_t leaves) { progress(kStageRefine, leaves, std::max(estimate, leaves)); };
+        ro.verify_progress = [&](std::uint64_t done, std::uint64_t total) { progress(kStageVerify, done, total); };
+    }
     const Hierarchy* previous = inc && inc->previous ? &inc->previous->hierarchy : nullptr;
     if (previous) {
         ro.previous = previous;
@@ -274,10 +279,13 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     if (prev)
         for (const LevelResult& pl : prev->levels) prev_levels.push_back(&pl.mesh);
     std::vector<Level> levels;
+    const LevelProgress level_progress = [&](const char* stage, std::uint64_t done, std::uint64_t total) {
+        progress(std::string(stage) == "seams" ? kStageSeams : kStageLevels, done, total);
+    };
     st = extract_levels(field, h, plan.tolerances, kMeasureOrder, settings.threads, settings.stitch, levels, r.chunks,
-                        error, prev ? previous : nullptr, prev && prev_levels.size() == plan.tolerances.size() ? &prev_levels : nullptr);
+                        error, prev ? previous : nullptr, prev && prev_levels.size() == plan.tolerances.size() ? &prev_levels : nullptr,
+                        settings.progress ? &level_progress : nullptr);
     if (st != Status::Ok) return st;
-    progress(kStageLevels, plan.tolerances.size(), plan.tolerances.size());
 
     // 4. per-chunk buffers, level by level (chunks in parallel; each writes only its own)
     const std::uint32_t nc = r.chunk_count;

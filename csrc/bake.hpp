@@ -61,14 +61,18 @@ struct BakeSettings {
     // keep a bake whose level or collider measures beyond its tolerance (default: it fails with
     // Status::ToleranceMissed, naming the level and the figures)
     bool accept_over_tolerance = false;
-    // called between refinement rounds and after each later stage, on the calling thread:
-    // (stage, done, total) with stage one of the kStage* names
+    // called on the calling thread as the bake goes: (stage, done, total) with stage one of the
+    // kStage* names, in order: refine (leaf triangles of about an estimate), verify (triangles
+    // measured), levels and seams (levels done), chunks (levels whose chunk buffers are made),
+    // colliders (0 then 1)
     std::function<void(const char*, std::uint64_t, std::uint64_t)> progress;
 };
 
 // the stages progress reports, in order
 extern const char* const kStageRefine;
+extern const char* const kStageVerify;
 extern const char* const kStageLevels;
+extern const char* const kStageSeams;
 extern const char* const kStageChunks;
 extern const char* const kStageColliders;
 

@@ -28,7 +28,10 @@ double since(Clock::time_point t) { return std::chrono::duration<double>(Clock::
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
                       ChunkInfo& chunks, std::string& error, const Hierarchy* previous,
-                      const std::vector<const Level*>* previous_levels) {
+                      const std::vector<const Level*>* previous_levels, const LevelProgress* progress) {
+    auto report = [&](const char* stage, std::size_t done, std::size_t total) {
+        if (progress && *progress) (*progress)(stage, done, total);
+    };
     const std::size_t L = tolerances.size();
     if (L == 0) {
         error = "at least one level is needed";
@@ -42,6 +45,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
         levels[li].tolerance_m = tolerances[li];
         cut_level(field, h, verify_order, threads, split, levels[li]);
         levels[li].seconds += since(t);
+        report("levels", L - li, L);
     }
     for (std::size_t li = 0; li < L; ++li) {
         const auto t = Clock::now();
@@ -59,6 +63,7 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
         make_seams(h, edges, chunks, levels[li], li + 1 < L ? &levels[li + 1] : nullptr, threads, stitch,
                    reuse ? &prev : nullptr);
         levels[li].seconds += since(t);
+        report("seams", li + 1, L);
     }
     return Status::Ok;
 }

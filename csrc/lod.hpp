@@ -3,6 +3,7 @@
 
 #include <array>
 #include <cstdint>
+#include <functional>
 #include <string>
 #include <vector>
 
@@ -43,6 +44,10 @@ struct ChunkInfo {
     std::vector<std::uint32_t> edge_ids;   // 3 per chunk: global chunk-edge id of edge i
 };
 
+// (stage, done, total) after each level is cut ("levels") and stitched ("seams"), on the calling
+// thread
+using LevelProgress = std::function<void(const char*, std::uint64_t, std::uint64_t)>;
+
 // extract one level per tolerance (ascending, the first equal to the hierarchy's); coarser levels
 // are computed first and nested: every vertex of a coarser level is a vertex of the finer ones
 //
@@ -54,6 +59,7 @@ struct ChunkInfo {
 Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double>& tolerances,
                       int verify_order, int threads, bool stitch, std::vector<Level>& levels,
                       ChunkInfo& chunks, std::string& error, const Hierarchy* previous = nullptr,
-                      const std::vector<const Level*>* previous_levels = nullptr);
+                      const std::vector<const Level*>* previous_levels = nullptr,
+                      const LevelProgress* progress = nullptr);
 
 }  // namespace gm

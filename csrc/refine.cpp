@@ -460,26 +460,36 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
     std::vector<std::uint8_t> bad;
     // samples a quarter of the shortest noise wavelength that matters apart, at most
     const double spacing = verify_spacing(F, tol);
+    // measured in slices so progress can be reported between them (the result does not depend
+    // on the slicing: each triangle is measured on its own)
+    constexpr std::size_t kSlice = 1u << 15;
+    std::uint64_t measured = 0, to_measure = check.size();
     while (!check.empty()) {
         bad.assign(check.size(), 0);
-        parallel_for(check.size(), opt.threads, [&](std::size_t b, std::size_t e) {
-            for (std::size_t i = b; i < e; ++i) {
-                Node& t = tris[check[i]];
-                const int order = sampling_order(pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), opt.verify_order, spacing);
-                if (t.err < 0 || t.err_order != order) {  // (an incremental rebuild may have it already)
-                    double m2s, s2m;
-                    double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), order, m2s, s2m);
-                    t.err = static_cast<float>(w);
-                    t.err_order = static_cast<std::uint8_t>(order);
-                    t.m2s = static_cast<float>(m2s);
-                    t.s2m = static_cast<float>(s2m);
+        for (std::size_t s0 = 0; s0 < check.size(); s0 += kSlice) {
+            const std::size_t s1 = std::min(check.size(), s0 + kSlice);
+            parallel_for(s1 - s0, opt.threads, [&](std::size_t b0, std::size_t e0) {
+                for (std::size_t i = s0 + b0; i < s0 + e0; ++i) {
+                    Node& t = tris[check[i]];
+                    const int order =
+                        sampling_order(pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), opt.verify_order, spacing);
+                    if (t.err < 0 || t.err_order != order) {  // (an incremental rebuild may have it already)
+                        double m2s, s2m;
+                        double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), order, m2s, s2m);
+                        t.err = static_cast<float>(w);
+                        t.err_order = static_cast<std::uint8_t>(order);
+                        t.m2s = static_cast<float>(m2s);
+                        t.s2m = static_cast<float>(s2m);
+                    }
+                    if (t.err > kVerifyMargin * tol && !at_floor(h, t, tol)) {
+                        bad[i] = 1;
+                        if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
+                    }
                 }
-                if (t.err > kVerifyMargin * tol && !at_floor(h, t, tol)) {
-                    bad[i] = 1;
-                    if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
-                }
-            }
-        });
+            });
+            measured += s1 - s0;
+            if (opt.verify_progress) opt.verify_progress(measured, std::max(to_measure, measured));
+        }
         std::size_t first_new = tris.size();
         for (std::size_t i = 0; i < check.size(); ++i) {
             if (!bad[i]) continue;
@@ -494,6 +504,7 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
         check.clear();
         for (std::size_t i = first_new; i < tris.size(); ++i)
             if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
+        to_measure += check.size();
     }
     return Status::Ok;
 }

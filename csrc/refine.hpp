@@ -32,6 +32,8 @@ struct RefineOptions {
     int verify_order = 3;
     // called between rounds on the calling thread: (round, leaf triangles so far)
     std::function<void(int, std::uint64_t)> progress;
+    // called during verification on the calling thread: (triangles measured, triangles to measure)
+    std::function<void(std::uint64_t, std::uint64_t)> verify_progress;
     // incremental rebuild: a hierarchy built before with the same options on a field that differs
     // from this one only inside the `changed` caps. a node of the new hierarchy that has a
     // counterpart there (same place in the tree) and lies clear of every changed cap (its own cap

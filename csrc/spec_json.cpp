@@ -462,7 +462,8 @@ void feature_row(const FeatureOut& f, double row[16]) {
                 }
                 const Val* v = f.val(e.key);
                 if (!v || !v->present) continue;
-                row[col] = e.radians ? v->num[0] * (kPi / 180.0) : v->num[0];  // math.radians
+                const double x = e.from_bearing ? heading_of_bearing(v->num[0]) : v->num[0];
+                row[col] = e.radians ? x * (kPi / 180.0) : x;  // math.radians
             }
         }
     }
@@ -496,6 +497,34 @@ bool check_table(Checker& ck, const JValue& v, const std::string& path, const Se
     if (m.ok) check_model_rules(ck, m);
     out = &m;
     return m.ok;
+}
+
+// keys renamed in the table, given in their old spelling (and not also in the new one), take the
+// new one; a heading becomes a bearing (spec.py's _migrate does the same, with a message)
+void migrate_renamed(JValue& root) {
+    const SpecRules& R = spec_rules();
+    if (root.type != JT::Object) return;
+    for (JMember& top : root.members) {
+        if (top.key != "features" || top.value.type != JT::Array) continue;
+        for (JValue& f : top.value.items) {
+            if (f.type != JT::Object) continue;
+            const JValue* kv = f.find("kind");
+            const KindRules* kind = kv && kv->type == JT::String ? R.kind(kv->text) : nullptr;
+            if (!kind) continue;
+            for (const Renamed& rn : kind->renamed) {
+                if (f.find(rn.to.c_str())) continue;
+                for (JMember& m : f.members) {
+                    if (m.key != rn.from) continue;
+                    m.key = rn.to;
+                    if (rn.heading_to_bearing && m.value.type == JT::Number && std::isfinite(m.value.number)) {
+                        m.value.number = bearing_of_heading(m.value.number);
+                        m.value.is_int = false;
+                        m.value.text = format_number(m.value.number);
+                    }
+                }
+            }
+        }
+    }
 }
 
 void validate(Checker& ck, const JValue& root, SpecData& out) {
@@ -558,7 +587,7 @@ void validate(Checker& ck, const JValue& root, SpecData& out) {
                                                      f.num(f.kind->fp_corner), f.num(f.kind->fp_grow));
                 if (reach > c.max_deg + R.angle_slack_deg)
                     ck.add("features[" + std::to_string(i) + "]: " + f.kind->name +
-                           " footprint (half sizes grown by wall_m) must stay within " +
+                           " footprint (half sizes grown by wall_width_m) must stay within " +
                            format_number(c.max_deg) + "° of its centre (allowed: <= " + format_number(c.max_deg) +
                            "° at radius_m = " + format_number(radius) + "), got " + format_number(reach) + "°");
             }
@@ -662,6 +691,7 @@ SpecStatus load_spec_json(const char* text, std::size_t length, const SpecLimits
         }
     }
     Checker ck(limits.max_problems);
+    migrate_renamed(root);
     validate(ck, root, out);
     const std::size_t n = ck.count();
     if (n == 0) return SpecStatus::Ok;

@@ -157,6 +157,7 @@ void section_of(const JValue& s, const std::string& name, const std::string& kin
             } else {
                 r.key = text_of(e, "key");
                 r.radians = flag(e, "radians");
+                r.from_bearing = flag(e, "from_bearing");
                 if (const JValue* only = e.find("only_if")) {
                     r.only_if_key = text_of(*only, "key");
                     r.only_if_in = texts_of(*only, "in");
@@ -195,6 +196,15 @@ SpecRules read_rules() {
         KindRules kr;
         section_of(k, text_of(k, "kind"), r.kind_list, kr);
         kr.code = static_cast<int>(member(k, "code").number);
+        if (const JValue* ren = k.find("renamed")) {
+            for (const JValue& e : ren->items) {
+                Renamed rn;
+                rn.from = text_of(e, "from");
+                rn.to = text_of(e, "to");
+                rn.heading_to_bearing = text_of(e, "convert") == "heading_to_bearing";
+                kr.renamed.push_back(rn);
+            }
+        }
         if (const JValue* fp = k.find("footprint")) {
             kr.has_footprint = true;
             std::vector<std::string> half = texts_of(*fp, "half");
@@ -225,6 +235,16 @@ SpecRules read_rules() {
 }
 
 }  // namespace
+
+double heading_of_bearing(double bearing_deg) {
+    const double h = 90.0 - bearing_deg;
+    return h > 360.0 ? h - 360.0 : h;
+}
+
+double bearing_of_heading(double heading_deg) {
+    const double b = 90.0 - heading_deg;
+    return b > 360.0 ? b - 360.0 : b;
+}
 
 std::string Bounds::broken(double x) const {
     if (has_lo && (lo_open ? !(x > lo) : !(x >= lo))) return (lo_open ? "> " : ">= ") + format_number(lo);

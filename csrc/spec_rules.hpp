@@ -61,6 +61,7 @@ struct RowEntry {
     int col = 0;
     std::string key, key2;  // Value: key; Direction: lat key, lon key
     bool radians = false;
+    bool from_bearing = false;  // the column holds heading_of_bearing(value) (docs/terrain.md, block)
     std::string only_if_key;  // Value written only when this choice is one of only_if_in
     std::vector<std::string> only_if_in;
 };
@@ -74,8 +75,15 @@ struct SectionRules {
     const CheckRule* check(const std::string& rule) const;
 };
 
+// a key renamed in the table: the old spelling is still read for one release (docs/spec.md)
+struct Renamed {
+    std::string from, to;
+    bool heading_to_bearing = false;  // the old value is a heading: convert it
+};
+
 struct KindRules : SectionRules {
     int code = 0;
+    std::vector<Renamed> renamed;
     bool has_footprint = false;
     std::string fp_half[2], fp_corner, fp_grow;
     enum Amplitude { Abs, Sum, AbsGeometric } amplitude = Abs;
@@ -94,6 +102,11 @@ struct SpecRules {
     const KindRules* kind_by_code(int code) const;
     const SectionRules& section(const std::string& name) const;
 };
+
+// a block's bearing (degrees clockwise from north) as the core's heading (degrees counter-
+// clockwise from east): 90 - bearing, wrapped into -360..360; and back (spec.py does the same)
+double heading_of_bearing(double bearing_deg);
+double bearing_of_heading(double heading_deg);
 
 // the table, read once (thread-safe) from the text embedded at build time. A table that does not
 // read is a build defect: the process stops with a message (tests read it on every build).

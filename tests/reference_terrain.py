@@ -535,7 +535,7 @@ class ReferenceTerrain:
         return (self.radius_m + self.height(u))[:, None] * u
 
     def wall_features(self) -> list[int]:
-        """Indices of the features with a step (mesa or block with wall_m == 0)."""
+        """Indices of the features with a step (mesa or block with wall_width_m == 0)."""
         out = []
         for i, row in enumerate(self.features):
             kind = int(row[COL_KIND])
@@ -574,10 +574,17 @@ def feature_row(feature: Mapping[str, Any]) -> Array:
     if kind == "hill":
         row[9:11] = f["amplitude_m"], f["sigma_m"]
     elif kind == "mesa":
-        row[9:12] = f["height_m"], f["radius_m"], f["wall_m"]
+        row[9:12] = f["height_m"], f["radius_m"], f["wall_width_m"]
     elif kind == "block":
-        row[9:14] = f["height_m"], f["half_x_m"], f["half_y_m"], f["corner_m"], f["wall_m"]
-        row[14] = np.radians(f["heading_deg"])
+        row[9:14] = (
+            f["height_m"],
+            f["half_x_m"],
+            f["half_y_m"],
+            f["corner_radius_m"],
+            f["wall_width_m"],
+        )
+        # bearing clockwise from north; the heading psi of docs/terrain.md is 90 - bearing
+        row[14] = np.radians(90.0 - f["bearing_deg"])
     elif kind == "crater":
         row[9:13] = f["depth_m"], f["radius_m"], f["rim_height_m"], f["rim_width_m"]
     elif kind == "ridge":

@@ -85,7 +85,14 @@ def _world(bias: str, cap: int = TRIANGLE_CAP) -> globemill.WorldSpec:
         for la, lo, a, s in [*HILLS, VALLEY]
     ]
     la, lo, h, a, w = MESA
-    mesa = {"kind": "mesa", "lat_deg": la, "lon_deg": lo, "height_m": h, "radius_m": a, "wall_m": w}
+    mesa = {
+        "kind": "mesa",
+        "lat_deg": la,
+        "lon_deg": lo,
+        "height_m": h,
+        "radius_m": a,
+        "wall_width_m": w,
+    }
     la, lo, a, d, rh, rw = CRATER
     crater = {
         "kind": "crater",

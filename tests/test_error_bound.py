@@ -66,7 +66,7 @@ def worlds(draw: st.DrawFn) -> dict:
                 lon_deg=lon,
                 height_m=draw(st.floats(-15, 15)),
                 radius_m=draw(st.floats(10, 60)),
-                wall_m=draw(st.sampled_from([0.0, 4.0, 15.0])),
+                wall_width_m=draw(st.sampled_from([0.0, 4.0, 15.0])),
             )
         elif kind == "crater":
             f.update(
@@ -84,9 +84,9 @@ def worlds(draw: st.DrawFn) -> dict:
                 height_m=draw(st.floats(-10, 10)),
                 half_x_m=draw(st.floats(8, 40)),
                 half_y_m=draw(st.floats(8, 40)),
-                heading_deg=draw(st.floats(-90, 90)),
-                corner_m=4.0,
-                wall_m=draw(st.sampled_from([0.0, 5.0])),
+                bearing_deg=draw(st.floats(0, 180)),
+                corner_radius_m=4.0,
+                wall_width_m=draw(st.sampled_from([0.0, 5.0])),
             )
         else:
             f.update(

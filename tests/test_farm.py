@@ -63,7 +63,7 @@ def small_world(i: int, *, name: str | None = None, tolerance_m: float | None = 
             "lon_deg": 150.0,
             "height_m": 12.0,
             "radius_m": 35.0,
-            "wall_m": 10.0,
+            "wall_width_m": 10.0,
         },
         {
             "kind": "ridge",
@@ -667,3 +667,58 @@ def test_cache_key_is_sha256_of_the_canonical_document() -> None:
     }
     text = json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
     assert world_hash(spec) == hashlib.sha256(text.encode()).hexdigest()
+
+
+# ---- per-world progress --------------------------------------------------------------------------
+
+
+def test_a_running_bake_leaves_its_progress_for_the_farm_bar(tmp_path: Path) -> None:
+    import globemill
+    from globemill.farm import _progress_file, read_progress
+    from globemill.output import write_outputs
+
+    path = str(tmp_path / "7.progress")
+    seen: list[tuple[float, str]] = []
+    prog = _progress_file(path)
+
+    def spy(stage: str, done: int, total: int) -> None:
+        prog(stage, done, total)
+        got = read_progress(path)
+        if got is not None:
+            seen.append(got)
+
+    spec = globemill.load_spec(Path(__file__).resolve().parents[1] / "examples" / "pebblemoor.toml")
+    result = globemill.bake(spec, tolerance_m=6.0, progress=spy)
+    write_outputs(result, tmp_path / "out", progress=spy)
+    fractions = [f for f, _ in seen]
+    assert fractions == sorted(fractions) and fractions[-1] == 1.0
+    assert len(set(fractions)) > 5  # it moved through the bake, not only at the end
+    assert seen[-1][1].startswith("write")
+    assert read_progress(str(tmp_path / "missing.progress")) is None
+
+
+def test_the_farm_bar_is_told_how_far_running_bakes_are(tmp_path: Path) -> None:
+    import threading
+    from concurrent.futures import ThreadPoolExecutor
+
+    farm_module = importlib.import_module("globemill.farm")
+
+    release = threading.Event()
+    ticks: list[dict[int, tuple[float, str]]] = []
+
+    def slow_bake() -> str:
+        (tmp_path / f"3{farm_module.PROGRESS_SUFFIX}").write_text("0.4000 verify 10/25 triangles")
+        release.wait(60)
+        return "done"
+
+    def tick(running: dict[int, tuple[float, str]]) -> None:
+        ticks.append(running)
+        if running:
+            release.set()
+
+    job = farm_module._Job(index=3, name="knoll", digest="", task={})
+    with ThreadPoolExecutor(1) as pool:
+        fut = pool.submit(slow_bake)
+        done = list(farm_module._completed({fut: job}, str(tmp_path), tick))
+    assert done == [fut] and fut.result() == "done"
+    assert {3: (0.4, "verify 10/25 triangles")} in ticks

@@ -66,7 +66,7 @@ KIND_CASES: dict[str, dict[str, Any]] = {
         "lon_deg": 25,
         "height_m": 20.0,
         "radius_m": 100.0,
-        "wall_m": 40.0,
+        "wall_width_m": 40.0,
     },
     "mesa_step": {
         "kind": "mesa",
@@ -74,7 +74,7 @@ KIND_CASES: dict[str, dict[str, Any]] = {
         "lon_deg": -40,
         "height_m": 15.0,
         "radius_m": 80.0,
-        "wall_m": 0.0,
+        "wall_width_m": 0.0,
     },
     "block": {
         "kind": "block",
@@ -83,9 +83,9 @@ KIND_CASES: dict[str, dict[str, Any]] = {
         "height_m": 15.0,
         "half_x_m": 120.0,
         "half_y_m": 70.0,
-        "corner_m": 20.0,
-        "wall_m": 30.0,
-        "heading_deg": 30.0,
+        "corner_radius_m": 20.0,
+        "wall_width_m": 30.0,
+        "bearing_deg": 60.0,
     },
     "block_step": {
         "kind": "block",
@@ -94,9 +94,9 @@ KIND_CASES: dict[str, dict[str, Any]] = {
         "height_m": -12.0,
         "half_x_m": 60.0,
         "half_y_m": 25.0,
-        "corner_m": 0.0,
-        "wall_m": 0.0,
-        "heading_deg": -200.0,
+        "corner_radius_m": 0.0,
+        "wall_width_m": 0.0,
+        "bearing_deg": 290.0,
     },
     "block_at_pole": {  # the tangent frame's Ẑ branch (|c_y| > 1 − 1e-9)
         "kind": "block",
@@ -105,9 +105,9 @@ KIND_CASES: dict[str, dict[str, Any]] = {
         "height_m": 10.0,
         "half_x_m": 50.0,
         "half_y_m": 30.0,
-        "corner_m": 30.0,
-        "wall_m": 10.0,
-        "heading_deg": 45.0,
+        "corner_radius_m": 30.0,
+        "wall_width_m": 10.0,
+        "bearing_deg": 45.0,
     },
     "crater": {
         "kind": "crater",
@@ -267,7 +267,7 @@ def test_feature_over_ground_matches_reference(case: str, blend: str) -> None:
     "feature",
     [
         {"kind": "hill", "amplitude_m": 12.0, "sigma_m": 700.0},
-        {"kind": "mesa", "height_m": 12.0, "radius_m": 2000.0, "wall_m": 500.0},
+        {"kind": "mesa", "height_m": 12.0, "radius_m": 2000.0, "wall_width_m": 500.0},
         {
             "kind": "crater",
             "depth_m": 12.0,
@@ -363,13 +363,13 @@ def feature_dicts(draw: st.DrawFn, radius: float, budget: float) -> dict[str, An
         f["sigma_m"] = frac(0.01, 0.3)
     elif kind == "mesa":
         f |= {"lat_deg": lat(), "lon_deg": lon(), "height_m": amp(), "radius_m": frac(0.01, 0.4)}
-        f["wall_m"] = draw(st.sampled_from([0.0, 1.0])) * frac(0.002, 0.2)
+        f["wall_width_m"] = draw(st.sampled_from([0.0, 1.0])) * frac(0.002, 0.2)
     elif kind == "block":
         hx, hy = frac(0.005, 0.25), frac(0.005, 0.25)
         f |= {"lat_deg": lat(), "lon_deg": lon(), "height_m": amp(), "half_x_m": hx}
-        f |= {"half_y_m": hy, "heading_deg": draw(st.floats(-360.0, 360.0))}
-        f["corner_m"] = draw(st.floats(0.0, 1.0)) * min(hx, hy)
-        f["wall_m"] = draw(st.sampled_from([0.0, 1.0])) * frac(0.002, 0.1)
+        f |= {"half_y_m": hy, "bearing_deg": draw(st.floats(-360.0, 360.0))}
+        f["corner_radius_m"] = draw(st.floats(0.0, 1.0)) * min(hx, hy)
+        f["wall_width_m"] = draw(st.sampled_from([0.0, 1.0])) * frac(0.002, 0.1)
     elif kind == "crater":
         half = budget / 2
         f |= {"lat_deg": lat(), "lon_deg": lon(), "radius_m": frac(0.01, 0.3)}

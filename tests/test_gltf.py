@@ -91,7 +91,7 @@ def random_world(seed: int) -> dict[str, Any]:
         if kind == "hill":
             f = {"amplitude_m": float(rng.uniform(-15, 25)) or 1.0, "sigma_m": 30.0}
         elif kind == "mesa":
-            f = {"height_m": 12.0, "radius_m": 25.0, "wall_m": float(rng.choice([0.0, 8.0]))}
+            f = {"height_m": 12.0, "radius_m": 25.0, "wall_width_m": float(rng.choice([0.0, 8.0]))}
         else:
             f = {"radius_m": 30.0, "depth_m": 8.0, "rim_height_m": 3.0, "rim_width_m": 12.0}
         features.append({"kind": str(kind), "lat_deg": lat, "lon_deg": lon, **f})

@@ -239,3 +239,118 @@ def test_every_documented_example_parses() -> None:
             parse_size(args.size)
             for v in args.views.split("/"):
                 view_frame(v)
+
+
+# ---- pictures of a finished bake, from its files ------------------------------------------------
+
+
+@pytest.fixture(scope="module")
+def bake_dir(baked: globemill.BakeResult, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    from globemill.output import write_outputs
+
+    out = tmp_path_factory.mktemp("bake")
+    write_outputs(baked, out)
+    return out
+
+
+def test_a_finished_bake_is_drawn_like_the_bake_in_memory(
+    baked: globemill.BakeResult, bake_dir: Path, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from globemill import preview
+
+    size = (600, 300)
+    write_preview(baked, tmp_path / "mem.png", color="altitude", size=size, views=("front",))
+    # drawing the files must not bake: any call into the core's bake would fail here
+    monkeypatch.setattr(globemill._core, "bake", lambda *a, **k: pytest.fail("baked again"))
+    stats = preview.write_preview(
+        bake_dir, tmp_path / "files.png", color="altitude", size=size, views=("front",)
+    )
+    assert stats.triangles == baked.report["lods"][0]["triangles"]
+    a = image_checks(tmp_path / "mem.png", size)
+    b = image_checks(tmp_path / "files.png", size)
+    # float32 positions in the file move a few edge pixels at most
+    assert np.mean(np.abs(a - b).max(axis=2) > 0.05) < 0.01
+
+
+def test_altitude_and_slope_colours_follow_the_ground(bake_dir: Path, tmp_path: Path) -> None:
+    from matplotlib import colormaps
+
+    from globemill.preview import read_ground
+
+    g = read_ground(bake_dir)
+    # attributes read back are the bake's own (the report's ranges hold them)
+    assert len(g.altitude_m) == len(g.positions) and g.slope_deg.min() >= 0.0
+    size = (400, 400)
+    # looking straight down on the highest vertex: the middle pixel has cividis' top colour
+    top = g.positions[int(np.argmax(g.altitude_m))]
+    lat = np.degrees(np.arcsin(top[1] / np.linalg.norm(top)))
+    lon = np.degrees(np.arctan2(top[0], top[2]))
+    view = f"{lat:.4f},{lon:.4f}"
+    out = tmp_path / "alt.png"
+    write_preview(bake_dir, out, color="altitude", size=size, views=(view,), grid_deg=0,
+                       names=False)  # fmt: skip
+    img = imread(out)[:, :, :3]
+    # the globe is the largest lit blob (not the title, the colour bar or the view's label)
+    from scipy import ndimage
+
+    blobs, n = ndimage.label(np.abs(img - BACKGROUND).max(axis=2) > 0.1)
+    biggest = 1 + int(np.argmax(ndimage.sum(np.ones_like(blobs), blobs, range(1, n + 1))))
+    rows, cols = np.nonzero(blobs == biggest)
+    mid = (round(rows.mean()), round(cols.mean()))
+    got = img[mid[0] - 1 : mid[0] + 2, mid[1] - 1 : mid[1] + 2].reshape(-1, 3).mean(axis=0)
+    # cividis runs from blue (low) to yellow (high): red above blue at the top, below it on the
+    # low ground that covers most of the world
+    top_rgb, low_rgb = colormaps["cividis"](1.0), colormaps["cividis"](0.3)
+    assert top_rgb[0] > top_rgb[2] and low_rgb[0] < low_rgb[2]
+    assert got[0] - got[2] > 0.05
+    ground = img[blobs == biggest]
+    assert np.median(ground[:, 0] - ground[:, 2]) < 0
+
+
+def test_grid_and_names_are_drawn(bake_dir: Path, tmp_path: Path) -> None:
+    from globemill.preview import GRID_RGB, linear_to_srgb
+
+    size = (500, 500)
+    plain, grid = tmp_path / "plain.png", tmp_path / "grid.png"
+    kw = {"color": "slope", "size": size, "views": ("front",), "names": False}
+    write_preview(bake_dir, plain, grid_deg=0, **kw)
+    write_preview(bake_dir, grid, grid_deg=30, **kw)
+    a, b = imread(plain)[:, :, :3], imread(grid)[:, :, :3]
+    changed = np.abs(a - b).max(axis=2) > 0.05
+    # the equator of the front view (latitude 0) is a horizontal line through the view's middle
+    rows = np.nonzero(changed.any(axis=1))[0]
+    assert changed.mean() > 0.005
+    light = linear_to_srgb(GRID_RGB)
+    assert (np.abs(b[changed] - light).max(axis=1) < 0.45).mean() > 0.5
+    # 7 lines of latitude cross the middle column (-90..90 every 30°, poles excluded: 5) and
+    # meridians cross the middle row: both directions show up
+    assert len(rows) > 50
+    named = tmp_path / "named.png"
+    write_preview(bake_dir, named, grid_deg=0, color="slope", size=size, views=("front",))
+    assert np.abs(imread(named)[:, :, :3] - a).max() > 0.3  # text drawn
+
+
+def test_jpeg_output_and_bad_suffix(bake_dir: Path, tmp_path: Path) -> None:
+    from PIL import Image
+
+    out = tmp_path / "p.jpg"
+    write_preview(bake_dir, out, size=(320, 160), views=("front",))
+    with Image.open(out) as im:
+        assert im.format == "JPEG" and im.size == (320, 160)
+    with pytest.raises(ValueError, match="gif"):
+        write_preview(bake_dir, tmp_path / "p.gif", size=(320, 160))
+    with pytest.raises(ValueError, match="color"):
+        write_preview(bake_dir, tmp_path / "p.png", color="error")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["p.jpg"]
+
+
+def test_preview_command_draws_a_bake_folder(bake_dir: Path, tmp_path: Path) -> None:
+    out = tmp_path / "b.png"
+    cmd = [sys.executable, "-m", "globemill", "preview", str(bake_dir), "-o", str(out)]
+    res = subprocess.run(
+        [*cmd, "--color", "chunk", "--size", "400x200"], capture_output=True, text=True, timeout=600
+    )
+    assert res.returncode == 0, res.stderr
+    image_checks(out, (400, 200))
+    res = subprocess.run([*cmd, "--color", "level"], capture_output=True, text=True, timeout=600)
+    assert res.returncode == 2 and "level" in res.stderr

@@ -233,7 +233,7 @@ def test_mesa_top_wall_and_outside(wall: float) -> None:
         "lon_deg": 25,
         "height_m": height,
         "radius_m": a,
-        "wall_m": wall,
+        "wall_width_m": wall,
     }
     terrain = single(mesa)
     e, n = tangent_frame(c)
@@ -258,9 +258,9 @@ def test_block_along_its_axis_and_round_corner(heading: float) -> None:
         "height_m": height,
         "half_x_m": hx,
         "half_y_m": hy,
-        "corner_m": r,
-        "wall_m": w,
-        "heading_deg": heading,
+        "corner_radius_m": r,
+        "wall_width_m": w,
+        "bearing_deg": 90.0 - heading,
     }
     terrain = single(block)
     e, n = tangent_frame(c)
@@ -299,9 +299,9 @@ def test_block_with_vertical_wall_is_a_step() -> None:
         "height_m": 9.0,
         "half_x_m": 50.0,
         "half_y_m": 30.0,
-        "corner_m": 0.0,
-        "wall_m": 0.0,
-        "heading_deg": 0.0,
+        "corner_radius_m": 0.0,
+        "wall_width_m": 0.0,
+        "bearing_deg": 90.0,
     }
     terrain = single(block)
     e, _ = tangent_frame(c)
@@ -407,7 +407,7 @@ def test_blend_modes_inside_a_flat_footprint() -> None:
         "lon_deg": 0,
         "height_m": 20.0,
         "radius_m": 300.0,
-        "wall_m": 0.0,
+        "wall_width_m": 0.0,
     }
     c = direction(0, 0)
     e, _ = tangent_frame(c)
@@ -444,7 +444,7 @@ def mixed_world() -> dict[str, Any]:
                 "lon_deg": 25,
                 "height_m": 20.0,
                 "radius_m": 100.0,
-                "wall_m": 40.0,
+                "wall_width_m": 40.0,
             },
             {
                 "kind": "block",
@@ -455,9 +455,9 @@ def mixed_world() -> dict[str, Any]:
                 "height_m": 15.0,
                 "half_x_m": 120.0,
                 "half_y_m": 70.0,
-                "corner_m": 20.0,
-                "wall_m": 30.0,
-                "heading_deg": 30.0,
+                "corner_radius_m": 20.0,
+                "wall_width_m": 30.0,
+                "bearing_deg": 60.0,
             },
             {
                 "kind": "crater",
@@ -499,7 +499,7 @@ def mixed_world() -> dict[str, Any]:
                 "lon_deg": -20,
                 "height_m": 8.0,
                 "radius_m": 60.0,
-                "wall_m": 0.0,
+                "wall_width_m": 0.0,
             },
         ],
     }
@@ -587,9 +587,9 @@ def test_feature_rows_follow_the_core_layout() -> None:
             "height_m": 1.0,
             "half_x_m": 2.0,
             "half_y_m": 3.0,
-            "corner_m": 0.5,
-            "wall_m": 4.0,
-            "heading_deg": 90.0,
+            "corner_radius_m": 0.5,
+            "wall_width_m": 4.0,
+            "bearing_deg": 0.0,
         }
     )
     np.testing.assert_allclose(row[:3], [2, 5, 3.0])

@@ -115,15 +115,15 @@ def test_a_gaussian_far_narrower_than_the_base_triangles_is_found() -> None:
 
 
 # measured on this machine: 3.8x fewer triangles for the vertical wall, 1.6x for the 0.5 m wall
-@pytest.mark.parametrize(("wall_m", "min_ratio"), [(0.0, 2.5), (0.5, 1.3)])
-def test_normal_offset_beats_radial_on_a_mesa_wall(wall_m: float, min_ratio: float) -> None:
+@pytest.mark.parametrize(("wall_width_m", "min_ratio"), [(0.0, 2.5), (0.5, 1.3)])
+def test_normal_offset_beats_radial_on_a_mesa_wall(wall_width_m: float, min_ratio: float) -> None:
     mesa = {
         "kind": "mesa",
         "lat_deg": 5.0,
         "lon_deg": 5.0,
         "height_m": 25.0,
         "radius_m": 60.0,
-        "wall_m": wall_m,
+        "wall_width_m": wall_width_m,
         "blend": "max",
     }
     spec = _world([mesa], tolerance_m=0.5)

@@ -34,7 +34,7 @@ THIMBLE = {
             "lon_deg": 40.0,
             "height_m": 8.0,
             "radius_m": 25.0,
-            "wall_m": 0.0,
+            "wall_width_m": 0.0,
         },
         {
             "kind": "crater",
@@ -63,9 +63,9 @@ THIMBLE = {
             "height_m": 5.0,
             "half_x_m": 12.0,
             "half_y_m": 6.0,
-            "heading_deg": 30.0,
-            "corner_m": 2.0,
-            "wall_m": 1.0,
+            "bearing_deg": 60.0,
+            "corner_radius_m": 2.0,
+            "wall_width_m": 1.0,
         },
     ],
 }

@@ -41,7 +41,7 @@ FEATURES: dict[str, dict[str, Any]] = {
         "lon_deg": 90,
         "height_m": 20,
         "radius_m": 50,
-        "wall_m": 0,
+        "wall_width_m": 0,
     },
     "block": {
         "kind": "block",
@@ -52,9 +52,9 @@ FEATURES: dict[str, dict[str, Any]] = {
         "height_m": 8,
         "half_x_m": 30,
         "half_y_m": 20,
-        "heading_deg": 90,
-        "corner_m": 4,
-        "wall_m": 2,
+        "bearing_deg": 0,
+        "corner_radius_m": 4,
+        "wall_width_m": 2,
     },
     "crater": {
         "kind": "crater",
@@ -124,7 +124,7 @@ def test_demo_world_uses_every_kind_and_blend() -> None:
     assert len(spec.features) >= 30
     assert {f.kind for f in spec.features} == set(KIND_CODES)
     assert {f.blend for f in spec.features} >= {"max", "min", "set", "smooth_max", "smooth_min"}
-    assert any(f.kind == "mesa" and f.wall_m == 0 for f in spec.features)
+    assert any(f.kind == "mesa" and f.wall_width_m == 0 for f in spec.features)
     assert any(f.kind == "hill" and f.amplitude_m < 0 for f in spec.features)
     assert {f.profile for f in spec.features if f.kind == "ridge"} == {"round", "sharp"}
     assert 4 <= len(spec.layers) <= 6
@@ -305,8 +305,11 @@ def test_message_format_matches_the_interface() -> None:
             ["features[0].blend: unknown value", "add, max, min, set, smooth_max, smooth_min"],
         ),
         (
-            world([feature("block", corner_m=25)]),  # half sizes 30 and 20
-            ["features[0].corner_m: must be <= min(half_x_m, half_y_m) = 20", "(allowed: 0 to 20)"],
+            world([feature("block", corner_radius_m=25)]),  # half sizes 30 and 20
+            [
+                "features[0].corner_radius_m: must be <= min(half_x_m, half_y_m) = 20",
+                "(allowed: 0 to 20)",
+            ],
         ),
         (
             world([feature("noise", octaves=4.0)]),
@@ -404,8 +407,8 @@ def test_block_footprint_limit_at_sixty_degrees(corner: float, wall: float) -> N
             lon_deg=20,
             half_x_m=half * scale,
             half_y_m=half * scale,
-            corner_m=corner,
-            wall_m=wall,
+            corner_radius_m=corner,
+            wall_width_m=wall,
             blend="add",
         )
         del block["blend_width_m"]
@@ -689,3 +692,96 @@ def test_models_follow_the_rule_table() -> None:
                 assert node.get(word) == rule.get(bound), (kind["kind"], rule["key"], bound)
             assert ("default" in node) == ("default" in rule)
             assert node.get("default") == rule.get("default")
+
+
+# ---- authoring help ---------------------------------------------------------------------------
+
+
+def test_problems_name_the_feature_and_layer() -> None:
+    doc = world(
+        [feature("hill", name="Gorse Knoll", sigma_m=-1), feature("hill", sigma_m=-2)],
+        layers=[{"name": "moss", "color": [0, 0, 2]}],
+    )
+    lines = problems_of(doc).splitlines()
+    assert any(
+        ln.endswith(
+            "features[0].sigma_m: must be > 0 (allowed: > 0), got -1 (feature 'Gorse Knoll')"
+        )
+        for ln in lines
+    )
+    # an unnamed feature is named by its index alone
+    assert any(
+        ln.endswith("features[1].sigma_m: must be > 0 (allowed: > 0), got -2") for ln in lines
+    )
+    assert any("layers[0].color[2]" in ln and ln.endswith("(layer 'moss')") for ln in lines)
+
+
+@pytest.mark.parametrize(
+    ("doc", "suggestion"),
+    [
+        (world([feature("hill", sigm_m=3)]), "did you mean 'sigma_m'?"),
+        (world(tolerence_m=0.5), "did you mean 'tolerance_m'?"),
+        (world(layers=[{"name": "x", "colour": [0, 0, 0]}]), "did you mean 'color'?"),
+        (world([{"kind": "crator"}]), "did you mean 'crater'?"),
+        (world([feature("hill", blend="smoth_max")]), "did you mean 'smooth_max'?"),
+    ],
+)
+def test_misspelled_keys_and_values_get_a_suggestion(doc: dict[str, Any], suggestion: str) -> None:
+    # the suggestion is difflib's closest match (Python standard library, ratio >= 0.6)
+    assert suggestion in problems_of(doc)
+
+
+def test_far_off_keys_get_no_suggestion() -> None:
+    assert "did you mean" not in problems_of(world([feature("hill", zzzz=3)]))
+
+
+# ---- renamed keys: read for one release, with a message ----------------------------------------
+
+OLD_BLOCK = {
+    "kind": "block",
+    "name": "Pen",
+    "lat_deg": 10.0,
+    "lon_deg": 20.0,
+    "height_m": 5.0,
+    "half_x_m": 30.0,
+    "half_y_m": 20.0,
+    "heading_deg": 30.0,
+    "corner_m": 4.0,
+    "wall_m": 2.0,
+}
+
+
+def test_old_keys_are_read_with_a_deprecation_message() -> None:
+    from globemill.spec import SpecDeprecationWarning
+
+    new = dict(OLD_BLOCK)
+    for old, key in (("corner_m", "corner_radius_m"), ("wall_m", "wall_width_m")):
+        new[key] = new.pop(old)
+    # heading 30° counter-clockwise from east is bearing 60° clockwise from north
+    new["bearing_deg"] = 60.0
+    del new["heading_deg"]
+    with pytest.warns(SpecDeprecationWarning) as record:
+        old_spec = parse_spec(world([OLD_BLOCK]), source="old.toml")
+    text = " ".join(str(w.message) for w in record)
+    assert "bearing_deg = 60" in text and "corner_radius_m" in text and "wall_width_m" in text
+    assert "features[0] ('Pen')" in text
+    assert old_spec == parse_spec(world([new]))
+    assert np.array_equal(old_spec.core_features(), parse_spec(world([new])).core_features())
+    mesa = {k: v for k, v in FEATURES["mesa"].items() if k != "wall_width_m"} | {"wall_m": 1.0}
+    with pytest.warns(SpecDeprecationWarning, match="wall_m is deprecated"):
+        parse_spec(world([mesa]))
+
+
+def test_bearing_is_clockwise_from_north() -> None:
+    # bearing 0 points local X north, bearing 90 east (the navigator's convention); the core row
+    # holds the heading counter-clockwise from east: 90° and 0°
+    for bearing, heading in ((0.0, 90.0), (90.0, 0.0), (-90.0, 180.0), (-300.0, 30.0)):
+        row = parse_spec(world([feature("block", bearing_deg=bearing)])).core_features()[0]
+        assert row[14] == math.radians(heading)
+
+
+def test_both_spellings_at_once_is_an_error() -> None:
+    both = dict(OLD_BLOCK) | {"wall_width_m": 2.0}
+    with pytest.warns(Warning):  # the other two old keys
+        message = problems_of(world([both]))
+    assert "wall_m: unknown key" in message and "did you mean 'wall_width_m'?" in message

@@ -22,14 +22,18 @@ from .field import Field
 from .spec import WorldSpec
 
 OFFSET_MODES = {"radial": 0, "normal": 1, "exact": 2}
+SEAM_MODES = ("stitch", "skirt")
 # the core's constants (csrc/bake.hpp), read from it
 MEASURE_ORDER: int = _core.MEASURE_ORDER
 MIN_ANGLE_DEG: float = _core.MIN_ANGLE_DEG
 NO_LAYER: int = _core.NO_LAYER
 
 Progress = Callable[[str, int, int], None]
-"""progress(stage, done, total): stage is "refine" (triangles so far of about total), "levels",
-"chunks" (levels done) or "colliders"; called on the calling thread."""
+"""progress(stage, done, total), called on the calling thread, stages in this order: "refine"
+(leaf triangles so far, of about total), "verify" (triangles measured), "levels" and "seams"
+(levels cut, levels stitched), "chunks" (levels whose chunk buffers are made), "colliders" (0 of 1,
+then 1 of 1); `output.write_outputs` adds "write" (chunk levels prepared, then the files).
+`globemill.progress.BakeProgress` turns these into one fraction of the whole."""
 U32 = npt.NDArray[np.uint32]
 F64 = npt.NDArray[np.float64]
 
@@ -157,6 +161,7 @@ def settings(
     levels: int | None = None,
     ratio: float | None = None,
     chunk_level: int | None = None,
+    seams: str | None = None,
     collision: bool = True,
     threads: int = 0,
     accept_over_tolerance: bool = False,
@@ -166,6 +171,11 @@ def settings(
     mode = spec.offset if offset is None else offset
     if mode not in OFFSET_MODES:
         raise ValueError(f"offset: must be one of {', '.join(OFFSET_MODES)}, got {mode!r}")
+    seam = spec.lod.seams if seams is None else seams
+    if seam not in SEAM_MODES:
+        raise ValueError(f"seams: must be one of {', '.join(SEAM_MODES)}, got {seam!r}")
+    if not isinstance(collision, bool):
+        raise ValueError(f"collision: must be true or false, got {collision!r}")
     tol = spec.tolerance_m if tolerance_m is None else tolerance_m
     rat = spec.lod.ratio if ratio is None else ratio
     for name, value in (("tolerance_m", tol), ("ratio", rat)):
@@ -187,7 +197,7 @@ def settings(
         "ratio": float(rat),
         **values,
         "max_triangles": int(spec.max_triangles),
-        "stitch": spec.lod.seams == "stitch",
+        "stitch": seam == "stitch",
         "skirt_depth_m": float(spec.lod.skirt_depth_m),
         "collision": bool(collision),
         "collision_tolerance_m": float(col.tolerance_m or 0.0),
@@ -196,6 +206,22 @@ def settings(
         "accept_over_tolerance": bool(accept_over_tolerance),
         "layers": layer_rows(spec.layers),
     }
+
+
+def feature_table(spec: WorldSpec) -> list[dict[str, Any]]:
+    """Each feature's index, name, kind and centre (lat_deg, lon_deg; a ridge: the midpoint of
+    its arc; noise: none), so a bake's files can be labelled without the spec."""
+    rows = []
+    for i, f in enumerate(spec.features):
+        dirs = f.directions()
+        row: dict[str, Any] = {"index": i, "name": f.name, "kind": f.kind}
+        if dirs:
+            u = np.sum(dirs, axis=0)
+            u /= np.linalg.norm(u)
+            row["lat_deg"] = float(np.degrees(np.arcsin(np.clip(u[1], -1.0, 1.0))))
+            row["lon_deg"] = float(np.degrees(np.arctan2(u[0], u[2])))
+        rows.append(row)
+    return rows
 
 
 def _chunk(level: int, c: int, ids: U32, d: dict[str, Any]) -> ChunkMesh:
@@ -314,13 +340,14 @@ def _wrap(
         "tolerance_m": levels[0].tolerance_m,
         "offset": next(k for k, v in OFFSET_MODES.items() if v == s["offset"]),
         "chunk_level": s["chunk_level"],
-        "seams": spec.lod.seams,
+        "seams": "stitch" if s["stitch"] else "skirt",
         "lods": [lr.report for lr in levels],
         "collision": col_report,
         "refine": stats,
         "stages_seconds": seconds,
         "evaluations": evaluations,
         "seconds_total": seconds["total"],
+        "features": feature_table(spec),
     }
     return BakeResult(
         spec=spec,
@@ -348,6 +375,7 @@ def bake(
     levels: int | None = None,
     ratio: float | None = None,
     chunk_level: int | None = None,
+    seams: str | None = None,
     collision: bool = True,
     threads: int = 0,
     accept_over_tolerance: bool = False,
@@ -355,6 +383,9 @@ def bake(
 ) -> BakeResult:
     """Mesh `spec` to within `tolerance_m` (default: the spec's) of the true surface, with every
     level of detail (tolerance_m * ratio^k), chunk, stitched seam and collider.
+
+    levels, ratio, chunk_level, seams ("stitch" or "skirt") override the spec's `lod` table;
+    collision=False bakes no colliders.
 
     The result is deterministic: the same spec gives the same arrays whatever `threads` is.
     `progress(stage, done, total)` is called as the bake goes (see `Progress`).
@@ -370,15 +401,88 @@ def bake(
         levels=levels,
         ratio=ratio,
         chunk_level=chunk_level,
+        seams=seams,
         collision=collision,
         threads=threads,
         accept_over_tolerance=accept_over_tolerance,
     )
-    with named_features(spec):
-        return _wrap(spec, s, _core.bake(Field(spec)._core, s, progress))
+    with named_features(spec), budget_named(spec, s["tolerance_m"]):
+        return _wrap(spec, s, _core.bake(Field(spec)._core, s, _closing_refine(progress)))
+
+
+def _closing_refine(progress: Progress | None) -> Progress | None:
+    """The core's refine reports count against an estimate; verification starts from every
+    leaf refinement made, so its first report closes refine at that count."""
+    if progress is None:
+        return None
+    refined = [False]
+
+    def relay(stage: str, done: int, total: int) -> None:
+        if stage == "verify" and not refined[0]:
+            refined[0] = True
+            progress("refine", total, total)
+        progress(stage, done, total)
+
+    return relay
 
 
 BakeError = _core.BakeError
+
+# the key that sets each kind's finest length scale (what drives its triangle count up)
+FINEST_KEY = {
+    "hill": "sigma_m",
+    "mesa": "wall_width_m",
+    "block": "wall_width_m",
+    "crater": "rim_width_m",
+    "ridge": "half_width_m",
+    "noise": "frequency_per_m",
+}
+# one feature is named as the cause when it alone needs at least this share of the triangles
+CULPRIT_SHARE = 0.5
+
+
+def budget_culprit(spec: WorldSpec, tolerance_m: float) -> str | None:
+    """Which feature alone needs most of the triangles the core estimates for `spec` at
+    `tolerance_m` (each feature on the bare sphere, the core's estimate_triangles), in words, or
+    None when no single feature needs CULPRIT_SHARE of the whole."""
+    if not spec.features or not tolerance_m > 0:
+        return None
+    whole = int(_core.estimate_triangles(Field(spec)._core, tolerance_m))
+    bare = int(_core.estimate_triangles(Field(spec.model_copy(update={"features": []}))._core,
+                                        tolerance_m))  # fmt: skip
+    best, best_i = 0, -1
+    for i, f in enumerate(spec.features):
+        alone = spec.model_copy(update={"features": [f]})
+        n = int(_core.estimate_triangles(Field(alone)._core, tolerance_m)) - bare
+        if n > best:
+            best, best_i = n, i
+    if best_i < 0 or best < CULPRIT_SHARE * whole:
+        return None
+    f = spec.features[best_i]
+    name = f" ({f.name!r})" if getattr(f, "name", None) else ""
+    key = FINEST_KEY.get(f.kind)
+    what = f"features[{best_i}]{name}, a {f.kind}, alone needs about {best:,} of them"
+    if key is not None:
+        what += f"; its finest scale is set by {key} = {getattr(f, key):g}"
+    return what
+
+
+@contextlib.contextmanager
+def budget_named(spec: WorldSpec, tolerance_m: float) -> Iterator[None]:
+    """An over-budget error names the feature that causes it, when one does."""
+    try:
+        yield
+    except ValueError as exc:
+        msg = str(exc)
+        if "max_triangles" not in msg:
+            raise
+        try:
+            culprit = budget_culprit(spec, tolerance_m)
+        except Exception:  # naming the cause must never hide the error itself
+            culprit = None
+        if culprit is None:
+            raise
+        raise type(exc)(f"{msg} ({culprit})") from None
 
 
 @contextlib.contextmanager

@@ -11,8 +11,9 @@ from __future__ import annotations
 import argparse
 import json
 import sys
+import warnings
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, NoReturn
 
 from . import __version__
 
@@ -29,24 +30,58 @@ FARM_FAILURE_CODES = (
     ("input", EXIT_BAD_INPUT),
 )
 
-EPILOG = """examples:
-  globemill bake examples/pebblemoor.toml -o out/
-  globemill bake examples/pebblemoor.toml -o out/ --tolerance-m 0.1 --threads 2
-  globemill check examples/pebblemoor.toml out/
-  globemill check examples/pebblemoor.toml out/ --json > check.json
-  globemill bake examples/pebblemoor.toml -o out/ --format obj --format ply --level 1
-  globemill export examples/pebblemoor.toml -o pebblemoor.lod2.ply --level 2
-  globemill preview examples/pebblemoor.toml -o pebblemoor.png --color error --size 1600x640
-  globemill preview examples/pebblemoor.toml -o top.png --views north/south --color chunk
-  globemill schema > globemill.schema.json
-
-exit codes:
+EXIT_CODES = """exit codes:
   0 success, 1 a check found a guarantee broken, 2 bad input (spec, options, files),
   3 the bake could not be done (e.g. the triangle budget), 4 a file could not be written or
   read (named, with the cause: disk full, read-only, permission), 5 refused before the work
   (the estimated memory exceeds --max-memory), 130 interrupted, 143 terminated (SIGTERM);
   no partial output in any case
 """
+
+# each command's own examples (its --help), every one a valid command line
+EXAMPLES = {
+    "bake": [
+        "globemill bake examples/pebblemoor.toml -o out/",
+        "globemill bake examples/pebblemoor.toml -o out/ --tolerance-m 0.1 --threads 2",
+        "globemill bake examples/pebblemoor.toml -o out/ --levels 3 --ratio 3 --no-collision",
+        "globemill bake examples/pebblemoor.toml -o out/ --level-files --uv-attributes",
+        "globemill bake examples/pebblemoor.toml -o out/ --format obj --format ply --level 1",
+        "globemill bake examples/pebblemoor.toml -o out/ --watch",
+    ],
+    "check": [
+        "globemill check examples/pebblemoor.toml out/",
+        "globemill check examples/pebblemoor.toml out/ --json > check.json",
+    ],
+    "export": ["globemill export examples/pebblemoor.toml -o pebblemoor.lod2.ply --level 2"],
+    "preview": [
+        "globemill preview examples/pebblemoor.toml -o pebblemoor.png --color error "
+        "--size 1600x640",
+        "globemill preview examples/pebblemoor.toml -o top.jpg --views north/south --color chunk",
+        "globemill preview out/ -o slope.png --color slope --grid 15",
+    ],
+    "farm": [
+        "globemill farm worlds/ -o out/",
+        "globemill farm 'worlds/**/*.toml' -o out/ --jobs 4",
+        "globemill farm worlds/ -o /shared/out --scheduler tcp://10.0.0.5:8786",
+    ],
+    "spec": [
+        "globemill spec validate examples/pebblemoor.toml",
+        "globemill spec convert examples/pebblemoor.toml -o pebblemoor.json",
+        "globemill spec format examples/pebblemoor.toml --check",
+    ],
+    "schema": ["globemill schema > globemill.schema.json"],
+}
+
+
+def _examples(command: str, codes: bool = True) -> str:
+    text = "examples:\n" + "".join(f"  {line}\n" for line in EXAMPLES[command])
+    return text + ("\n" + EXIT_CODES if codes else "")
+
+
+# the top-level help: one example of each command (each command's --help has its own)
+EPILOG = (
+    "examples:\n" + "".join(f"  {lines[0]}\n" for lines in EXAMPLES.values()) + "\n" + EXIT_CODES
+)
 
 
 def _printable(text: str, stream: object) -> str:
@@ -89,7 +124,10 @@ def _max_memory(text: str) -> int:
 
 
 def _bake_spec(
-    args: argparse.Namespace, levels_needed: int | None = None, outdir: Path | None = None
+    args: argparse.Namespace,
+    levels_needed: int | None = None,
+    outdir: Path | None = None,
+    keep_bar: bool = False,
 ) -> BakeResult:
     """Load the spec, estimate the work (printed when large, refused over --max-memory), check
     that `outdir` can take the files, then bake with the shared options, a progress bar on a
@@ -100,10 +138,16 @@ def _bake_spec(
     from .spec import load_spec
 
     spec = load_spec(args.spec)
-    if levels_needed is not None and not 0 <= levels_needed < spec.lod.levels:
+    if not args.quiet:
+        from .spec_warnings import warnings_for
+
+        for w in warnings_for(spec):
+            _note(f"warning: {args.spec}: {w}")
+    nlev = spec.lod.levels if args.levels is None else args.levels
+    if levels_needed is not None and nlev > 0 and not 0 <= levels_needed < nlev:
+        where = "lod.levels of the spec" if args.levels is None else "--levels"
         raise ValueError(
-            f"level: must be an integer in 0..{spec.lod.levels - 1} (lod.levels of the spec), "
-            f"got {levels_needed}"
+            f"level: must be an integer in 0..{nlev - 1} ({where}), got {levels_needed}"
         )
     est = None
     tol = spec.tolerance_m if args.tolerance_m is None else args.tolerance_m
@@ -118,30 +162,34 @@ def _bake_spec(
     show = not args.quiet and sys.stderr.isatty()
     bar = None
     if show:
-        from tqdm import tqdm
+        from .progress import ProgressBar
 
-        bar = tqdm(total=None, unit="", desc=f"baking {spec.name}", leave=False)
-
-    def progress(stage: str, done: int, total: int) -> None:
-        # stages: refine (triangles of about `total`), levels, chunks (levels done), colliders
-        if bar is not None:
-            bar.set_description(f"baking {spec.name}: {stage}")
-            bar.total = total
-            bar.n = done
-            bar.refresh()
-
+        bar = ProgressBar(spec.name, collision=not args.no_collision)
+    args.progress_bar = bar  # the writer reports its stage to the same bar
+    progress = bar
+    ok = False
     try:
-        return bake(
-            spec,
-            tolerance_m=args.tolerance_m,
-            offset=args.offset,
-            threads=args.threads,
-            accept_over_tolerance=args.accept_over_tolerance,
-            progress=progress,
-        )
+        result = bake(spec, **bake_options(args), progress=progress)
+        ok = True
+        return result
     finally:
-        if bar is not None:
+        if bar is not None and not (ok and keep_bar):
             bar.close()
+
+
+def bake_options(args: argparse.Namespace) -> dict[str, Any]:
+    """The keyword arguments of `bake` (and of `EditSession`) the shared bake flags give."""
+    return {
+        "tolerance_m": args.tolerance_m,
+        "offset": args.offset,
+        "levels": args.levels,
+        "ratio": args.ratio,
+        "chunk_level": args.chunk_level,
+        "seams": args.seams,
+        "collision": not args.no_collision,
+        "threads": args.threads,
+        "accept_over_tolerance": args.accept_over_tolerance,
+    }
 
 
 def _cmd_bake(args: argparse.Namespace) -> int:
@@ -149,10 +197,24 @@ def _cmd_bake(args: argparse.Namespace) -> int:
 
     formats = args.format or []
     options = _glb_options(args)
-    result = _bake_spec(args, args.level if formats else None, Path(args.output))
-    paths = write_outputs(
-        result, Path(args.output), formats=formats, level=args.level, options=options
-    )
+    if args.watch:
+        from .watch import watch
+
+        return watch(args, options, note=_note, out=_out)
+    result = _bake_spec(args, args.level if formats else None, Path(args.output), keep_bar=True)
+    bar = args.progress_bar
+    try:
+        paths = write_outputs(
+            result,
+            Path(args.output),
+            formats=formats,
+            level=args.level,
+            options=options,
+            progress=bar,
+        )
+    finally:
+        if bar is not None:
+            bar.close()
     if not args.quiet:
         _out(summary_table(result.report))
         for p in paths.values():
@@ -183,20 +245,41 @@ def _cmd_export(args: argparse.Namespace) -> int:
 
 
 def _cmd_preview(args: argparse.Namespace) -> int:
-    from .preview import parse_size, view_frame, write_preview
+    from .preview import (
+        GROUND_COLOR_MODES,
+        check_views,
+        parse_size,
+        picture_format,
+        write_preview,
+    )
 
     size = parse_size(args.size)
     views = [v.strip() for v in args.views.split("/")]
-    for v in views:
-        view_frame(v)
-    result = _bake_spec(args, args.level, Path(args.output).parent)
-    stats = write_preview(
-        result, Path(args.output), color=args.color, level=args.level, size=size, views=views
-    )
+    check_views(views, args.grid)
+    picture_format(args.output)
+    src = Path(args.spec)
+    picture = {"color": args.color, "level": args.level, "size": size, "views": views}
+    picture.update(grid_deg=args.grid, names=not args.no_names)
+    if src.is_dir() or src.name.endswith(".report.json"):
+        if args.color not in GROUND_COLOR_MODES:
+            raise ValueError(
+                f"color: a finished bake is drawn by {', '.join(GROUND_COLOR_MODES)} "
+                f"(error and level need the spec), got {args.color!r}"
+            )
+        probe = Path(args.output).parent
+        from ._atomic import probe_folder
+
+        probe_folder(probe)
+        stats = write_preview(src, Path(args.output), **picture)
+        what = f"{src}: {args.color} picture of the finished bake"
+    else:
+        result = _bake_spec(args, args.level, Path(args.output).parent)
+        stats = write_preview(result, Path(args.output), **picture)
+        what = f"{result.spec.name}: {args.color} picture"
     if not args.quiet:
         print(
-            f"{result.spec.name}: {args.color} picture of {stats.triangles:,} triangles, "
-            f"{size[0]}x{size[1]} px, rendered in {stats.seconds:.2f} s\n  wrote {stats.path}"
+            f"{what}, {stats.triangles:,} triangles, {size[0]}x{size[1]} px, rendered in "
+            f"{stats.seconds:.2f} s\n  wrote {stats.path}"
         )
     return EXIT_OK
 
@@ -211,6 +294,31 @@ def _add_bake_options(p: argparse.ArgumentParser) -> None:
         help="how the mesher measures offset (default: the spec's)",
     )
     p.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
+    g = p.add_argument_group("levels, chunks and colliders (default: the spec's lod table)")
+    g.add_argument("--levels", type=int, default=None, metavar="N", help="levels of detail")
+    g.add_argument(
+        "--ratio",
+        type=float,
+        default=None,
+        metavar="R",
+        help="tolerance of level k = tolerance_m * R^k",
+    )
+    g.add_argument(
+        "--chunk-level",
+        type=int,
+        default=None,
+        metavar="C",
+        help="20 * 4^C chunks",
+    )
+    g.add_argument(
+        "--seams",
+        choices=["stitch", "skirt"],
+        default=None,
+        help="stitched border variants or skirts where chunks of different levels meet",
+    )
+    g.add_argument(
+        "--no-collision", action="store_true", help="bake no colliders (no .collision.glb)"
+    )
     p.add_argument(
         "--accept-over-tolerance",
         action="store_true",
@@ -384,23 +492,33 @@ def _cmd_farm(args: argparse.Namespace) -> int:
     return next((code for kind, code in FARM_FAILURE_CODES if kind in kinds), EXIT_BAKE_FAILED)
 
 
+class _Parser(argparse.ArgumentParser):
+    """Bad options give one line, exit 2 (argparse prints the usage too, a screenful)."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="globemill",
         description="Bake the ground of small round game worlds into triangle meshes.",
-        epilog=EPILOG,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     p.add_argument("--version", action="version", version=f"globemill {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
-    b = sub.add_parser(
-        "bake",
-        help="mesh a world spec and write .glb + report",
-        epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
-    )
+    def command(name: str, help: str, codes: bool = True, **kw: Any) -> argparse.ArgumentParser:
+        return sub.add_parser(
+            name,
+            help=help,
+            epilog=_examples(name, codes),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+            **kw,
+        )
+
+    b = command("bake", "mesh a world spec and write .glb + report")
     b.add_argument("spec", help="world spec (.toml or .json)")
     b.add_argument("-o", "--output", required=True, help="output folder")
     _add_bake_options(b)
@@ -412,23 +530,40 @@ def build_parser() -> argparse.ArgumentParser:
     )
     b.add_argument("--level", type=int, default=0, help="level for --format (default 0, finest)")
     _add_layout_options(b)
+    w = b.add_argument_group("watching (docs/editing.md)")
+    w.add_argument(
+        "--watch",
+        action="store_true",
+        help="stay running: re-bake through an edit session on every save of SPEC and "
+        "refresh OUTDIR/<name>.preview.png (Ctrl-C stops)",
+    )
+    w.add_argument(
+        "--interval",
+        type=_seconds,
+        default=0.5,
+        metavar="S",
+        help="with --watch: seconds between looks at SPEC (default 0.5)",
+    )
+    w.add_argument(
+        "--rounds",
+        type=_count,
+        default=None,
+        metavar="N",
+        help="with --watch: stop after N saves have been handled (default: until Ctrl-C)",
+    )
     b.set_defaults(func=_cmd_bake)
 
-    c = sub.add_parser(
-        "check",
-        help="read a bake back and measure every guarantee (exit 1 if one fails)",
-        epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
-    )
+    c = command("check", "read a bake back and measure every guarantee (exit 1 if one fails)")
     c.add_argument("spec", help="the world spec the bake was made from (.toml or .json)")
     c.add_argument("outdir", help="folder holding <name>.glb, .collision.glb and .report.json")
     c.add_argument("--json", action="store_true", help="print every measurement as JSON")
     c.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
     c.set_defaults(func=_cmd_check)
 
-    f = sub.add_parser(
+    f = command(
         "farm",
-        help="bake many worlds (local processes or a Dask cluster), skipping unchanged ones",
+        "bake many worlds (local processes or a Dask cluster), skipping unchanged ones",
+        codes=False,
         description="Bake every world spec into OUTDIR, with a local process pool or on an "
         "existing Dask cluster. Unchanged worlds (same spec, options and globemill version) are "
         "skipped; a world that fails is reported while the others bake. Writes OUTDIR/farm.json. "
@@ -436,11 +571,6 @@ def build_parser() -> argparse.ArgumentParser:
         "baked or cached; when some failed, the first of: 4 a file could not be written, 3 a "
         "bake failed, 5 a world was refused over --max-memory, 2 a spec is bad; 2 when no spec "
         "is found (nothing written), 130 on Ctrl-C, 143 on SIGTERM.",
-        epilog="examples:\n"
-        "  globemill farm worlds/ -o out/\n"
-        "  globemill farm 'worlds/**/*.toml' -o out/ --jobs 4\n"
-        "  globemill farm worlds/ -o /shared/out --scheduler tcp://10.0.0.5:8786\n",
-        formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     f.add_argument("specs", nargs="+", help="world spec files, folders or glob patterns")
     f.add_argument("-o", "--output", required=True, help="output folder")
@@ -475,12 +605,7 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")
     f.set_defaults(func=_cmd_farm)
 
-    e = sub.add_parser(
-        "export",
-        help="bake a world spec and write one level as OBJ or PLY (for DCC tools)",
-        epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
-    )
+    e = command("export", "bake a world spec and write one level as OBJ or PLY (for DCC tools)")
     e.add_argument("spec", help="world spec (.toml or .json)")
     e.add_argument("-o", "--output", required=True, help="output file, .obj or .ply")
     e.add_argument(
@@ -490,20 +615,24 @@ def build_parser() -> argparse.ArgumentParser:
     _add_bake_options(e)
     e.set_defaults(func=_cmd_export)
 
-    v = sub.add_parser(
+    v = command(
         "preview",
-        help="bake a world spec and render it as a shaded PNG picture",
-        epilog=EPILOG,
-        formatter_class=argparse.RawDescriptionHelpFormatter,
+        "render shaded views of a world spec (baked first) or of a finished bake's files",
     )
-    v.add_argument("spec", help="world spec (.toml or .json)")
-    v.add_argument("-o", "--output", required=True, help="output picture (.png)")
+    v.add_argument(
+        "spec",
+        metavar="SPEC|BAKE",
+        help="world spec (.toml or .json) to bake and draw, or a bake's folder (or its "
+        "<name>.report.json) to draw from its files without baking again",
+    )
+    v.add_argument("-o", "--output", required=True, help="output picture (.png, .jpg or .jpeg)")
     v.add_argument(
         "--color",
-        choices=["layer", "chunk", "level", "error"],
+        choices=["layer", "altitude", "slope", "chunk", "level", "error"],
         default="layer",
-        help="layer: material layers; chunk; level: chunks at mixed levels with stitched seams; "
-        "error: measured deviation heat map (default: layer)",
+        help="layer: material layers; altitude; slope; chunk; level: chunks at mixed levels "
+        "with stitched seams; error: measured deviation heat map (level and error need a "
+        "spec; default: layer)",
     )
     v.add_argument("--level", type=int, default=0, help="which level (default 0, finest)")
     v.add_argument("--size", default="1600x640", help="picture size WIDTHxHEIGHT in pixels")
@@ -513,21 +642,168 @@ def build_parser() -> argparse.ArgumentParser:
         help="views separated by '/': front, back, east, west, north, south or LAT,LON in "
         "degrees (default: front/back/north)",
     )
+    v.add_argument(
+        "--grid",
+        type=float,
+        default=30.0,
+        metavar="DEG",
+        help="latitude/longitude lines every DEG degrees (1..90; 0: none; default 30)",
+    )
+    v.add_argument("--no-names", action="store_true", help="do not write feature names")
     _add_bake_options(v)
     v.set_defaults(func=_cmd_preview)
 
-    s = sub.add_parser("schema", help="print the JSON Schema of world spec files")
+    sp = command("spec", "validate world spec files, convert them (TOML <-> JSON), format them")
+    spsub = sp.add_subparsers(dest="spec_command", metavar="ACTION")
+    spsub.required = True
+    sv = spsub.add_parser(
+        "validate", help="check specs (exit 2 naming every problem); print warnings"
+    )
+    sv.add_argument("specs", nargs="+", metavar="SPEC", help="world spec files")
+    sv.set_defaults(func=_cmd_spec_validate)
+    sc = spsub.add_parser(
+        "convert", help="write a spec in the other format (by -o's suffix), keys in order"
+    )
+    sc.add_argument("spec", help="world spec (.toml or .json)")
+    sc.add_argument("-o", "--output", required=True, help="the new file (.toml or .json)")
+    sc.set_defaults(func=_cmd_spec_convert)
+    sf = spsub.add_parser(
+        "format", help="rewrite specs in place with their keys in the documented order"
+    )
+    sf.add_argument("specs", nargs="+", metavar="SPEC", help="world spec files")
+    sf.add_argument(
+        "--check",
+        action="store_true",
+        help="change nothing; exit 1 when a file is not formatted",
+    )
+    sf.set_defaults(func=_cmd_spec_format)
+
+    s = command("schema", "print the JSON Schema of world spec files", codes=False)
     s.set_defaults(func=_cmd_schema)
+    # the top-level help ends with every command's usage: every option, as the README says
+    import textwrap
+
+    usages = "".join(
+        textwrap.fill(
+            " ".join(parser.format_usage().split()[1:]),
+            width=96,
+            initial_indent="  ",
+            subsequent_indent="      ",
+            break_on_hyphens=False,
+        )
+        + "\n"
+        for parser in (b, c, e, v, f, sv, sc, sf, s)
+    )
+    p.epilog = f"every command and option (COMMAND --help explains each):\n{usages}\n{EPILOG}"
     return p
 
 
+def _seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = float("nan")
+    if not 0.01 <= value <= 3600:
+        raise argparse.ArgumentTypeError(f"must be a number of seconds in 0.01..3600, got {text!r}")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        value = 0
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be an integer >= 1, got {text!r}")
+    return value
+
+
+def _cmd_spec_validate(args: argparse.Namespace) -> int:
+    from .spec import SpecError, load_spec
+    from .spec_warnings import warnings_for
+
+    code = EXIT_OK
+    for path in args.specs:
+        try:
+            spec = load_spec(path)
+        except SpecError as exc:
+            _err(str(exc))
+            code = EXIT_BAD_INPUT
+            continue
+        warn = warnings_for(spec)
+        for w in warn:
+            _note(f"warning: {path}: {w}")
+        _out(
+            f"{path}: valid, world {spec.name!r}, {len(spec.features)} features, "
+            f"{len(spec.layers)} layers" + (f", {len(warn)} warning(s)" if warn else "")
+        )
+    return code
+
+
+def _cmd_spec_convert(args: argparse.Namespace) -> int:
+    from .spec_files import convert
+
+    spec = convert(args.spec, args.output)
+    _out(f"{args.spec}: world {spec.name!r}\n  wrote {args.output}")
+    return EXIT_OK
+
+
+def _cmd_spec_format(args: argparse.Namespace) -> int:
+    from ._atomic import write_files_atomically
+    from .spec import SpecError
+    from .spec_files import formatted
+
+    todo: dict[Path, bytes] = {}
+    code = EXIT_OK
+    for path in args.specs:
+        try:
+            before, after, _ = formatted(path)
+        except SpecError as exc:
+            _err(str(exc))
+            code = EXIT_BAD_INPUT
+            continue
+        if before == after:
+            continue
+        if args.check:
+            _out(f"{path}: would be reformatted")
+            code = max(code, EXIT_CHECK_FAILED)
+        else:
+            todo[Path(path)] = after.encode("utf-8")
+    if code == EXIT_BAD_INPUT:
+        return code  # one bad spec: nothing is rewritten
+    if todo:
+        write_files_atomically(todo)
+        for path in todo:
+            _out(f"  reformatted {path}")
+    return code
+
+
 def main(argv: list[str] | None = None) -> int:
+    from .spec import SpecDeprecationWarning
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    with warnings.catch_warnings():
+        # a renamed spec key: one line, as the other messages
+        warnings.simplefilter("always", SpecDeprecationWarning)
+        shown = warnings.showwarning
+
+        def show(message: Any, category: Any, *rest: Any, **kw: Any) -> None:
+            if issubclass(category, SpecDeprecationWarning):
+                if not getattr(args, "quiet", False):
+                    _note(f"warning: {message}")
+            else:
+                shown(message, category, *rest, **kw)
+
+        warnings.showwarning = show
+        return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
     from ._core import BakeError
     from .farm import FarmTerminated, MemoryLimitError
     from .spec import SpecError
 
-    parser = build_parser()
-    args = parser.parse_args(argv)
     try:
         return int(args.func(args))
     except SpecError as exc:

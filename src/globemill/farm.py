@@ -59,7 +59,7 @@ import threading
 import time
 import uuid
 from collections.abc import Callable, Iterable, Iterator, Sequence
-from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
@@ -570,6 +570,36 @@ def _error_kind(exc: BaseException) -> str:
     return "bake"
 
 
+PROGRESS_SUFFIX = ".progress"  # beside a local job's marker: "<fraction> <stage text>"
+
+
+def _progress_file(path: str) -> Callable[[str, int, int], None]:
+    """A bake progress callback that keeps `path` holding the bake's fraction done and its stage
+    (rewritten when the fraction moves by a percent), for the farm's bar to read."""
+    from .progress import BakeProgress
+
+    bp = BakeProgress()
+    last = [-1.0]
+
+    def progress(stage: str, done: int, total: int) -> None:
+        f = bp.update(stage, done, total)
+        if f - last[0] >= 0.01 or f >= 1.0:
+            last[0] = f
+            with contextlib.suppress(OSError):
+                Path(path).write_text(f"{f:.4f} {bp.text}", encoding="utf-8")
+
+    return progress
+
+
+def read_progress(path: str) -> tuple[float, str] | None:
+    """(fraction, stage text) a running local bake left in `path`, None when there is none yet."""
+    try:
+        head, _, text = Path(path).read_text(encoding="utf-8").partition(" ")
+        return min(max(float(head), 0.0), 1.0), text
+    except (OSError, ValueError):
+        return None
+
+
 def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
     """Bake one world and write its outputs (atomically). Never raises for a failed bake: returns
     ``{"ok": False, "error": ...}`` so the farm reports it and carries on."""
@@ -589,14 +619,16 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         spec = parse_spec(task["spec"], source=task["source"])
         outdir = Path(task["outdir"])
         probe_folder(outdir, int(task.get("need_bytes", 0)))  # a full disk before, not after
+        progress = _progress_file(task["marker"] + PROGRESS_SUFFIX) if task.get("marker") else None
         result = bake(
             spec,
             tolerance_m=task["tolerance_m"],
             offset=task["offset"],
             threads=task["threads"],
+            progress=progress,
         )
         with recorded() as sums:  # sizes and SHA-256 of the bytes as written
-            paths = write_outputs(result, outdir)
+            paths = write_outputs(result, outdir, progress=progress)
         files = {
             kind: {"name": p.name, "bytes": sums[p][0], "sha256": sums[p][1]}
             for kind, p in paths.items()
@@ -723,6 +755,8 @@ class _Job:
 
 
 Finish = Callable[[_Job, dict[str, Any]], None]
+Tick = Callable[[dict[int, tuple[float, str]]], None]
+TICK_SECONDS = 0.5
 
 
 def _mp_context() -> multiprocessing.context.BaseContext:
@@ -749,10 +783,15 @@ def _terminate_pool(pool: ProcessPoolExecutor) -> None:
 
 
 def _local_batch(
-    ctx: multiprocessing.context.BaseContext, batch: list[_Job], workers: int, finish: Finish
+    ctx: multiprocessing.context.BaseContext,
+    batch: list[_Job],
+    workers: int,
+    finish: Finish,
+    tick: Tick | None = None,
 ) -> list[tuple[_Job, bool]]:
     """Run `batch` on a fresh pool; return the jobs lost to a broken pool, each with whether its
-    bake had started."""
+    bake had started. `tick({job index: (fraction, stage)})` is called about twice a second with
+    the bakes running."""
     broken: list[tuple[_Job, bool]] = []
     with tempfile.TemporaryDirectory(prefix="globemill-farm-") as marks:
         pool = ProcessPoolExecutor(
@@ -767,7 +806,7 @@ def _local_batch(
                 job.attempts += 1
                 task = dict(job.task, marker=os.path.join(marks, str(job.index)))
                 futures[pool.submit(_bake_task, task)] = job
-            for fut in as_completed(futures):
+            for fut in _completed(futures, marks, tick):
                 job = futures[fut]
                 try:
                     res = fut.result()
@@ -788,7 +827,24 @@ def _local_batch(
     return broken
 
 
-def _run_local(jobs: list[_Job], workers: int, finish: Finish) -> None:
+def _completed(futures: dict[Any, _Job], marks: str, tick: Tick | None) -> Iterator[Any]:
+    """The futures as they complete (as concurrent.futures.as_completed), calling `tick` with
+    the progress the running bakes leave beside their markers while waiting."""
+    pending = set(futures)
+    while pending:
+        done, pending = wait(pending, timeout=TICK_SECONDS, return_when=FIRST_COMPLETED)
+        yield from done
+        if tick is not None and pending:
+            running = {}
+            for fut in pending:
+                job = futures[fut]
+                got = read_progress(os.path.join(marks, str(job.index)) + PROGRESS_SUFFIX)
+                if got is not None:
+                    running[job.index] = got
+            tick(running)
+
+
+def _run_local(jobs: list[_Job], workers: int, finish: Finish, tick: Tick | None = None) -> None:
     ctx = _mp_context()
     queue = list(jobs)
     alone: list[_Job] = []  # suspects of a broken pool, retried one at a time
@@ -799,7 +855,7 @@ def _run_local(jobs: list[_Job], workers: int, finish: Finish) -> None:
         else:
             batch, queue = queue, []
             n = min(workers, len(batch))
-        broken = _local_batch(ctx, batch, n, finish)
+        broken = _local_batch(ctx, batch, n, finish, tick)
         started = [job for job, s in broken if s]
         queue.extend(job for job, s in broken if not s)
         if not broken:
@@ -1027,13 +1083,22 @@ def _farm_locked(
     if progress:
         from tqdm import tqdm
 
-        bar = tqdm(total=len(inputs), unit="world", desc="farm", leave=False)
+        bar = tqdm(
+            total=len(inputs),
+            unit="world",
+            desc="farm",
+            leave=False,
+            bar_format="{desc}: {n:.1f}/{total} worlds |{bar}| {postfix} [{elapsed}<{remaining}]",
+        )
+    finished = [0]
 
     def report(i: int, outcome: WorldOutcome) -> None:
         outcomes[i] = outcome
+        finished[0] += 1
         if bar is not None:
-            bar.update(1)
+            bar.n = finished[0]
             bar.set_postfix_str(f"{outcome.world} {outcome.status}")
+            bar.refresh()
         if on_world is not None:
             on_world(outcome)
 
@@ -1153,6 +1218,20 @@ def _farm_locked(
         for i, spec, digest in pending
     ]
 
+    def tick(running: dict[int, tuple[float, str]]) -> None:
+        # finished worlds count whole, running ones by the share of their bake done
+        if bar is None:
+            return
+        bar.n = finished[0] + sum(f for f, _ in running.values())
+        shown = [
+            f"{names_of[i]} {100 * f:.0f}% {text.split(' ')[0]}"
+            for i, (f, text) in sorted(running.items())
+        ]
+        bar.set_postfix_str(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
+        bar.refresh()
+
+    names_of = {i: spec.name for i, spec, _ in pending}
+
     def finish(job: _Job, res: dict[str, Any]) -> None:
         source = inputs[job.index].source
         outcome = WorldOutcome(
@@ -1216,7 +1295,7 @@ def _farm_locked(
 
             _run_dask(jobs_list, scheduler, finish, connected)
         elif jobs_list and workers:
-            _run_local(jobs_list, workers, finish)
+            _run_local(jobs_list, workers, finish, tick if bar is not None else None)
     except KeyboardInterrupt:
         interrupted = True
         raise

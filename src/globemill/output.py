@@ -22,7 +22,7 @@ import numpy.typing as npt
 
 from ._atomic import write_files_atomically
 from .attributes import NO_LAYER, layer_table
-from .bake import BakeResult
+from .bake import BakeResult, Progress
 from .export_gltf import GltfBuilder
 from .gpu_buffers import CACHE_SIZES, DrawBuffers, draw_buffers, misses
 from .provenance import provenance
@@ -123,11 +123,20 @@ class Prepared:
     stats: dict[str, Any]
 
 
-def prepare(result: BakeResult, options: GlbOptions | None = None) -> Prepared:
+def prepare(
+    result: BakeResult, options: GlbOptions | None = None, progress: Progress | None = None
+) -> Prepared:
     """Order every chunk level's buffers, decide on quantization and measure the vertex cache
-    (ACMR before and after, for FIFO caches of CACHE_SIZES entries)."""
+    (ACMR before and after, for FIFO caches of CACHE_SIZES entries). progress("write", done,
+    total) is called per level (total: chunk levels, plus one for the files)."""
     opts = options or GlbOptions()
-    bufs = [[draw_buffers(ch, optimize=opts.gpu_order) for ch in lv.chunks] for lv in result.levels]
+    nchunks = len(result.levels[0].chunks) if result.levels else 0
+    total = nchunks * len(result.levels) + 1
+    bufs = []
+    for k, lv in enumerate(result.levels):
+        bufs.append([draw_buffers(ch, optimize=opts.gpu_order) for ch in lv.chunks])
+        if progress is not None:
+            progress("write", (k + 1) * nchunks, total)
     acmr: list[dict[str, Any]] = []
     for lv, row in zip(result.levels, bufs, strict=True):
         tris = sum(len(b.triangles) for b in row)
@@ -335,12 +344,14 @@ def write_outputs(
     formats: Sequence[str] = (),
     level: int = 0,
     options: GlbOptions | None = None,
+    progress: Progress | None = None,
 ) -> dict[str, Path]:
     """Write every output of `result` into `outdir` (all or nothing); return their paths.
 
     formats : any of "obj", "ply": level `level` also as OUTDIR/<name>.lod<level>.<fmt>.
     options : the .glb layout (GlbOptions); with `level_files`, also OUTDIR/<name>.lod<k>.glb
         for every level k (paths key "glb_lod<k>").
+    progress : called as the files are prepared and written (stage "write", see `prepare`).
     The report gains an "export" entry (also set in result.report): file sizes, the vertex cache
     miss ratio before and after ordering and, when asked, the quantization's errors.
     """
@@ -348,7 +359,7 @@ def write_outputs(
 
     opts = options or GlbOptions()
     name = result.spec.name
-    prep = prepare(result, opts)
+    prep = prepare(result, opts, progress)
     paths = {
         "glb": outdir / f"{name}.glb",
         "report": outdir / f"{name}.report.json",
@@ -372,4 +383,7 @@ def write_outputs(
     result.report["export"] = export
     files[paths["report"]] = report_json({**result.report, **provenance(result.spec)})
     write_files_atomically(files)
+    if progress is not None:
+        done = sum(len(lv.chunks) for lv in result.levels) + 1
+        progress("write", done, done)
     return paths

@@ -13,6 +13,7 @@ with the sRGB transfer function (IEC 61966-2-1) for the picture.
 from __future__ import annotations
 
 import io
+import json
 import math
 import time
 from collections.abc import Sequence
@@ -26,8 +27,17 @@ import numpy.typing as npt
 from ._atomic import write_files_atomically
 from .attributes import NO_LAYER, layer_palette
 from .bake import BakeResult
+from .spec import unit_vector
 
-COLOR_MODES = ("layer", "chunk", "level", "error")
+COLOR_MODES = ("layer", "altitude", "slope", "chunk", "level", "error")
+# what a finished bake's files hold (the others need the bake in memory)
+GROUND_COLOR_MODES = ("layer", "altitude", "slope", "chunk")
+PICTURE_FORMATS = {".png": "png", ".jpg": "jpeg", ".jpeg": "jpeg"}
+GRID_STEP_DEG = 30.0  # latitude/longitude lines every so many degrees by default
+MIN_GRID_DEG = 1.0
+LABEL_MIN_COS = 0.25  # names are written where the ground faces the camera at most ~75° away
+GRID_RGB = np.array([0.85, 0.85, 0.85])  # linear RGB of the grid lines
+GRID_MIX = 0.55
 VIEWS: dict[str, tuple[tuple[float, float, float], tuple[float, float, float]]] = {
     # name: (direction from the centre towards the camera, screen up); Y up, +Z is (0°, 0°)
     "front": ((0.0, 0.0, 1.0), (0.0, 1.0, 0.0)),
@@ -214,11 +224,14 @@ def shade_view(
     face_rgb: F64 | None = None,
     supersample: int = 2,
     ambient: float = 0.18,
+    grid_deg: float = 0.0,
 ) -> tuple[F64, F64]:
     """One view: (size, size, 3) linear RGB and the (size, size) share of each pixel covered.
 
     Colour comes from `vertex_rgb` (interpolated) or `face_rgb` (flat), in linear RGB; light is a
-    directional key light from the viewer's upper left (Lambert) plus `ambient`.
+    directional key light from the viewer's upper left (Lambert) plus `ambient`. With
+    `grid_deg` > 0, lines of latitude and longitude every `grid_deg` degrees are drawn on the
+    ground, one pixel wide on screen.
     """
     d, right, up = view_frame(view)
     big = size * supersample
@@ -252,6 +265,10 @@ def shade_view(
         albedo = np.full((len(t), 3), 0.5, dtype=np.float32)
     img = np.zeros((big * big, 3), dtype=np.float32)
     img[hit] = albedo * lam[:, None]
+    if grid_deg > 0 and len(hit):
+        pos = positions[corners]  # (h, 3 corners, 3)
+        line = grid_lines(np.einsum("pk,pkj->pj", b.astype(np.float64), pos), hit, big, grid_deg)
+        img[hit[line]] = (1 - GRID_MIX) * img[hit[line]] + GRID_MIX * GRID_RGB.astype(np.float32)
     cover = np.zeros(big * big, dtype=np.float32)
     cover[hit] = 1.0
     img = img.reshape(size, supersample, size, supersample, 3).mean(axis=(1, 3))
@@ -259,6 +276,35 @@ def shade_view(
     # un-premultiply the covered share so rims blend with the background later
     rgb = (img / np.maximum(cover, 1e-9)[:, :, None]).astype(np.float64)
     return rgb, cover.astype(np.float64)
+
+
+def grid_lines(points: F64, hit: I64, big: int, step_deg: float) -> npt.NDArray[np.bool_]:
+    """Which of the covered pixels (flat ids `hit` of a big x big view, surface points `points`
+    (h, 3)) lie on a line of latitude or longitude every `step_deg` degrees: pixels whose grid
+    cell differs from the next pixel's to the right or below (and that next pixel), so lines
+    are as wide on screen wherever they run. Meridians stop short of the poles, where they
+    would merge."""
+    r = np.maximum(np.linalg.norm(points, axis=1), 1e-300)
+    lat = np.degrees(np.arcsin(np.clip(points[:, 1] / r, -1.0, 1.0)))
+    lon = np.degrees(np.arctan2(points[:, 0], points[:, 2]))
+    polar = np.abs(lat) > 90.0 - min(step_deg, 15.0)
+    covered = np.zeros((big, big), dtype=np.bool_)
+    covered.reshape(-1)[hit] = True
+    on = np.zeros((big, big), dtype=np.bool_)
+    for values, usable in ((lat, np.ones(len(hit), np.bool_)), (lon, ~polar)):
+        cell = np.zeros((big, big), dtype=np.int64)
+        cell.reshape(-1)[hit] = np.floor(values / step_deg).astype(np.int64)
+        ok = np.zeros((big, big), dtype=np.bool_)
+        ok.reshape(-1)[hit] = usable
+        ok &= covered
+        for a, b in (
+            ((slice(None), slice(0, -1)), (slice(None), slice(1, None))),
+            ((slice(0, -1), slice(None)), (slice(1, None), slice(None))),
+        ):
+            edge = ok[a] & ok[b] & (cell[a] != cell[b])
+            on[a] |= edge
+            on[b] |= edge
+    return on.reshape(-1)[hit]
 
 
 # ---- what to draw ------------------------------------------------------------------------------
@@ -337,6 +383,185 @@ class PreviewStats:
     seconds: float
 
 
+def picture_format(path: str | Path) -> str:
+    """The matplotlib format of a picture file, from its suffix: png, or jpeg for .jpg/.jpeg."""
+    suffix = Path(path).suffix.lower()
+    if suffix not in PICTURE_FORMATS:
+        allowed = ", ".join(PICTURE_FORMATS)
+        raise ValueError(
+            f"output: the picture must end in one of {allowed}, got {suffix or '(no suffix)'!r}"
+        )
+    return PICTURE_FORMATS[suffix]
+
+
+@dataclass
+class Ground:
+    """One level of a bake as a single mesh, with what the pictures colour it by.
+
+    positions, normals : (V, 3) float64; triangles : (T, 3) int64; chunk : (T,) int64
+    slope_deg, altitude_m : (V,) float64; layer : (V,) uint8 (NO_LAYER: no rule)
+    layers : [(name, (3,) linear RGB)] the layer rules; neighbors : (C, 3) chunks across edges
+    labels : [(feature name, (3,) unit direction of its centre)]
+    """
+
+    name: str
+    level: int
+    tolerance_m: float
+    positions: F64
+    normals: F64
+    triangles: I64
+    chunk: I64
+    slope_deg: F64
+    altitude_m: F64
+    layer: npt.NDArray[np.uint8]
+    layers: list[tuple[str, Sequence[float]]]
+    neighbors: I64
+    labels: list[tuple[str, F64]]
+
+
+def feature_labels(spec: Any) -> list[tuple[str, F64]]:
+    """(name, unit direction) of every named feature with a centre (a ridge: its midpoint)."""
+    out = []
+    for f in spec.features:
+        dirs = f.directions()
+        if not getattr(f, "name", None) or not dirs:
+            continue
+        u = np.sum(dirs, axis=0)
+        out.append((str(f.name), u / np.linalg.norm(u)))
+    return out
+
+
+def ground_of(result: BakeResult, level: int = 0) -> Ground:
+    """The Ground of one level of a bake in memory."""
+    lv = result.levels[level]
+    positions, tris = result.mesh(level)
+    ids = np.flatnonzero(lv.present)
+    return Ground(
+        name=result.spec.name,
+        level=level,
+        tolerance_m=lv.tolerance_m,
+        positions=positions,
+        normals=result.normals[ids],
+        triangles=tris.astype(np.int64),
+        chunk=lv.chunk.astype(np.int64),
+        slope_deg=result.slope_deg[ids],
+        altitude_m=result.altitude_m[ids],
+        layer=result.layer[ids],
+        layers=[(r.name, tuple(r.color)) for r in result.spec.layers],
+        neighbors=result.chunk_neighbors.astype(np.int64),
+        labels=feature_labels(result.spec),
+    )
+
+
+def _layer_key(g: Ground) -> tuple[F64, list[Any], str]:
+    """Vertex colours of the layer picture and its key (each layer's share of the area)."""
+    from matplotlib.patches import Patch
+
+    vertex_rgb = layer_palette([])[g.layer]
+    for i, (_, rgb) in enumerate(g.layers):
+        vertex_rgb[g.layer == i] = rgb
+    # share of the ground's area: each vertex stands for a third of its triangles' area
+    corner = g.positions[g.triangles]
+    area = 0.5 * np.linalg.norm(
+        np.cross(corner[:, 1] - corner[:, 0], corner[:, 2] - corner[:, 0]), axis=1
+    )
+    vertex_area = np.zeros(len(g.positions))
+    for k in range(3):
+        np.add.at(vertex_area, g.triangles[:, k], area / 3.0)
+    share = 100.0 * np.bincount(g.layer, weights=vertex_area, minlength=256)
+    share /= max(float(vertex_area.sum()), 1e-300)
+    legend = [
+        Patch(color=linear_to_srgb(rgb), label=f"{name} {share[i]:.0f}%")
+        for i, (name, rgb) in enumerate(g.layers)
+    ]
+    if share[NO_LAYER] > 0 or not g.layers:
+        legend.append(
+            Patch(
+                color=linear_to_srgb(layer_palette([])[0]),
+                label=f"no rule {share[NO_LAYER]:.0f}%",
+            )
+        )
+    return vertex_rgb, legend, "coloured by material layer (key: share of the ground's area)"
+
+
+def _ramp(values: F64, cmap_name: str, unit: str, what: str) -> tuple[F64, Any]:
+    """Vertex colours of `values` on a colour map from their least to their largest value."""
+    from matplotlib import colormaps
+    from matplotlib.colors import Normalize
+
+    lo = float(values.min()) if len(values) else 0.0
+    hi = float(values.max()) if len(values) else 1.0
+    norm = Normalize(lo, hi if hi > lo else lo + 1.0)
+    cmap = colormaps[cmap_name]
+    rgb = srgb_to_linear(cmap(norm(values))[:, :3])
+    return rgb, (cmap, norm, f"{what} ({unit})")
+
+
+def ground_views(g: Ground, color: str, views: Sequence[str]) -> _Views:
+    """What the picture of `g` draws for the colour modes a Ground holds (GROUND_COLOR_MODES)."""
+    if color not in GROUND_COLOR_MODES:
+        allowed = ", ".join(GROUND_COLOR_MODES)
+        raise ValueError(f"color: must be one of {allowed} for a finished bake, got {color!r}")
+    vertex_rgb = face_rgb = None
+    legend: list[Any] = []
+    colorbar = None
+    if color == "layer":
+        vertex_rgb, legend, subtitle = _layer_key(g)
+    elif color == "altitude":
+        vertex_rgb, colorbar = _ramp(g.altitude_m, "cividis", "m above radius_m", "altitude")
+        subtitle = (
+            f"coloured by altitude ({g.altitude_m.min():.4g} to {g.altitude_m.max():.4g} m)"
+            if len(g.altitude_m)
+            else "coloured by altitude"
+        )
+    elif color == "slope":
+        vertex_rgb, colorbar = _ramp(g.slope_deg, "viridis", "degrees", "slope")
+        worst = float(g.slope_deg.max()) if len(g.slope_deg) else 0.0
+        subtitle = f"coloured by slope (up to {worst:.3g}°)"
+    else:
+        pal = srgb_to_linear(PALETTE)[chunk_colors(g.neighbors)]
+        face_rgb = pal[g.chunk]
+        subtitle = f"coloured by chunk ({len(g.neighbors)} chunks)"
+    what = f"level {g.level}: {len(g.triangles):,} triangles, tolerance {g.tolerance_m:g} m"
+    return _Views(
+        title=f"{g.name} — {what}",
+        subtitle=subtitle,
+        per_view=[(g.positions, g.normals, g.triangles, vertex_rgb, face_rgb)] * len(views),
+        legend=legend,
+        colorbar=colorbar,
+        labels=_label_points(g.positions, g.labels),
+        triangles=len(g.triangles),
+    )
+
+
+def _label_points(positions: F64, labels: list[tuple[str, F64]]) -> list[tuple[str, F64]]:
+    """Each label on the ground: its direction scaled to the radius of the mesh vertex nearest
+    in direction (no field needed, so a finished bake's files suffice)."""
+    if not labels or not len(positions):
+        return []
+    r = np.linalg.norm(positions, axis=1)
+    unit = positions / np.maximum(r, 1e-300)[:, None]
+    out = []
+    for name, u in labels:
+        i = int(np.argmax(unit @ u))
+        out.append((name, u * r[i]))
+    return out
+
+
+@dataclass
+class _Views:
+    """What the layout draws: title lines, per view (positions, normals, triangles, vertex or
+    face colours), a key (legend patches or a colour bar) and labelled surface points."""
+
+    title: str
+    subtitle: str
+    per_view: list[tuple[F64, F64, npt.NDArray[Any], F64 | None, F64 | None]]
+    legend: list[Any]
+    colorbar: tuple[Any, Any, str] | None
+    labels: list[tuple[str, F64]]
+    triangles: int
+
+
 def preview_png(
     result: BakeResult,
     *,
@@ -345,115 +570,131 @@ def preview_png(
     size: tuple[int, int] = DEFAULT_SIZE,
     views: Sequence[str] = DEFAULT_VIEWS,
     supersample: int = 2,
+    grid_deg: float = GRID_STEP_DEG,
+    names: bool = True,
+    fmt: str = "png",
 ) -> tuple[bytes, int]:
-    """The picture as PNG bytes, and the number of triangles drawn per view.
+    """The picture as PNG (or `fmt`) bytes, and the number of triangles drawn per view.
 
-    color : layer (the layer rules' colours), chunk, level (chunks at mixed levels joined by
-    stitched seams) or error (measured deviation of each triangle, a heat map from 0 to the
-    level's tolerance with a colour bar). level : which level to draw (not for color=level).
+    color : layer (the layer rules' colours), altitude, slope, chunk, level (chunks at mixed
+    levels joined by stitched seams) or error (measured deviation of each triangle, a heat map
+    from 0 to the level's tolerance with a colour bar). level : which level to draw (not for
+    color=level). grid_deg : latitude/longitude lines every so many degrees (0: none).
+    names : write the names of named features at their centres.
     """
-    from matplotlib.colors import Normalize
-    from matplotlib.figure import Figure
-    from matplotlib.patches import Patch
-
     if color not in COLOR_MODES:
         raise ValueError(f"color: must be one of {', '.join(COLOR_MODES)}, got {color!r}")
     nlev = len(result.levels)
     if not isinstance(level, int) or not 0 <= level < nlev:
         raise ValueError(f"level: must be an integer in 0..{nlev - 1}, got {level!r}")
+    check_views(views, grid_deg)
+    extent = 1.02 * float(np.linalg.norm(result.vertices, axis=1).max())
+    if color in GROUND_COLOR_MODES:
+        v = ground_views(ground_of(result, level), color, views)
+    else:
+        v = _bake_views(result, color, level, views)
+    if not names:
+        v.labels = []
+    return _compose(v, views, size, extent, supersample, grid_deg, fmt), v.triangles
+
+
+def check_views(views: Sequence[str], grid_deg: float) -> None:
     if not views:
         raise ValueError("views: name at least one view")
     for v in views:
         view_frame(v)  # raises on a bad view
-    width, height = size
-    spec = result.spec
-    lv = result.levels[level]
-    extent = 1.02 * float(np.linalg.norm(result.vertices, axis=1).max())
-
-    legend: list[Patch] = []
-    colorbar: tuple[Any, Normalize, str] | None = None
-    if color != "level":
-        positions, tris = result.mesh(level)
-        ids = np.flatnonzero(lv.present)
-        normals = result.normals[ids]
-    vertex_rgb = face_rgb = None
-    per_view: list[tuple[F64, F64, npt.NDArray[Any], F64 | None, F64 | None]] = []
-    if color == "layer":
-        layer = result.layer[ids]
-        vertex_rgb = layer_palette(spec.layers)[layer]
-        # share of the ground's area: each vertex stands for a third of its triangles' area
-        corner = positions[tris]
-        area = 0.5 * np.linalg.norm(
-            np.cross(corner[:, 1] - corner[:, 0], corner[:, 2] - corner[:, 0]), axis=1
+    if isinstance(grid_deg, bool) or not isinstance(grid_deg, (int, float)):
+        raise ValueError(f"grid: must be a number of degrees in 0..90, got {grid_deg!r}")
+    if not (grid_deg == 0 or MIN_GRID_DEG <= grid_deg <= 90):
+        raise ValueError(
+            f"grid: must be 0 (no grid) or {MIN_GRID_DEG:g}..90 degrees, got {grid_deg!r}"
         )
-        vertex_area = np.zeros(len(positions))
-        for k in range(3):
-            np.add.at(vertex_area, tris[:, k], area / 3.0)
-        share = 100.0 * np.bincount(layer, weights=vertex_area, minlength=256)
-        share /= max(float(vertex_area.sum()), 1e-300)
-        for i, rule in enumerate(spec.layers):
-            legend.append(
-                Patch(color=linear_to_srgb(rule.color), label=f"{rule.name} {share[i]:.0f}%")
-            )
-        if share[NO_LAYER] > 0 or not spec.layers:
-            legend.append(
-                Patch(
-                    color=linear_to_srgb(layer_palette([])[0]),
-                    label=f"no rule {share[NO_LAYER]:.0f}%",
-                )
-            )
-        subtitle = "coloured by material layer (key: share of the ground's area)"
-    elif color == "chunk":
-        pal = srgb_to_linear(PALETTE)[chunk_colors(result.chunk_neighbors)]
-        face_rgb = pal[lv.chunk]
-        subtitle = f"coloured by chunk ({len(lv.chunks)} chunks)"
-    elif color == "error":
+
+
+def _bake_views(result: BakeResult, color: str, level: int, views: Sequence[str]) -> _Views:
+    """The colour modes that need the bake in memory: error and level."""
+    from matplotlib.colors import Normalize
+    from matplotlib.patches import Patch
+
+    nlev = len(result.levels)
+    lv = result.levels[level]
+    legend: list[Any] = []
+    colorbar = None
+    per_view: list[tuple[F64, F64, npt.NDArray[Any], F64 | None, F64 | None]] = []
+    labels = feature_labels(result.spec)
+    if color == "error":
         from matplotlib import colormaps
 
+        g = ground_of(result, level)
         cmap = colormaps["inferno"]
         norm = Normalize(0.0, lv.tolerance_m)
         face_rgb = srgb_to_linear(cmap(norm(lv.errors.astype(np.float64)))[:, :3])
         colorbar = (cmap, norm, f"measured deviation (m), tolerance {lv.tolerance_m:g} m")
         worst = float(lv.errors.max()) if len(lv.errors) else 0.0
         subtitle = f"coloured by measured error (max {worst:.3g} m)"
+        per_view = [(g.positions, g.normals, g.triangles, None, face_rgb)] * len(views)
+        title = f"level {level}: {len(g.triangles):,} triangles, tolerance {lv.tolerance_m:g} m"
+        ntris = len(g.triangles)
+        points = _label_points(g.positions, labels)
     else:
         subtitle = "coloured by level: finest facing the viewer, seams stitched"
         for k in range(nlev):
             tol = result.levels[k].tolerance_m
             legend.append(Patch(color=PALETTE[k % len(PALETTE)], label=f"level {k}, {tol:g} m"))
-    if color == "level":
-        for v in views:
-            p, n, t, lev_of_tri = level_mix(result, view_levels(result, v))
+        ntris = 0
+        for view in views:
+            p, n, t, lev_of_tri = level_mix(result, view_levels(result, view))
             face = srgb_to_linear(PALETTE)[lev_of_tri % len(PALETTE)]
             per_view.append((p, n, t, None, face))
-    else:
-        per_view = [(positions, normals, tris, vertex_rgb, face_rgb)] * len(views)
+            ntris = max(ntris, len(t))
+        title = "mixed levels"
+        points = _label_points(result.vertices, labels)
+    return _Views(
+        title=f"{result.spec.name} — {title}",
+        subtitle=subtitle,
+        per_view=per_view,
+        legend=legend,
+        colorbar=colorbar,
+        labels=points,
+        triangles=ntris,
+    )
 
-    # layout in pixels: a title band on top, the views in a row, the key on the right
+
+def _compose(
+    v: _Views,
+    views: Sequence[str],
+    size: tuple[int, int],
+    extent: float,
+    supersample: int,
+    grid_deg: float,
+    fmt: str,
+) -> bytes:
+    """Lay the views out in a row under a title band, the key on the right; encode as `fmt`."""
+    from matplotlib import patheffects
+    from matplotlib.figure import Figure
+
+    width, height = size
     dpi = 100
-    key_w = 0 if not (legend or colorbar) else min(260, max(150, width // 6))
+    key_w = 0 if not (v.legend or v.colorbar) else min(260, max(150, width // 6))
     title_h = min(64, max(28, height // 10))
     label_h = min(24, max(14, height // 30))
     side = int(min((width - key_w) / len(views), height - title_h - label_h))
     side = max(side, 8)
     fig = Figure(figsize=(width / dpi, height / dpi), dpi=dpi, facecolor=BACKGROUND)
     fs = max(6.0, min(14.0, title_h * 0.28))
-    ntris = 0
-    name = spec.name
-    what = f"level {level}" if color != "level" else "mixed levels"
-    if color != "level":
-        ntris = len(tris)
-        what += f": {ntris:,} triangles, tolerance {lv.tolerance_m:g} m"
     fig.text(
         0.01,
         1 - 0.45 * title_h / height,
-        f"{name} — {what}",
+        v.title,
         color=FOREGROUND,
         fontsize=fs * 1.15,
         va="center",
         ha="left",
         weight="bold",
     )
+    subtitle = v.subtitle
+    if grid_deg:
+        subtitle += f"; grid every {grid_deg:g}° of latitude and longitude"
     fig.text(
         0.01,
         1 - 0.85 * title_h / height,
@@ -469,19 +710,20 @@ def preview_png(
     left0 = (width - key_w - row_w) / 2
     # the row of views sits in the middle of the space under the title
     bottom0 = max(label_h, (height - title_h - side - label_h) / 2 + label_h)
-    for i, (v, (p, n, t, vrgb, frgb)) in enumerate(zip(views, per_view, strict=True)):
+    outline = [patheffects.withStroke(linewidth=2.0, foreground=BACKGROUND)]
+    for i, (view, (p, n, t, vrgb, frgb)) in enumerate(zip(views, v.per_view, strict=True)):
         rgb, cover = shade_view(
             p,
             n,
             t,
-            view=v,
+            view=view,
             size=side,
             extent=extent,
             vertex_rgb=vrgb,
             face_rgb=frgb,
             supersample=supersample,
+            grid_deg=grid_deg,
         )
-        ntris = max(ntris, len(t))
         srgb = linear_to_srgb(rgb)
         img = srgb * cover[:, :, None] + bg[None, None, :] * (1 - cover[:, :, None])
         ax = fig.add_axes(
@@ -494,28 +736,50 @@ def preview_png(
         )
         ax.imshow(img, interpolation="nearest")
         ax.set_axis_off()
+        d, right, up = view_frame(view)
+        scale = side / (2.0 * extent)
+        for name, point in v.labels:
+            # on the half facing the camera, away from the rim where labels would crowd
+            if float(point @ d) / max(float(np.linalg.norm(point)), 1e-300) < LABEL_MIN_COS:
+                continue
+            x = float(point @ right) * scale + side / 2.0 - 0.5
+            y = side / 2.0 - float(point @ up) * scale - 0.5
+            ax.plot([x], [y], marker="o", markersize=2.5, color=FOREGROUND, linestyle="none")
+            ax.text(
+                x + 3,
+                y - 3,
+                name,
+                color=FOREGROUND,
+                fontsize=fs * 0.6,
+                ha="left",
+                va="bottom",
+                path_effects=outline,
+                clip_on=True,
+            )
+        ax.set_xlim(-0.5, side - 0.5)
+        ax.set_ylim(side - 0.5, -0.5)
         fig.text(
             (left0 + (i + 0.5) * side) / width,
             (bottom0 - label_h * 0.6) / height,
-            v,
+            view,
             color=FOREGROUND,
             fontsize=fs * 0.8,
             ha="center",
             va="center",
         )
-    if legend:
+    if v.legend:
         fig.legend(
-            handles=legend,
+            handles=v.legend,
             loc="center right",
             frameon=False,
             labelcolor=FOREGROUND,
             fontsize=fs * 0.8,
             bbox_to_anchor=(1.0, 0.5),
         )
-    if colorbar is not None:
+    if v.colorbar is not None:
         from matplotlib.cm import ScalarMappable
 
-        cmap, norm, label = colorbar
+        cmap, norm, label = v.colorbar
         cax = fig.add_axes(
             (
                 (width - key_w + 0.25 * key_w) / width,
@@ -529,12 +793,15 @@ def preview_png(
         cb.ax.tick_params(colors=FOREGROUND, labelsize=fs * 0.7)
         cb.outline.set_edgecolor(FOREGROUND)
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi, facecolor=BACKGROUND, metadata={"Software": None})
-    return buf.getvalue(), ntris
+    if fmt == "jpeg":
+        fig.savefig(buf, format="jpeg", dpi=dpi, facecolor=BACKGROUND, pil_kwargs={"quality": 92})
+    else:
+        fig.savefig(buf, format="png", dpi=dpi, facecolor=BACKGROUND, metadata={"Software": None})
+    return buf.getvalue()
 
 
 def write_preview(
-    result: BakeResult,
+    source: BakeResult | str | Path,
     path: str | Path,
     *,
     color: str = "layer",
@@ -542,15 +809,149 @@ def write_preview(
     size: tuple[int, int] = DEFAULT_SIZE,
     views: Sequence[str] = DEFAULT_VIEWS,
     supersample: int = 2,
+    grid_deg: float = GRID_STEP_DEG,
+    names: bool = True,
 ) -> PreviewStats:
-    """Render the picture (see preview_png) and write it to `path` atomically."""
+    """Render the picture of `source` and write it to `path` atomically, PNG or JPEG by the
+    suffix (.png, .jpg, .jpeg; any other is refused before rendering).
+
+    source : a bake in memory (see preview_png for the colours), or a finished bake's folder (or
+        its `<name>.report.json`), drawn from its files without baking again, in the colours
+        the files hold (GROUND_COLOR_MODES).
+    """
     t0 = time.perf_counter()
-    data, ntris = preview_png(
-        result, color=color, level=level, size=size, views=views, supersample=supersample
-    )
+    fmt = picture_format(path)
+    if isinstance(source, BakeResult):
+        data, ntris = preview_png(
+            source,
+            color=color,
+            level=level,
+            size=size,
+            views=views,
+            supersample=supersample,
+            grid_deg=grid_deg,
+            names=names,
+            fmt=fmt,
+        )
+    else:
+        if color not in GROUND_COLOR_MODES:
+            allowed = ", ".join(GROUND_COLOR_MODES)
+            raise ValueError(f"color: must be one of {allowed} for a finished bake, got {color!r}")
+        check_views(views, grid_deg)
+        g = read_ground(source, level)
+        v = ground_views(g, color, views)
+        if not names:
+            v.labels = []
+        extent = 1.02 * float(np.linalg.norm(g.positions, axis=1).max())
+        data, ntris = _compose(v, views, size, extent, supersample, grid_deg, fmt), v.triangles
     out = Path(path)
     write_files_atomically({out: data})
     return PreviewStats(out, size, ntris, time.perf_counter() - t0)
+
+
+# ---- pictures of a finished bake, read back from its files ---------------------------------------
+
+
+def find_report(path: str | Path) -> Path:
+    """The report of the bake in folder `path` (it must hold exactly one), or `path` itself when
+    it names a `<name>.report.json`."""
+    p = Path(path)
+    if p.is_file() and p.name.endswith(".report.json"):
+        return p
+    if not p.is_dir():
+        raise ValueError(f"bake: {p} is neither a bake folder nor a <name>.report.json")
+    reports = sorted(p.glob("*.report.json"))
+    if not reports:
+        raise ValueError(f"bake: {p} holds no <name>.report.json (bake a world into it first)")
+    if len(reports) > 1:
+        names = ", ".join(r.name for r in reports[:6]) + (", ..." if len(reports) > 6 else "")
+        raise ValueError(
+            f"bake: {p} holds {len(reports)} bakes ({names}); name one by its report, e.g. "
+            f"{reports[0]}"
+        )
+    return reports[0]
+
+
+def read_ground(path: str | Path, level: int = 0) -> Ground:
+    """One level of the bake in folder `path` (or of the report `path` names), read from its
+    `<name>.glb` and `<name>.report.json` alone (quantized positions and normals included).
+    Raises ValueError when the files are missing or not a bake's."""
+    from .check import CheckInputError, read_glb
+
+    report_path = find_report(path)
+    name = report_path.name[: -len(".report.json")]
+    glb_path = report_path.with_name(f"{name}.glb")
+    try:
+        report = json.loads(report_path.read_text(encoding="utf-8"))
+        glb = read_glb(glb_path)
+        return _ground_from_glb(glb, report, name, level)
+    except FileNotFoundError as exc:
+        raise ValueError(f"bake: {exc.filename} is missing") from None
+    except (CheckInputError, json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise ValueError(f"bake: {exc}") from None
+    except (KeyError, IndexError, TypeError) as exc:
+        raise ValueError(f"bake: {glb_path} lacks what a bake writes ({exc!r})") from None
+
+
+def _ground_from_glb(glb: Any, report: dict[str, Any], name: str, level: int) -> Ground:
+    doc = glb.doc
+    extras = doc["scenes"][doc.get("scene", 0)].get("extras", {})
+    roots = doc["scenes"][doc.get("scene", 0)]["nodes"]
+    nlev = int(extras.get("levels", len(report["lods"])))
+    if isinstance(level, bool) or not isinstance(level, int) or not 0 <= level < nlev:
+        raise ValueError(f"level: must be an integer in 0..{nlev - 1}, got {level!r}")
+    pos, nrm, tris, chunk, slope, alt, layer = [], [], [], [], [], [], []
+    neighbors = []
+    base = 0
+    for c, root in enumerate(roots):
+        node = doc["nodes"][root]
+        chain = [root] + list(node.get("extensions", {}).get("MSFT_lod", {}).get("ids", []))
+        if "level_file" in extras:
+            chain = [root]  # one level per file: the root is that level
+        nd = doc["nodes"][chain[level if len(chain) > 1 else 0]]
+        mesh = doc["meshes"][nd["mesh"]]
+        prim = mesh["primitives"][0]
+        attr = prim["attributes"]
+        p = glb.accessor(attr["POSITION"]).astype(np.float64)
+        p = p * np.asarray(nd.get("scale", [1.0, 1.0, 1.0])) + np.asarray(
+            nd.get("translation", [0.0, 0.0, 0.0])
+        )
+        n = glb.accessor(attr["NORMAL"])
+        n = np.maximum(n / 127.0, -1.0) if n.dtype == np.int8 else n.astype(np.float64)
+        t = glb.accessor(prim["indices"]).reshape(-1, 3).astype(np.int64)
+        skirt = int(mesh.get("extras", {}).get("skirt_triangles", 0) or 0)
+        if skirt:
+            t = t[: len(t) - skirt]  # skirts hang below the ground: not drawn
+        pos.append(p)
+        nrm.append(n)
+        tris.append(t + base)
+        chunk.append(np.full(len(t), c, dtype=np.int64))
+        slope.append(glb.accessor(attr["_SLOPE"]).reshape(-1).astype(np.float64))
+        alt.append(glb.accessor(attr["_ALTITUDE"]).reshape(-1).astype(np.float64))
+        layer.append(glb.accessor(attr["_LAYER"]).reshape(-1).astype(np.uint8))
+        neighbors.append([int(x) for x in mesh.get("extras", {}).get("neighbors", [c, c, c])])
+        base += len(p)
+    layers = [(str(x["name"]), tuple(x["color"])) for x in extras.get("layers", [])]
+    labels = [
+        (str(f["name"]), unit_vector(float(f["lat_deg"]), float(f["lon_deg"])))
+        for f in report.get("features", [])
+        if f.get("name") and f.get("lat_deg") is not None
+    ]
+    return Ground(
+        name=name,
+        level=level,
+        tolerance_m=float(report["lods"][level]["tolerance_m"]),
+        positions=np.concatenate(pos),
+        normals=np.concatenate(nrm),
+        triangles=np.concatenate(tris),
+        chunk=np.concatenate(chunk),
+        slope_deg=np.concatenate(slope),
+        altitude_m=np.concatenate(alt),
+        layer=np.concatenate(layer),
+        layers=layers,
+        neighbors=np.asarray(neighbors, dtype=np.int64),
+        labels=labels,
+    )
 
 
 def error_histogram_png(

@@ -15,6 +15,7 @@ Errors are reported as one :class:`SpecError` that lists every problem found, on
 from __future__ import annotations
 
 import copy
+import difflib
 import functools
 import json
 import math
@@ -22,6 +23,7 @@ import operator
 import os
 import re
 import sys
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Annotated, Any, Literal
@@ -63,11 +65,13 @@ __all__ = [
     "Mesa",
     "Noise",
     "Ridge",
+    "SpecDeprecationWarning",
     "SpecError",
     "WorldSpec",
     "json_schema",
     "load_spec",
     "parse_spec",
+    "read_spec_data",
     "unit_vector",
 ]
 
@@ -95,6 +99,10 @@ class SpecError(ValueError):
             lines = "\n".join(f"  - {p}" for p in self.problems)
             message = f"{what} {source} ({len(self.problems)} problems):\n{lines}"
         super().__init__(message)
+
+
+class SpecDeprecationWarning(FutureWarning):
+    """A spec uses a key that was renamed; it is read for one more release (docs/spec.md)."""
 
 
 class _Problems(ValueError):
@@ -295,6 +303,19 @@ def _nonzero(value: float) -> float:
 
 # --------------------------------------------------------------------------------------------
 # geometry helpers (docs/terrain.md, "Frame and directions")
+
+
+def heading_of_bearing(bearing_deg: float) -> float:
+    """A block's bearing (degrees clockwise from north) as the core's heading (degrees counter-
+    clockwise from east): 90 - bearing, wrapped into -360..360 (csrc/spec_rules.cpp, the same)."""
+    h = 90.0 - bearing_deg
+    return h - 360.0 if h > 360.0 else h
+
+
+def bearing_of_heading(heading_deg: float) -> float:
+    """The inverse of heading_of_bearing (for specs that still give heading_deg)."""
+    b = 90.0 - heading_deg
+    return b - 360.0 if b > 360.0 else b
 
 
 def _sin_cos_deg(angle_deg: float) -> tuple[float, float]:
@@ -515,10 +536,10 @@ class _FeatureBase(_Model):
         return math.degrees(_angle(c0, c1))
 
     def footprint_angle_deg(self, radius_m: float) -> float:
-        """Largest angle (degrees) between the centre and a point of the footprint ``s <= wall_m``
-        of a kind with a ``footprint`` entry (a block).
+        """Largest angle (degrees) between the centre and a point of the footprint
+        ``s <= wall_width_m`` of a kind with a ``footprint`` entry (a block).
 
-        The footprint is the rounded rectangle grown by ``wall_m``. A point with local
+        The footprint is the rounded rectangle grown by ``wall_width_m``. A point with local
         coordinates (x, y) lies at angle θ from the centre with
         ``tan²θ = tan²(x/R) + tan²(y/R)`` (from the definition of x and y in docs/terrain.md);
         that grows with |x| and |y|, so the farthest point is on the outer corner arc, which is
@@ -575,6 +596,8 @@ class _FeatureBase(_Model):
                     rule = _field_rule(rules, entry["key"])
                     if rule["type"] == "choice":
                         value = rule["values"].index(value)
+                    if entry.get("from_bearing"):
+                        value = heading_of_bearing(value)
                     row[col] = math.radians(value) if entry.get("radians") else value
         return row
 
@@ -680,7 +703,7 @@ class _WorldChecks(_Model):
             reach = feature.footprint_angle_deg(self.radius_m)
             if reach > max_deg + _ANGLE_SLACK_DEG:
                 what = (
-                    f"{feature.kind} footprint (half sizes grown by wall_m) must stay within "
+                    f"{feature.kind} footprint (half sizes grown by wall_width_m) must stay within "
                     f"{_num(max_deg)}° of its centre"
                 )
                 allowed = f"<= {_num(max_deg)}° at radius_m = {_num(self.radius_m)}"
@@ -709,9 +732,10 @@ class WorldSpec(_section("world", _MODELS, _WorldChecks)):  # type: ignore[misc]
             9.. kind parameters (the ``row`` of each kind in ``spec_rules.json``):
 
             - hill: 9 amplitude_m, 10 sigma_m
-            - mesa: 9 height_m, 10 radius_m, 11 wall_m
-            - block: 9 height_m, 10 half_x_m, 11 half_y_m, 12 corner_m, 13 wall_m,
-              14 heading (radians)
+            - mesa: 9 height_m, 10 radius_m, 11 wall_width_m
+            - block: 9 height_m, 10 half_x_m, 11 half_y_m, 12 corner_radius_m,
+              13 wall_width_m, 14 heading: radians counter-clockwise from east,
+              of heading_of_bearing(bearing_deg)
             - crater: 9 depth_m, 10 radius_m, 11 rim_height_m, 12 rim_width_m
             - ridge: 9 height_m, 10 half_width_m, 11 profile (:data:`PROFILE_CODES`)
             - noise: 9 amplitude_m, 10 frequency_per_m, 11 octaves, 12 gain, 13 seed
@@ -738,7 +762,7 @@ def _schema() -> dict[str, Any]:
         "description": (
             "One world for globemill: base sphere, ordered features and material layers. "
             "Formulas in docs/terrain.md. Cross-field limits (tolerance_m <= radius_m / 10, "
-            "corner_m <= half sizes, block footprints within 60°, ridge arcs in (0°, 179°], "
+            "corner_radius_m <= half sizes, block footprints within 60°, ridge arcs in (0°, 179°], "
             "sum of amplitudes < 0.9 radius_m) are checked by the loader only."
         ),
     }
@@ -851,6 +875,32 @@ def _describe(root: dict[str, Any], node: dict[str, Any]) -> str:
     return "anything"
 
 
+def _did_you_mean(word: str, choices: Sequence[str]) -> str:
+    """ "; did you mean 'x'?" for the closest of `choices` (difflib's ratio >= 0.6), else ""."""
+    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
+    return f"; did you mean {close[0]!r}?" if close else ""
+
+
+_ITEM_PATH = re.compile(r"^(features|layers)\[(\d+)\]")
+
+
+def _with_names(problems: Sequence[str], data: Mapping[str, Any]) -> list[str]:
+    """Each problem about a feature or a layer that has a name ends by naming it:
+    ``features[3].sigma_m: ... , got -1 (feature 'Gorse Knoll')``."""
+    out = []
+    for line in problems:
+        m = _ITEM_PATH.match(line)
+        items = data.get(m.group(1)) if m else None
+        if m and isinstance(items, list) and int(m.group(2)) < len(items):
+            item = items[int(m.group(2))]
+            name = item.get("name") if isinstance(item, Mapping) else None
+            if isinstance(name, str) and name and not any(_is_surrogate(c) for c in name):
+                what = "feature" if m.group(1) == "features" else "layer"
+                line = f"{line} ({what} {name!r})"
+        out.append(line)
+    return out
+
+
 def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
     """Problem lines for one pydantic error."""
     kind: str = error["type"]
@@ -876,10 +926,13 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
             return [f"{path}: {_problem('is required', kinds)}"]
         if kind == "union_tag_not_found":
             return [f"{path[:-5]}: {_problem('must be a table with a kind', kinds, value)}"]
-        return [f"{path}: {_problem('unknown kind', kinds, ctx.get('tag', value))}"]
+        tag = ctx.get("tag", value)
+        line = f"{path}: {_problem('unknown kind', kinds, tag)}"
+        return [line + _did_you_mean(str(tag), list(KIND_CODES))]
     if kind == "extra_forbidden":
-        known = ", ".join((parent or {}).get("properties", {}))
-        return [f"{path}: unknown key (allowed keys: {known}), got {_got(value)}"]
+        keys = list((parent or {}).get("properties", {}))
+        line = f"{path}: unknown key (allowed keys: {', '.join(keys)}), got {_got(value)}"
+        return [line + _did_you_mean(str(last), keys)]
     if kind == "missing" and isinstance(last, int):  # a fixed-length list that is too short
         path, node, _ = _walk(root, error["loc"][:-1])
         what = f"must have {node.get('minItems', last + 1)} items"
@@ -894,6 +947,9 @@ def _error_lines(root: dict[str, Any], error: Mapping[str, Any]) -> list[str]:
         what = f"must be {bounds[kind]} {_num(limit)}"
     elif kind == "literal_error":
         what = "unknown value"
+        choices = [str(c) for c in node.get("enum", [])]
+        if isinstance(value, str) and choices:
+            return [f"{path}: {_problem(what, allowed, value)}" + _did_you_mean(value, choices)]
     elif kind == "too_long" and node.get("minItems") == node.get("maxItems"):
         what = f"must have {node.get('maxItems')} items"  # a fixed-length list
     elif kind == "too_long":
@@ -992,6 +1048,52 @@ def _input_problems(data: Any) -> list[str]:
 # loading
 
 
+def migrate_renamed(data: Mapping[str, Any]) -> tuple[dict[str, Any], list[str]]:
+    """The document with renamed keys (each kind's ``renamed`` in the rule table) in their new
+    spelling, headings turned into bearings, and a message for each; `data` is not changed. A
+    feature that gives both spellings keeps both (validation then names the old one)."""
+    out = dict(data)
+    notes: list[str] = []
+    features = data.get("features")
+    if not isinstance(features, list):
+        return out, notes
+    new_features = []
+    for i, f in enumerate(features):
+        tag = f.get("kind") if isinstance(f, Mapping) else None
+        kind = _KINDS.get(tag) if isinstance(tag, str) else None
+        if kind is None or not kind.get("renamed"):
+            new_features.append(f)
+            continue
+        g = dict(f)
+        for rn in kind["renamed"]:
+            old, new = rn["from"], rn["to"]
+            if old not in g or new in g:
+                continue
+            value = g.pop(old)
+            name = f.get("name")
+            what = f"features[{i}]" + (f" ({name!r})" if isinstance(name, str) else "")
+            if rn.get("convert") == "heading_to_bearing" and _is_number(value):
+                value = bearing_of_heading(float(value))
+                notes.append(
+                    f"{what}: heading_deg (counter-clockwise from east) is deprecated and will "
+                    f"not be read after this release; write bearing_deg = {_num(value)} "
+                    "(clockwise from north) instead"
+                )
+            else:
+                notes.append(
+                    f"{what}: {old} is deprecated and will not be read after this release; "
+                    f"write {new} instead"
+                )
+            g[new] = value
+        new_features.append(g)
+    out["features"] = new_features
+    return out, notes
+
+
+def _is_number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
 def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     """Validate a world spec given as plain data (the parsed TOML or JSON document).
 
@@ -1007,12 +1109,15 @@ def parse_spec(data: Mapping[str, Any], source: str = "<spec>") -> WorldSpec:
     refused = _input_problems(data)
     if refused:
         raise SpecError(source, refused)
+    data, notes = migrate_renamed(data)
+    for note in notes:
+        warnings.warn(SpecDeprecationWarning(f"{source}: {note}"), stacklevel=2)
     try:
         return WorldSpec.model_validate(dict(data))
     except ValidationError as exc:
         root = _schema()
         problems = [line for err in exc.errors() for line in _error_lines(root, err)]
-        raise SpecError(source, problems) from None
+        raise SpecError(source, _with_names(problems, data)) from None
 
 
 _TOML_POSITION = re.compile(r"^(?P<msg>.*?)\s*\(at line (?P<line>\d+), column (?P<col>\d+)\)$")
@@ -1076,17 +1181,9 @@ def _parse_json(text: str, source: str) -> Any:
     raise SpecError(source, [problem], what="cannot read world spec")
 
 
-def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
-    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
-
-    Raises
-    ------
-    SpecError
-        When the file is missing, unreadable or larger than ``LIMITS["max_bytes"]``, is not
-        well-formed TOML/JSON or nests tables and lists deeper than ``LIMITS["max_depth"]``
-        levels (the message gives the line and column), or describes an invalid world (every
-        problem listed).
-    """
+def read_spec_data(path: str | os.PathLike[str]) -> Any:
+    """The parsed document of a spec file (TOML for ``.toml``, JSON for ``.json``), not yet
+    validated. Raises SpecError as :func:`load_spec` does for files that cannot be read."""
     file = Path(path)
     source = str(file)
     suffix = file.suffix.lower()
@@ -1101,5 +1198,18 @@ def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
         fmt = "TOML" if toml else "JSON"
         problem = f"malformed {fmt} at {_line_col(text, deep)}: nested deeper than {limit} levels"
         raise SpecError(source, [problem], what="cannot read world spec")
-    data = _parse_toml(text, source) if toml else _parse_json(text, source)
-    return parse_spec(data, source=source)
+    return _parse_toml(text, source) if toml else _parse_json(text, source)
+
+
+def load_spec(path: str | os.PathLike[str]) -> WorldSpec:
+    """Read and validate a world spec file: TOML for ``.toml``, JSON for ``.json``.
+
+    Raises
+    ------
+    SpecError
+        When the file is missing, unreadable or larger than ``LIMITS["max_bytes"]``, is not
+        well-formed TOML/JSON or nests tables and lists deeper than ``LIMITS["max_depth"]``
+        levels (the message gives the line and column), or describes an invalid world (every
+        problem listed).
+    """
+    return parse_spec(read_spec_data(path), source=str(Path(path)))
