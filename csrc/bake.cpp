@@ -68,6 +68,9 @@ Status check_settings(const BakeSettings& s, std::string& error) {
     if (s.collider_cap < 1)
         return bad("collision.max_triangles_per_chunk: must be an integer >= 1, got " +
                    std::to_string(s.collider_cap));
+    if (!std::isfinite(s.collider_min_angle_deg) || s.collider_min_angle_deg < 0 || s.collider_min_angle_deg > 60)
+        return bad("collider_min_angle_deg: must be a number from 0 to 60 (0 = no angle pass), got " +
+                   num(s.collider_min_angle_deg));
     if (s.layers.size() > kMaxLayers)
         return bad("layers: at most " + std::to_string(kMaxLayers) +
                    " layer rules fit the 8-bit layer attribute, got " + std::to_string(s.layers.size()));

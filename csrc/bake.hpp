@@ -25,6 +25,9 @@ constexpr double kTauHeadroom = 8.0;
 // three planar shape classes with angles >= 30 degrees (Mitchell 1989); projecting the first,
 // large triangles onto the sphere bends that to 24.6
 constexpr double kMinAngleDeg = 24.0;
+// the smallest triangle angle the collider angle pass aims for (collider_angles.cpp); the report's
+// collision.min_angle_deg is what it reached
+constexpr double kColliderMinAngleDeg = 20.0;
 // colliders default to this many times the finest render tolerance
 constexpr double kColliderToleranceFactor = 4.0;
 // skirts default to hanging this many times the coarsest level's tolerance
@@ -56,6 +59,7 @@ struct BakeSettings {
     double collision_tolerance_m = 0;  // 0: kColliderToleranceFactor x tolerance_m
     bool collision_centered = true;    // bias: the collider straddles the true surface
     std::uint64_t collider_cap = 65535;  // triangles per chunk collider
+    double collider_min_angle_deg = kColliderMinAngleDeg;  // 0: no angle pass
     std::vector<LayerRule> layers;
     int threads = 0;  // 0: every hardware thread; the result does not depend on it
     // keep a bake whose level or collider measures beyond its tolerance (default: it fails with
@@ -139,6 +143,8 @@ struct ColliderResult {
     std::uint64_t triangles = 0, max_triangles_per_chunk = 0, degenerate_triangles = 0;
     double max_error_m = 0, mesh_to_surface_m = 0, surface_to_mesh_m = 0;
     double min_angle_deg = 0;
+    double min_angle_target_deg = 0;  // what the angle pass aimed for (0: no pass)
+    std::uint64_t angle_collapses = 0, angle_flips = 0, angle_stuck = 0;
     double seconds = 0;
     std::vector<std::shared_ptr<const Collider>> chunks;
 };

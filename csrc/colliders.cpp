@@ -6,12 +6,16 @@
 #include <cmath>
 
 #include "chunks.hpp"
+#include "collider_angles.hpp"
 #include "json.hpp"
 #include "measure.hpp"
 
 namespace gm {
 
 namespace {
+
+// the angle pass keeps each triangle it makes within this share of the collider tolerance
+constexpr double kColliderAngleMargin = 0.9;
 
 // move each collider vertex along its direction by half the mean signed gap (surface minus
 // collider, radially, at the centroid and edge midpoints of its triangles): the collider then
@@ -56,17 +60,6 @@ std::vector<double> bias_vertices(const Field& f, const std::vector<double>& V,
     return out;
 }
 
-double smallest_angle_deg(Vec3 a, Vec3 b, Vec3 c) {
-    const Vec3 p[3] = {a, b, c};
-    double best = 180;
-    for (int k = 0; k < 3; ++k) {
-        const Vec3 u = p[(k + 1) % 3] - p[k], w = p[(k + 2) % 3] - p[k];
-        const double ang = std::atan2(norm(cross(u, w)), dot(u, w)) * 57.295779513082320876798154814105;
-        best = std::min(best, ang);
-    }
-    return best;
-}
-
 }  // namespace
 
 Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::string& error) {
@@ -99,11 +92,36 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
         }
         tol *= 1.25;
     }
-    const Level& lv = cl[0];
+    Level& lv = cl[0];
+    // slivers out (collider_angles.cpp): first on the ground vertices within the meshing
+    // tolerance, then once more on the final (biased) positions within the collider tolerance;
+    // each new triangle is kept within a share of its budget, a margin for the independent
+    // check's own sampling
+    const double target = s.collider_min_angle_deg;
+    const double mesh_tol = centered ? tol / 1.5 : tol;
+    AngleStats as = raise_min_angle(field, r.positions, lv.triangles, lv.chunk, target,
+                                    kColliderAngleMargin * mesh_tol, kMeasureOrder);
     const std::vector<double> P =
         centered ? bias_vertices(field, r.positions, lv.triangles, tol / 3, s.threads) : r.positions;
+    if (centered) {
+        const AngleStats more = raise_min_angle(field, P, lv.triangles, lv.chunk, target, kColliderAngleMargin * tol,
+                                                kMeasureOrder);
+        as.collapses += more.collapses;
+        as.flips += more.flips;
+        as.stuck = more.stuck;
+    }
+    {
+        // the pass only removes triangles: recount the largest chunk
+        std::vector<std::uint64_t> counts(r.chunk_count, 0);
+        for (std::uint32_t c : lv.chunk) ++counts[c];
+        out.max_triangles_per_chunk = counts.empty() ? 0 : *std::max_element(counts.begin(), counts.end());
+    }
+    out.min_angle_target_deg = target;
+    out.angle_collapses = as.collapses;
+    out.angle_flips = as.flips;
+    out.angle_stuck = as.stuck;
     const std::size_t NV = P.size() / 3, T = lv.chunk.size();
-    const Deviation dev = measure(field, P.data(), NV, lv.triangles.data(), T, kMeasureOrder, s.threads, nullptr);
+    const Deviation dev = measure_covered(field, P.data(), NV, lv.triangles.data(), T, kMeasureOrder, s.threads);
     out.tolerance_m = tol;
     out.triangles = T;
     out.max_error_m = dev.max_m;

@@ -21,7 +21,8 @@ int sampling_order(Vec3 V0, Vec3 V1, Vec3 V2, int order, double spacing_m) {
 }
 
 double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
-                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m) {
+                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m,
+                          const Vec3* cover, std::size_t cover_count, bool surface_only) {
     const double R = field.radius();
     order = sampling_order(V0, V1, V2, order, spacing_m);
     constexpr int kMaxSamples = 600;  // order <= 32
@@ -40,7 +41,10 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
         Vec3 u = (1.0 / pn) * p;
         double H = field.eval(u, nullptr);
         Vec3 S = (R + H) * u;
-        s2m_max = std::max(s2m_max, norm(S - closest_on_triangle(S, V0, V1, V2)));
+        double s2m = norm(S - closest_on_triangle(S, V0, V1, V2));
+        for (std::size_t c = 0; c < cover_count && s2m > s2m_max; ++c)
+            s2m = std::min(s2m, norm(S - closest_on_triangle(S, cover[3 * c], cover[3 * c + 1], cover[3 * c + 2])));
+        s2m_max = std::max(s2m_max, s2m);
         px[n] = p.x;
         py[n] = p.y;
         pz[n] = p.z;
@@ -73,6 +77,7 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
     // so take samples by decreasing radial bound and stop once no bound can raise the maximum
     std::sort(idx, idx + n, [&](int a, int b) { return radial[a] > radial[b] || (radial[a] == radial[b] && a < b); });
     double m2s_max = 0;
+    if (surface_only) n = 0;
     for (int k = 0; k < n; ++k) {
         int s = idx[k];
         if (radial[s] <= m2s_max) break;
@@ -86,22 +91,20 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
     return std::max(m2s_max, s2m_max);
 }
 
-Deviation measure(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
-                  std::size_t ntris, int order, int threads, double* per_triangle) {
-    (void)nverts;
-    order = std::max(order, 1);
+namespace {
+
+// the largest deviation over ntris triangles: one(t, scratch, m2s, s2m) measures triangle t
+// (scratch: a buffer of the calling block); per_triangle (optional) receives each result
+template <class One>
+Deviation measure_each(std::size_t ntris, int order, int threads, double* per_triangle, const One& one) {
     Deviation total;
     std::mutex mu;
     parallel_for(ntris, threads, [&](std::size_t b, std::size_t e) {
         Deviation local;
+        std::vector<Vec3> scratch;
         for (std::size_t t = b; t < e; ++t) {
-            Vec3 V[3];
-            for (int k = 0; k < 3; ++k) {
-                const double* p = P + 3 * static_cast<std::size_t>(T[3 * t + static_cast<std::size_t>(k)]);
-                V[k] = {p[0], p[1], p[2]};
-            }
             double m2s, s2m;
-            double worst = triangle_deviation(field, V[0], V[1], V[2], order, m2s, s2m);
+            const double worst = one(t, scratch, m2s, s2m);
             local.mesh_to_surface_m = std::max(local.mesh_to_surface_m, m2s);
             local.surface_to_mesh_m = std::max(local.surface_to_mesh_m, s2m);
             if (per_triangle) per_triangle[t] = worst;
@@ -113,6 +116,51 @@ Deviation measure(const Field& field, const double* P, std::size_t nverts, const
     total.max_m = std::max(total.mesh_to_surface_m, total.surface_to_mesh_m);
     total.samples = static_cast<std::uint64_t>(ntris) * static_cast<std::uint64_t>((order + 1) * (order + 2) / 2 - 3);
     return total;
+}
+
+Vec3 corner_of(const double* P, const std::uint32_t* T, std::size_t t, int k) {
+    const double* p = P + 3 * static_cast<std::size_t>(T[3 * t + static_cast<std::size_t>(k)]);
+    return {p[0], p[1], p[2]};
+}
+
+}  // namespace
+
+Deviation measure(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
+                  std::size_t ntris, int order, int threads, double* per_triangle) {
+    (void)nverts;
+    order = std::max(order, 1);
+    return measure_each(ntris, order, threads, per_triangle,
+                        [&](std::size_t t, std::vector<Vec3>&, double& m2s, double& s2m) {
+                            return triangle_deviation(field, corner_of(P, T, t, 0), corner_of(P, T, t, 1),
+                                                      corner_of(P, T, t, 2), order, m2s, s2m);
+                        });
+}
+
+Deviation measure_covered(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
+                          std::size_t ntris, int order, int threads) {
+    order = std::max(order, 1);
+    // triangles around each vertex (compressed rows)
+    std::vector<std::uint64_t> off(nverts + 1, 0);
+    for (std::size_t i = 0; i < 3 * ntris; ++i) ++off[T[i] + 1];
+    for (std::size_t v = 0; v < nverts; ++v) off[v + 1] += off[v];
+    std::vector<std::uint32_t> ring(off[nverts]);
+    {
+        std::vector<std::uint64_t> fill(off.begin(), off.end() - 1);
+        for (std::size_t i = 0; i < 3 * ntris; ++i) ring[fill[T[i]]++] = static_cast<std::uint32_t>(i / 3);
+    }
+    return measure_each(ntris, order, threads, nullptr,
+                        [&](std::size_t t, std::vector<Vec3>& cover, double& m2s, double& s2m) {
+                            cover.clear();
+                            for (int k = 0; k < 3; ++k) {
+                                const std::uint32_t v = T[3 * t + static_cast<std::size_t>(k)];
+                                for (std::uint64_t i = off[v]; i < off[v + 1]; ++i)
+                                    if (ring[i] != t)
+                                        for (int j = 0; j < 3; ++j) cover.push_back(corner_of(P, T, ring[i], j));
+                            }
+                            return triangle_deviation(field, corner_of(P, T, t, 0), corner_of(P, T, t, 1),
+                                                      corner_of(P, T, t, 2), order, m2s, s2m, 0, cover.data(),
+                                                      cover.size() / 3);
+                        });
 }
 
 }  // namespace gm

@@ -20,9 +20,14 @@ struct Deviation {
 int sampling_order(Vec3 V0, Vec3 V1, Vec3 V2, int order, double spacing_m);
 
 // largest deviation of one triangle over a barycentric grid of order
-// sampling_order(V0, V1, V2, order, spacing_m): a function of the corners and that order alone
+// sampling_order(V0, V1, V2, order, spacing_m): a function of the corners and that order alone.
+// surface -> mesh is the distance from the ground point above each sample to the triangle, or
+// to the nearest of `cover_count` more triangles (3 corners each) when given: the triangles
+// around it, which may hold the nearest point (still an upper bound on the distance to the mesh).
+// surface_only: surface -> mesh alone (mesh_to_surface is left 0)
 double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int order,
-                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m = 0);
+                          double& mesh_to_surface, double& surface_to_mesh, double spacing_m = 0,
+                          const Vec3* cover = nullptr, std::size_t cover_count = 0, bool surface_only = false);
 
 // samples every triangle on a barycentric grid of the given order (order+1)(order+2)/2 points;
 // mesh -> surface by projection onto the surface (and vertical walls), surface -> mesh as the
@@ -31,5 +36,12 @@ double triangle_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, int ord
 Deviation measure(const Field& field, const double* positions, std::size_t nverts,
                   const std::uint32_t* triangles, std::size_t ntris, int order, int threads,
                   double* per_triangle);
+
+// the same, but surface -> mesh of each triangle's samples is taken to the nearest of the
+// triangle and every triangle sharing a vertex with it (the colliders' measure: a sample on a
+// triangle spanning a vertical wall has its ground point on the wall's top or foot, which the
+// neighbour along the wall holds)
+Deviation measure_covered(const Field& field, const double* positions, std::size_t nverts,
+                          const std::uint32_t* triangles, std::size_t ntris, int order, int threads);
 
 }  // namespace gm

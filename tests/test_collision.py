@@ -1,15 +1,7 @@
 """Colliders in a real physics engine: spheres dropped on the per-chunk collision meshes in Bullet
-(pybullet, from the package index) come to rest on the true surface, within the collision
-tolerance plus a stated solver margin; plus the colliders' own guarantees (no degenerate
-triangles, every chunk under the triangle cap).
-
-How a drop works: pybullet's gravity is uniform, so for each drop place the nearby chunk colliders
-are moved so that the ground point under the drop sits at the origin (Bullet works near the origin)
-and rotated so that the local up `u` is +Z, making gravity (-Z) point to the planet centre (-u). A
-sphere falls from 2 m above the ground and settles. Its centre is mapped back to the planet
-frame and its distance to the analytic surface (`globemill.field(spec)`, itself checked against
-the plain-numpy reference of docs/terrain.md in test_field.py), minus the radius, is the resting
-error: the gap between the sphere and the true ground (> 0 floating, < 0 sunk in).
+(pybullet, from the package index; the drop itself is described in bullet_drops.py) come to rest on
+the true surface, within the collision tolerance plus a stated solver margin; plus the colliders'
+own guarantees (no degenerate triangles, every chunk under the triangle cap).
 
 Why the bound is the collider tolerance t plus the solver margin: every collider point lies within
 t of the true surface and every surface point within t of the collider (two-sided tolerance). The
@@ -21,26 +13,34 @@ r - penetration - t (triangle inequality).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import numpy.typing as npt
 import pybullet as pb
 import pytest
 import trimesh
+from bullet_drops import (
+    DROP_HEIGHT_M,
+    F64,
+    REST_SPEED_M_S,
+    SPHERE_RADIUS_M,
+    Drop,
+    away,
+    drop_all,
+    settle_sphere,
+    static_mesh,
+    unit,
+)
 
 import globemill
-from globemill.bake import BakeResult
-
-F64 = npt.NDArray[np.float64]
+from globemill.bake import COLLIDER_MIN_ANGLE_DEG, BakeResult
 
 RADIUS_M = 400.0
 TOLERANCE_M = 0.2
 COLLISION_TOLERANCE_M = 0.4
 TRIANGLE_CAP = 4096  # roomy: the colliders below must not need their tolerance raised
 
-SPHERE_RADIUS_M = 0.5
-DROP_HEIGHT_M = 2.0  # from the sphere's lowest point to the ground under it
 # Bullet solver margin allowed on top of the collider tolerance. 0.04 m is Bullet's default
 # split-impulse penetration threshold (btContactSolverInfo.h, m_splitImpulsePenetrationThreshold
 # = -0.04; the same value as CONVEX_DISTANCE_MARGIN in btCollisionMargin.h): penetrations shallower
@@ -50,28 +50,10 @@ DROP_HEIGHT_M = 2.0  # from the sphere's lowest point to the ground under it
 # against the exact sphere and the exact triangles. test_bullet_rests_on_exact_planes measures what
 # this engine build really leaves on exact planes and checks it is within this margin.
 SOLVER_MARGIN_M = 0.04
-# the dense sample of the true surface: a square of +-1.5 m around the foot of the centre with a
-# 1 cm grid. The nearest grid point is at most h/sqrt(2) sideways from the true foot point, which
-# overestimates the distance by about (h^2 / 2) / (2 r) = 5e-5 m (Pythagoras): negligible.
-SAMPLE_HALF_M = 1.5
-SAMPLE_STEP_M = 0.01
-
-TIME_STEP_S = 1.0 / 240.0  # pybullet's default fixedTimeStep (getPhysicsEngineParameters)
-SETTLE_STEPS = 1200  # 5 simulated seconds: 0.64 s of fall, the rest to settle
-REST_SPEED_M_S = 1e-3
 # keep the chunks with a triangle centroid this close to the ground point under the drop:
 # colliders at 0.4 m on a 400 m sphere have edges of a few tens of metres, and a settled sphere
 # moves at most a few metres
 CHUNK_REACH_M = 60.0
-# high friction and rolling friction so the sphere comes to rest on the hill flanks (about 20
-# degrees at their steepest) instead of rolling to the foot
-FRICTION = 1.0
-ROLLING_FRICTION = 0.5
-SPINNING_FRICTION = 0.01
-LINEAR_DAMPING = 0.1
-ANGULAR_DAMPING = 0.5
-GRAVITY_M_S2 = 9.81
-
 # the world: two hills, a valley, a mesa with a flat top and a 5 m wall, a crater
 HILLS = [(20.0, 10.0, 18.0, 30.0), (-15.0, 40.0, 12.0, 22.0)]  # lat, lon, amplitude, sigma
 VALLEY = (50.0, -60.0, -8.0, 40.0)
@@ -119,46 +101,25 @@ def _world(bias: str, cap: int = TRIANGLE_CAP) -> globemill.WorldSpec:
     )
 
 
-def _unit(lat_deg: float, lon_deg: float) -> F64:
-    # u(lat, lon) = (cos lat sin lon, sin lat, cos lat cos lon), docs/terrain.md
-    la, lo = np.radians(lat_deg), np.radians(lon_deg)
-    return np.array([np.cos(la) * np.sin(lo), np.sin(la), np.cos(la) * np.cos(lo)])
-
-
-def _frame(u: F64) -> F64:
-    """(3, 3) rows e1, e2, u: a right-handed orthonormal frame with u as its third axis."""
-    a = np.array([0.0, 1.0, 0.0]) if abs(u[1]) < 0.9 else np.array([1.0, 0.0, 0.0])
-    e1 = np.cross(a, u)
-    e1 /= np.linalg.norm(e1)
-    return np.stack([e1, np.cross(u, e1), u])
-
-
-def _away(centre: F64, distance_m: float, azimuth: float) -> F64:
-    """The direction `distance_m` along the base sphere from `centre` towards `azimuth`."""
-    f = _frame(centre)
-    t = np.cos(azimuth) * f[0] + np.sin(azimuth) * f[1]
-    theta = distance_m / RADIUS_M  # arc length = R * angle
-    return np.cos(theta) * centre + np.sin(theta) * t
-
-
 def _drop_places() -> list[tuple[str, F64]]:
     """Where to drop: mesa top, hill flanks and tops, valley floor, crater bowl, random."""
     places: list[tuple[str, F64]] = []
-    mesa = _unit(*MESA[:2])
+    mesa = unit(*MESA[:2])
     places.append(("mesa top centre", mesa))
     # on the flat top (radius 30 m), well inside its edge
-    places += [(f"mesa top {k}", _away(mesa, 8.0 + 3.0 * k, 1.3 * k)) for k in range(5)]
+    places += [(f"mesa top {k}", away(mesa, RADIUS_M, 8.0 + 3.0 * k, 1.3 * k)) for k in range(5)]
     for i, (la, lo, _, sigma) in enumerate(HILLS):
-        top = _unit(la, lo)
+        top = unit(la, lo)
         places.append((f"hill {i} top", top))
         # at d = sigma a Gaussian is at its steepest (inflection point)
         places += [
-            (f"hill {i} flank {k}", _away(top, sigma, 0.3 * i + k * np.pi / 2)) for k in range(4)
+            (f"hill {i} flank {k}", away(top, RADIUS_M, sigma, 0.3 * i + k * np.pi / 2))
+            for k in range(4)
         ]
-    places.append(("valley floor", _unit(*VALLEY[:2])))
-    crater = _unit(*CRATER[:2])
+    places.append(("valley floor", unit(*VALLEY[:2])))
+    crater = unit(*CRATER[:2])
     # the bowl spans d <= 40 m; stay on its inner slope
-    places += [(f"crater bowl {k}", _away(crater, 7.5 * k, 1.1 * k)) for k in range(5)]
+    places += [(f"crater bowl {k}", away(crater, RADIUS_M, 7.5 * k, 1.1 * k)) for k in range(5)]
     rng = np.random.default_rng(20240611)
     for k in range(12):
         v = rng.normal(size=3)  # normal vectors give uniform directions (Muller 1959)
@@ -166,103 +127,8 @@ def _drop_places() -> list[tuple[str, F64]]:
     return places
 
 
-@dataclass
-class Drop:
-    place: str
-    gap_m: float  # distance from the centre to the true surface minus the radius
-    centre_above_m: float  # radial height of the centre above the ground
-    speed_m_s: float
-    contacts: int
-
-
-def _static_chunks(cid: int, res: BakeResult, origin: F64, rot: F64) -> int:
-    """One static concave triangle-mesh body per chunk collider near `origin`; returns count."""
-    made = 0
-    for col in res.colliders:
-        centroids = col.positions[col.triangles].mean(axis=1)
-        if np.min(np.linalg.norm(centroids - origin, axis=1)) > CHUNK_REACH_M:
-            continue
-        local = (col.positions - origin) @ rot.T
-        shape = pb.createCollisionShape(
-            pb.GEOM_MESH,
-            vertices=local.tolist(),
-            indices=col.triangles.astype(np.int64).ravel().tolist(),
-            flags=pb.GEOM_FORCE_CONCAVE_TRIMESH,
-            physicsClientId=cid,
-        )
-        body = pb.createMultiBody(0, shape, physicsClientId=cid)
-        pb.changeDynamics(
-            body,
-            -1,
-            lateralFriction=FRICTION,
-            rollingFriction=ROLLING_FRICTION,
-            restitution=0.0,
-            physicsClientId=cid,
-        )
-        made += 1
-    return made
-
-
-def _settle_sphere(cid: int, start: F64) -> tuple[F64, float, int]:
-    """Drop a sphere with its centre at `start` (local frame, gravity -Z); return its resting
-    centre, its speed and its number of contact points."""
-    pb.setGravity(0.0, 0.0, -GRAVITY_M_S2, physicsClientId=cid)
-    pb.setTimeStep(TIME_STEP_S, physicsClientId=cid)
-    shape = pb.createCollisionShape(pb.GEOM_SPHERE, radius=SPHERE_RADIUS_M, physicsClientId=cid)
-    sphere = pb.createMultiBody(1.0, shape, basePosition=start.tolist(), physicsClientId=cid)
-    pb.changeDynamics(
-        sphere,
-        -1,
-        lateralFriction=FRICTION,
-        rollingFriction=ROLLING_FRICTION,
-        spinningFriction=SPINNING_FRICTION,
-        restitution=0.0,
-        linearDamping=LINEAR_DAMPING,
-        angularDamping=ANGULAR_DAMPING,
-        physicsClientId=cid,
-    )
-    for _ in range(SETTLE_STEPS):
-        pb.stepSimulation(physicsClientId=cid)
-    pos, _ = pb.getBasePositionAndOrientation(sphere, physicsClientId=cid)
-    vel, _ = pb.getBaseVelocity(sphere, physicsClientId=cid)
-    contacts = len(pb.getContactPoints(sphere, physicsClientId=cid))
-    return np.array(pos), float(np.linalg.norm(vel)), contacts
-
-
-def _gap_to_surface(fld: globemill.Field, centre: F64) -> tuple[float, float]:
-    """Signed distance from `centre` to a dense local sample of the true surface minus the
-    sphere radius, and the radial height of the centre above the ground."""
-    up = centre / np.linalg.norm(centre)
-    f = _frame(up)
-    g = np.arange(-SAMPLE_HALF_M, SAMPLE_HALF_M + SAMPLE_STEP_M / 2, SAMPLE_STEP_M)
-    x, y = (a.reshape(-1, 1) for a in np.meshgrid(g, g))
-    dirs = RADIUS_M * up + x * f[0] + y * f[1]
-    ground = fld.surface(dirs)
-    dist = float(np.min(np.linalg.norm(ground - centre, axis=1)))
-    above = float(np.linalg.norm(centre) - RADIUS_M - fld.height(up[None])[0])
-    # a centre below the ground (inside the solid) is sunk by its distance plus the radius
-    signed = dist if above >= 0 else -dist
-    return signed - SPHERE_RADIUS_M, above
-
-
 def _drop_all(res: BakeResult) -> list[Drop]:
-    fld = globemill.field(res.spec)
-    cid = pb.connect(pb.DIRECT)
-    out = []
-    try:
-        for place, u in _drop_places():
-            pb.resetSimulation(physicsClientId=cid)
-            origin = fld.surface(u[None])[0]
-            rot = _frame(u)  # planet frame -> local frame with u as +Z
-            assert _static_chunks(cid, res, origin, rot) > 0, place
-            start = np.array([0.0, 0.0, DROP_HEIGHT_M + SPHERE_RADIUS_M])
-            local, speed, contacts = _settle_sphere(cid, start)
-            centre = origin + rot.T @ local
-            gap, above = _gap_to_surface(fld, centre)
-            out.append(Drop(place, gap, above, speed, contacts))
-    finally:
-        pb.disconnect(physicsClientId=cid)
-    return out
+    return drop_all(res, _drop_places(), CHUNK_REACH_M)
 
 
 @pytest.fixture(scope="module")
@@ -286,23 +152,8 @@ def test_bullet_rests_on_exact_planes() -> None:
         corners = 50.0 * np.array([-a - b, a - b, a + b, -a + b])
         cid = pb.connect(pb.DIRECT)
         try:
-            shape = pb.createCollisionShape(
-                pb.GEOM_MESH,
-                vertices=corners.tolist(),
-                indices=[0, 1, 2, 0, 2, 3],
-                flags=pb.GEOM_FORCE_CONCAVE_TRIMESH,
-                physicsClientId=cid,
-            )
-            body = pb.createMultiBody(0, shape, physicsClientId=cid)
-            pb.changeDynamics(
-                body,
-                -1,
-                lateralFriction=FRICTION,
-                rollingFriction=ROLLING_FRICTION,
-                restitution=0.0,
-                physicsClientId=cid,
-            )
-            centre, speed, contacts = _settle_sphere(cid, n * (DROP_HEIGHT_M + SPHERE_RADIUS_M))
+            static_mesh(cid, corners, np.array([[0, 1, 2], [0, 2, 3]]))
+            centre, speed, contacts = settle_sphere(cid, n * (DROP_HEIGHT_M + SPHERE_RADIUS_M))
         finally:
             pb.disconnect(physicsClientId=cid)
         # distance from a point to a plane through the origin with unit normal n: c . n
@@ -394,3 +245,167 @@ def test_every_chunk_fits_a_tight_triangle_cap(baked: dict[str, BakeResult]) -> 
     assert col["tolerance_m"] > COLLISION_TOLERANCE_M
     assert col["max_error_m"] <= col["tolerance_m"]
     _triangle_checks(res)
+
+
+# ---- the collider angle pass (csrc/collider_angles.cpp) -------------------------------------
+
+DEMO = Path(__file__).resolve().parent.parent / "examples" / "pebblemoor.toml"
+
+
+def _angles_deg(positions: F64, triangles: npt.NDArray[np.uint32]) -> F64:
+    """(t,) smallest interior angle of each triangle, from the law of cosines on edge lengths
+    (a different formula from the core's atan2 of cross and dot products)."""
+    p = positions[triangles]
+    a = np.linalg.norm(p[:, 1] - p[:, 2], axis=1)
+    b = np.linalg.norm(p[:, 2] - p[:, 0], axis=1)
+    c = np.linalg.norm(p[:, 0] - p[:, 1], axis=1)
+    # the smallest angle is opposite the shortest edge: cos = (long1^2 + long2^2 - short^2) / ...
+    s = np.sort(np.stack([a, b, c], axis=1), axis=1)
+    cos = (s[:, 1] ** 2 + s[:, 2] ** 2 - s[:, 0] ** 2) / (2 * s[:, 1] * s[:, 2])
+    return np.degrees(np.arccos(np.clip(cos, -1.0, 1.0)))
+
+
+def _collider_angles(res: BakeResult) -> F64:
+    return np.concatenate([_angles_deg(c.positions, c.triangles) for c in res.colliders])
+
+
+def _bake_angle_target(spec: globemill.WorldSpec, target: float | None, threads: int) -> BakeResult:
+    # the core's optional setting collider_min_angle_deg (0: no angle pass) is not part of the
+    # spec: the peer without the pass is today's plain cut of the hierarchy
+    from globemill import _core
+    from globemill.bake import _wrap, named_features, settings
+    from globemill.field import Field
+
+    s = settings(spec, threads=threads)
+    if target is not None:
+        s["collider_min_angle_deg"] = target
+    with named_features(spec):
+        return _wrap(spec, s, _core.bake(Field(spec)._core, s, None))
+
+
+def _walled_world() -> globemill.WorldSpec:
+    # a mesa with a vertical 10 m wall (wall_m = 0) and a block with vertical walls: the ground
+    # where a height field over well-shaped directions makes slivers in space
+    return globemill.parse_spec(
+        {
+            "name": "sheerstone",
+            "radius_m": RADIUS_M,
+            "tolerance_m": 0.25,
+            "lod": {"levels": 1},
+            "collision": {"tolerance_m": 1.0},
+            "features": [
+                {
+                    "kind": "mesa",
+                    "lat_deg": 10,
+                    "lon_deg": 20,
+                    "height_m": 10.0,
+                    "radius_m": 25.0,
+                    "wall_m": 0.0,
+                },
+                {
+                    "kind": "block",
+                    "lat_deg": -20,
+                    "lon_deg": -40,
+                    "height_m": 6.0,
+                    "half_x_m": 12.0,
+                    "half_y_m": 5.0,
+                    "heading_deg": 30.0,
+                    "corner_m": 0.0,
+                    "wall_m": 0.0,
+                },
+            ],
+        }
+    )
+
+
+@pytest.fixture(scope="module")
+def walled() -> dict[str, BakeResult]:
+    spec = _walled_world()
+    return {
+        "pass": _bake_angle_target(spec, None, threads=2),
+        "pass 1 thread": _bake_angle_target(spec, None, threads=1),
+        "no pass": _bake_angle_target(spec, 0.0, threads=2),
+    }
+
+
+def test_angle_pass_removes_slivers_on_vertical_walls(walled: dict[str, BakeResult]) -> None:
+    on, off = walled["pass"], walled["no pass"]
+    a_on, a_off = _collider_angles(on), _collider_angles(off)
+    # the plain cut has slivers on the walls (a foot edge of about the tolerance under a 10 m
+    # wall: about atan(1 / 10) = 6 degrees or less)
+    assert a_off.min() < 5.0
+    assert a_on.min() > a_off.min()
+    assert (a_on < 10).sum() < (a_off < 10).sum() / 2, ((a_on < 10).sum(), (a_off < 10).sum())
+    for res in (on, off):
+        col = res.report["collision"]
+        # the report's smallest angle is the one of the triangles written out
+        assert col["min_angle_deg"] == pytest.approx(_collider_angles(res).min(), abs=1e-6)
+        assert col["max_error_m"] <= col["tolerance_m"]
+        _triangle_checks(res)
+    assert on.report["collision"]["min_angle_target_deg"] == COLLIDER_MIN_ANGLE_DEG
+    assert off.report["collision"]["min_angle_target_deg"] == 0
+
+
+def test_angle_pass_keeps_colliders_closed_and_on_the_surface(
+    walled: dict[str, BakeResult],
+) -> None:
+    res = walled["pass"]
+    # reference library: the welded colliders of all chunks are one closed, consistently wound
+    # surface (trimesh's watertight and winding checks)
+    pos = np.concatenate([c.positions for c in res.colliders])
+    starts = np.cumsum([0] + [len(c.positions) for c in res.colliders])
+    tris = np.concatenate([c.triangles + s for c, s in zip(res.colliders, starts, strict=False)])
+    mesh = trimesh.Trimesh(pos, tris, process=True)  # process=True merges equal vertices
+    assert mesh.is_watertight and mesh.is_winding_consistent
+    # outward: the enclosed volume is positive and near the sphere's (4/3 pi R^3)
+    assert mesh.volume > 0
+    assert mesh.volume == pytest.approx(4 / 3 * np.pi * RADIUS_M**3, rel=0.01)
+    # the independent measure of docs/lod.md agrees with the report (globemill check)
+    fld = globemill.field(res.spec)
+    for c in res.colliders:
+        g = fld.surface(c.positions)
+        # vertices moved by the centered bias by at most a third of the tolerance, radially
+        shift = np.abs(np.linalg.norm(c.positions, axis=1) - np.linalg.norm(g, axis=1))
+        assert shift.max() <= res.report["collision"]["tolerance_m"] / 3 + 1e-9
+
+
+def test_angle_pass_does_not_depend_on_the_thread_count(walled: dict[str, BakeResult]) -> None:
+    a, b = walled["pass"], walled["pass 1 thread"]
+    assert len(a.colliders) == len(b.colliders)
+    for x, y in zip(a.colliders, b.colliders, strict=True):
+        assert x.positions.tobytes() == y.positions.tobytes()
+        assert x.triangles.tobytes() == y.triangles.tobytes()
+
+
+@pytest.fixture(scope="module")
+def demo() -> BakeResult:
+    return globemill.bake(globemill.load_spec(DEMO), threads=2)
+
+
+@pytest.mark.slow
+def test_demo_collider_angles_match_the_report(demo: BakeResult) -> None:
+    angles = _collider_angles(demo)
+    col = demo.report["collision"]
+    assert col["min_angle_deg"] == pytest.approx(angles.min(), abs=1e-6)
+    # reference library: trimesh's face angles (radians, arccos of normalised dot products)
+    worst = min(
+        float(trimesh.Trimesh(c.positions, c.triangles, process=False).face_angles.min())
+        for c in demo.colliders
+    )
+    assert np.degrees(worst) == pytest.approx(angles.min(), abs=1e-4)
+    assert col["max_error_m"] <= col["tolerance_m"]
+    # measured on this world (docs/lod.md): the plain cut had 0.90 degrees and 2093 triangles
+    # under 10 degrees; the pass leaves its ribbons on the 28 m vertical wall of Sheer Tor and
+    # the quarry, a few hundred triangles at most under 10 degrees
+    assert angles.min() > 0.90
+    assert (angles < 10).sum() < 300
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(
+    strict=True,
+    reason="not reached: a ribbon spanning a 28 m vertical wall is at most about twice the "
+    "collider tolerance wide under the core's measure (docs/lod.md, Collider angles)",
+)
+def test_demo_collider_min_angle_is_at_least_10_degrees(demo: BakeResult) -> None:
+    assert _collider_angles(demo).min() >= 10.0

@@ -209,6 +209,8 @@ BakeSettings settings_from(const py::dict& d) {
     s.collision_tolerance_m = get("collision_tolerance_m").cast<double>();
     s.collision_centered = get("collision_centered").cast<bool>();
     s.collider_cap = get("collider_cap").cast<std::uint64_t>();
+    // optional: the collider angle pass's target (benchmarks switch it off to compare)
+    if (d.contains("collider_min_angle_deg")) s.collider_min_angle_deg = d["collider_min_angle_deg"].cast<double>();
     s.threads = get("threads").cast<int>();
     s.accept_over_tolerance = get("accept_over_tolerance").cast<bool>();
     s.layers = layers_from(get("layers"));
@@ -309,6 +311,10 @@ public:
         d["mesh_to_surface_m"] = cr.mesh_to_surface_m;
         d["surface_to_mesh_m"] = cr.surface_to_mesh_m;
         d["min_angle_deg"] = cr.min_angle_deg;
+        d["min_angle_target_deg"] = cr.min_angle_target_deg;
+        d["angle_collapses"] = cr.angle_collapses;
+        d["angle_flips"] = cr.angle_flips;
+        d["angle_stuck"] = cr.angle_stuck;
         d["degenerate_triangles"] = cr.degenerate_triangles;
         d["seconds"] = cr.seconds;
         py::list chunks;
@@ -467,6 +473,7 @@ PYBIND11_MODULE(_core, m) {
     py::register_exception<BakeFailure>(m, "BakeError", PyExc_ValueError);
     m.attr("MEASURE_ORDER") = kMeasureOrder;
     m.attr("MIN_ANGLE_DEG") = kMinAngleDeg;
+    m.attr("COLLIDER_MIN_ANGLE_DEG") = kColliderMinAngleDeg;
     m.attr("NO_LAYER") = kNoLayer;
     py::class_<PyBake>(m, "Bake")
         .def("pool", &PyBake::pool)

@@ -26,6 +26,8 @@ SEAM_MODES = ("stitch", "skirt")
 # the core's constants (csrc/bake.hpp), read from it
 MEASURE_ORDER: int = _core.MEASURE_ORDER
 MIN_ANGLE_DEG: float = _core.MIN_ANGLE_DEG
+# what the collider angle pass aims for (the report's collision.min_angle_deg: what it reached)
+COLLIDER_MIN_ANGLE_DEG: float = _core.COLLIDER_MIN_ANGLE_DEG
 NO_LAYER: int = _core.NO_LAYER
 
 Progress = Callable[[str, int, int], None]
@@ -317,6 +319,12 @@ def _wrap(
             "surface_to_mesh_m": col["surface_to_mesh_m"],
             "bias": spec.collision.bias,
             "min_angle_deg": col["min_angle_deg"],
+            "min_angle_target_deg": col["min_angle_target_deg"],
+            "angle_moves": {
+                "collapses": int(col["angle_collapses"]),
+                "flips": int(col["angle_flips"]),
+                "below_target": int(col["angle_stuck"]),
+            },
             "degenerate_triangles": int(col["degenerate_triangles"]),
             "seconds": col["seconds"],
         }

@@ -1,0 +1,34 @@
+// the collider angle pass: raises the smallest triangle angle of a closed collider mesh by
+// edge collapses and edge flips, each checked against the true surface.
+#pragma once
+
+#include <cstdint>
+#include <vector>
+
+#include "field.hpp"
+#include "vec.hpp"
+
+namespace gm {
+
+// smallest interior angle of triangle (a, b, c) in degrees (0 for a collinear one)
+double smallest_angle_deg(Vec3 a, Vec3 b, Vec3 c);
+
+struct AngleStats {
+    std::uint64_t collapses = 0, flips = 0;
+    std::uint64_t stuck = 0;  // triangles below the target that no allowed move improves
+};
+
+// raises every triangle angle below `target_deg` as far as the moves allow. positions P (3 per
+// vertex) never move; `tris` (3 per triangle, counter-clockwise from outside) and `chunk` (one per
+// triangle) are rewritten in place: collapsed triangles removed, the others kept in their order,
+// so triangles stay grouped by chunk. a move is taken only when it raises the smallest angle of
+// the triangles it changes, keeps each changed triangle's normal within 75 degrees of where it
+// was, keeps the mesh a closed 2-manifold (link condition) and leaves every new triangle within
+// `tolerance_m` of the surface, measured as `measure` does on a grid of twice `measure_order`
+// (a superset of its samples, so the bake's own measurement of a new triangle never exceeds it).
+// sequential and ordered by (angle, triangle): the same input gives the same mesh.
+AngleStats raise_min_angle(const Field& field, const std::vector<double>& P, std::vector<std::uint32_t>& tris,
+                           std::vector<std::uint32_t>& chunk, double target_deg, double tolerance_m,
+                           int measure_order);
+
+}  // namespace gm
