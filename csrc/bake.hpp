@@ -27,7 +27,7 @@ constexpr double kTauHeadroom = 8.0;
 constexpr double kMinAngleDeg = 24.0;
 // the smallest triangle angle the collider angle pass aims for (collider_angles.cpp); the report's
 // collision.min_angle_deg is what it reached
-constexpr double kColliderMinAngleDeg = 20.0;
+constexpr double kColliderMinAngleDeg = 12.0;
 // colliders default to this many times the finest render tolerance
 constexpr double kColliderToleranceFactor = 4.0;
 // skirts default to hanging this many times the coarsest level's tolerance

@@ -284,7 +284,7 @@ def _bake_angle_target(spec: globemill.WorldSpec, target: float | None, threads:
 
 
 def _walled_world() -> globemill.WorldSpec:
-    # a mesa with a vertical 10 m wall (wall_m = 0) and a block with vertical walls: the ground
+    # a mesa with a vertical 10 m wall (wall_width_m = 0) and a block with vertical walls: the ground
     # where a height field over well-shaped directions makes slivers in space
     return globemill.parse_spec(
         {
@@ -300,7 +300,7 @@ def _walled_world() -> globemill.WorldSpec:
                     "lon_deg": 20,
                     "height_m": 10.0,
                     "radius_m": 25.0,
-                    "wall_m": 0.0,
+                    "wall_width_m": 0.0,
                 },
                 {
                     "kind": "block",
@@ -309,9 +309,9 @@ def _walled_world() -> globemill.WorldSpec:
                     "height_m": 6.0,
                     "half_x_m": 12.0,
                     "half_y_m": 5.0,
-                    "heading_deg": 30.0,
-                    "corner_m": 0.0,
-                    "wall_m": 0.0,
+                    "bearing_deg": 60.0,
+                    "corner_radius_m": 0.0,
+                    "wall_width_m": 0.0,
                 },
             ],
         }
