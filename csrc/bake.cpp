@@ -4,6 +4,7 @@
 #include <algorithm>
 #include <chrono>
 #include <cmath>
+#include <cstdio>
 
 #include "attributes.hpp"
 #include "chunks.hpp"
@@ -88,9 +89,15 @@ Status check_feature_sizes(const Field& field, double tol, std::string& error) {
         smallest = std::ceil(smallest / unit) * unit;
         static const char* const kSize[] = {"sigma_m", "radius_m", "min(half_x_m, half_y_m)",
                                             "min(radius_m, rim_width_m)", "half_width_m", ""};
+        char quoted[32];
+        std::snprintf(quoted, sizeof quoted, "%.3g", smallest);
+        // max, min and set can change the ground by more than their own height (Field::amp_m)
+        const std::string what = f.blend == Blend::Add ? "a feature " + num(f.amp_m) + " m tall"
+                                                       : "a feature that can change the ground by " + num(f.amp_m) +
+                                                             " m (its blend can undo the features beneath it)";
         error = "features[" + std::to_string(i) + "]: too thin to mesh at tolerance " + num(tol) + " m: its " +
-                kSize[static_cast<int>(f.kind)] + " is " + num(f.scale_m) + " m; at this tolerance a feature " +
-                num(f.amp_m) + " m tall needs at least " + num(smallest) +
+                kSize[static_cast<int>(f.kind)] + " is " + num(f.scale_m) + " m; at this tolerance " + what +
+                " needs at least " + quoted +
                 " m (tolerance/8 x sqrt(amplitude/tolerance)); widen it, lower it, or raise tolerance_m";
         return Status::InvalidArgument;
     }

@@ -31,7 +31,7 @@ struct Feature {
     // the test conservative against rounding); -2 for a feature that covers the world
     double outside_cos = -2;
     double scale_m = 0;    // smallest length a probe grid must resolve to see the feature
-    double amp_m = 0;      // largest change of H the feature can make (m)
+    double amp_m = 0;      // largest change of H the feature can make (m), blends included
     bool step = false;     // wall of width zero: H jumps across the rim
     int noise_table = -1;  // index into Field::perms_
 };
@@ -140,6 +140,7 @@ private:
     void contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& out) const;
     double noise(const Feature& f, Vec3 u, Vec3* grad) const;
     void build_index();
+    void widen_blend_amplitudes();  // amp_m of max/min/set features (see field.cpp)
     std::size_t cell_of(Vec3 u) const;  // the index leaf holding u
 
     double radius_ = 1;

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import itertools
 import math
+import sys
 
 import numpy as np
 import pytest
@@ -200,3 +201,70 @@ def test_budget_estimate_is_near_the_real_count() -> None:
         est = _core.estimate_triangles(globemill.field(spec)._core, tol)
         # measured on this machine: 0.88x (sphere, 0.5 m), 5.0x (demo, 2 m), 1.95x (demo, 0.5 m)
         assert 0.5 * real <= est <= 6 * real, (est, real)
+
+
+# ---- features too thin to mesh: refused, naming the feature and the smallest size --------------
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:
+    import tomli as tomllib
+
+THIN_PIT = "tests/data/thin_pit.toml"
+
+
+def _thin_world(feature: dict, tolerance_m: float = 1.0) -> globemill.WorldSpec:
+    return _world([feature], radius_m=300.0, tolerance_m=tolerance_m)
+
+
+@pytest.mark.parametrize(
+    ("feature", "field", "smallest"),
+    [
+        # the cases at tolerance 1 m; smallest = tolerance/8 x sqrt(height/tolerance),
+        # rounded up to three digits: 1/8 x sqrt(30) = 0.6847 -> 0.685, 1/8 x sqrt(20) = 0.559
+        ({"kind": "hill", "amplitude_m": 30.0, "sigma_m": 1e-9}, "sigma_m", "0.685"),
+        ({"kind": "hill", "amplitude_m": 30.0, "sigma_m": 0.05}, "sigma_m", "0.685"),
+        (
+            {"kind": "block", "height_m": 20.0, "half_x_m": 1e-9, "half_y_m": 1e-9,
+             "wall_m": 0.0, "heading_deg": 0.0, "corner_m": 0.0},
+            "min(half_x_m, half_y_m)", "0.56",
+        ),
+    ],
+)  # fmt: skip
+def test_a_feature_too_thin_is_refused_by_name(feature: dict, field: str, smallest: str) -> None:
+    spec = _thin_world({"name": "Needle", "lat_deg": 10.0, "lon_deg": 20.0, **feature})
+    with pytest.raises(ValueError) as err:
+        globemill.bake(spec, levels=1, collision=False)
+    msg = str(err.value)
+    assert "features[0] ('Needle')" in msg and "too thin to mesh at tolerance 1 m" in msg
+    assert f"its {field} is" in msg and f"needs at least {smallest} m" in msg
+
+
+def test_a_thin_blend_that_digs_through_the_ground_beneath_is_refused() -> None:
+    # tests/data/thin_pit.toml: a 1 mm `set` disc at height 0 on a 40 m dome. Its own height is
+    # 0 but it moves the ground by 40 m (docs/terrain.md, set: H <- H + m (p - H)); the bake used
+    # to miss the pit and report 0.797 m within 1 m. 1/8 x sqrt(40) = 0.7906 -> 0.791 m
+    spec = globemill.load_spec(THIN_PIT)
+    with pytest.raises(ValueError) as err:
+        globemill.bake(spec, levels=1, collision=False)
+    msg = str(err.value)
+    assert "features[1] ('Well Shaft')" in msg and "its radius_m is 0.001 m" in msg
+    assert "can change the ground by 40 m" in msg and "needs at least 0.791 m" in msg
+
+
+def test_a_thin_blend_at_the_smallest_allowed_size_is_meshed() -> None:
+    # just above the quoted size the pit is meshed: the ground point at the bottom of the pit
+    # (docs/terrain.md: set to 0, so (R + 0) u) lies within the tolerance of the mesh, measured
+    # by trimesh's closest-point query (reference library); before, the mesh passed 39.6 m above
+    with open(THIN_PIT, "rb") as fh:
+        data = tomllib.load(fh)
+    data["features"][1]["radius_m"] = 0.8
+    spec = globemill.parse_spec(data)
+    b = globemill.bake(spec, levels=1, collision=False)
+    v, t = b.mesh(0)
+    lat, lon = math.radians(10.0), math.radians(20.0)
+    u = np.array([math.cos(lat) * math.sin(lon), math.sin(lat), math.cos(lat) * math.cos(lon)])
+    _, dist, _ = trimesh.proximity.closest_point(
+        trimesh.Trimesh(v, t, process=False), (spec.radius_m * u)[None]
+    )
+    assert dist[0] <= spec.tolerance_m
