@@ -249,10 +249,10 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     ro.verify_order = kMeasureOrder;
     ro.min_level = 2 * settings.chunk_level;
     ro.tau_cap = plan.tau_cap_m;
-    std::uint64_t estimate = 0;
+    // the total is the budget survey's estimate once the survey is done
     if (settings.progress)
     {
-        ro.progress = [&](int, std::uint64_t leaves) { progress(kStageRefine, leaves, std::max(estimate, leaves)); };
+        ro.progress = [&](int, std::uint64_t leaves) { progress(kStageRefine, leaves, std::max(r.stats.estimate, leaves)); };
         ro.verify_progress = [&](std::uint64_t done, std::uint64_t total) { progress(kStageVerify, done, total); };
     }
     const Hierarchy* previous = inc && inc->previous ? &inc->previous->hierarchy : nullptr;
@@ -264,7 +264,6 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     Hierarchy local;
     Hierarchy& h = state ? state->hierarchy : local;
     h = Hierarchy{};
-    if (settings.progress) estimate = estimate_triangles(field, plan.finest_m);
     EvalTally ev = eval_tally();
     st = build_hierarchy(field, ro, h, r.stats, error);
     if (st != Status::Ok) return st;

@@ -14,6 +14,7 @@
 #include <atomic>
 #include <chrono>
 #include <cmath>
+#include <cstdio>
 #include <thread>
 
 namespace gm {
@@ -23,7 +24,34 @@ constexpr int kMaxLevel = 60;
 // probes sample the triangle sparsely: they aim a little inside the tolerance so that the denser
 // a posteriori verification still finds the mesh within it
 constexpr double kProbeMargin = 0.8;
+// the budget survey (estimate_triangles): refinement first runs to kSurveyFactor times the
+// tolerance. that is a prefix of the real refinement (the same nodes, each tested once), so in a
+// bake it costs nothing. a survey leaf of critical tolerance tau then stands for about
+// kSurveyGrowth * tau / tolerance leaves at the tolerance: tau grows with a leaf's area on smooth
+// ground (deviation ~ curvature * h^2) and with its size across a wall or crease, whose leaves
+// line up along it, so in both cases the leaves below it number about tau / tolerance; the factor
+// (closure, grading and the probes' margin) is measured, see docs/meshing.md.
+constexpr double kSurveyFactor = 4;
+constexpr double kSurveyGrowth = 1.8;
+// the survey is stated within this factor of the real count: a bake is refused on the estimate
+// only when it exceeds the budget by more; nearer the budget the real count decides
+constexpr double kSurveySlack = 1.5;
 constexpr double kPi = 3.14159265358979323846;
+
+std::string num_text(double x) {
+    char b[32];
+    std::snprintf(b, sizeof b, "%g", x);
+    return b;
+}
+
+std::string with_commas(std::uint64_t n) {
+    std::string d = std::to_string(n), out;
+    for (std::size_t i = 0; i < d.size(); ++i) {
+        if (i > 0 && (d.size() - i) % 3 == 0) out += ',';
+        out += d[i];
+    }
+    return out;
+}
 
 struct Probe {
     double b0, b1, b2;
@@ -59,10 +87,17 @@ private:
     Vec3 pos(std::uint32_t v) const { return rad[v] * dir[v]; }
     Cap cap_of(const Node& t) const { return node_cap(h, t); }
     void assign_list(Node& t, const Cap& cap, std::uint32_t parent_off, std::uint32_t parent_cnt);
-    double critical_tolerance(const Node& t) const;
+    double critical_tolerance(const Node& t, float& fine) const;
+    // the tolerance the current phase splits to (the survey's, then the finest)
+    double split_tol = 0;
     bool wants_split(const Node& t) const {
-        return t.level < opt.min_level || t.tau > opt.tolerance_m;
+        return t.level < opt.min_level || t.tau > split_tol || t.tau_fine > opt.tolerance_m;
     }
+    Status grow(std::vector<std::uint32_t>& active, RefineStats& stats, std::string& error,
+                std::uint64_t leaf_cap, int& round);
+    double survey_estimate(std::uint32_t* driver, double* share, double* open_share) const;
+    std::uint64_t survey_floor = 0;  // when the survey stopped at its cap: leaves it had due
+    std::string budget_message(const std::string& what, std::uint64_t count) const;
     Status verify(RefineStats& stats, std::string& error);
     double midpoint_radius(const Node& t) const;
     void split(std::uint32_t t);
@@ -128,7 +163,8 @@ double Refiner::midpoint_radius(const Node& t) const {
 // the critical tolerance of one triangle: below it, the triangle must be split. one number per
 // triangle serves every level of detail (a level at tolerance e splits exactly the triangles with
 // tau > e, plus their closure), so the coarser levels cost no further probing.
-double Refiner::critical_tolerance(const Node& t) const {
+double Refiner::critical_tolerance(const Node& t, float& fine) const {
+    fine = 0;
     if (t.level >= kMaxLevel) return 0;
     const double m = kProbeMargin;
     const std::uint32_t* list = pool.data() + t.list_off;
@@ -168,9 +204,10 @@ double Refiner::critical_tolerance(const Node& t) const {
             if (crosses) tau = std::max(tau, std::min(size / 2, 2 * f.amp_m) / m);
         }
     }
+    fine = static_cast<float>(std::min(tau, 8 * size / m));
     // probes on the flat triangle against the surface, both ways
     const bool walls = opt.mode != OffsetMode::Radial && F.has_steps();
-    const double cap_tau = std::max(opt.tau_cap, opt.tolerance_m);
+    const double cap_tau = std::max(opt.tau_cap, kSurveyFactor * opt.tolerance_m);
     auto probe = [&](Vec3 p) {
         double pn = norm(p);
         Vec3 u = (1.0 / pn) * p;
@@ -313,14 +350,6 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         error = "chunk level must be in 0..10";
         return Status::InvalidArgument;
     }
-    stats.estimate = std::max<std::uint64_t>(estimate_triangles(F, tol),
-                                             20ull << static_cast<unsigned>(opt.min_level));
-    if (stats.estimate > opt.max_triangles) {
-        error = "tolerance_m=" + std::to_string(tol) + " would need about " +
-                std::to_string(stats.estimate) + " triangles, more than max_triangles=" +
-                std::to_string(opt.max_triangles) + "; raise tolerance_m or max_triangles";
-        return Status::BudgetExceeded;
-    }
     std::vector<Vec3> iv;
     std::vector<std::uint32_t> faces;
     icosahedron(iv, faces);
@@ -394,49 +423,55 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
     std::vector<std::uint32_t> active(20);
     for (std::uint32_t i = 0; i < 20; ++i) active[i] = i;
     int round = 0;
-    while (!active.empty()) {
-        // test every new triangle in parallel; each writes only its own node
-        parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
-            for (std::size_t i = b; i < e; ++i) {
-                Node& t = tris[active[i]];
-                const Node* o = nullptr;
-                if (opt.previous && reuse[active[i]]) {
-                    o = &opt.previous->nodes[h.origin[active[i]]];
-                    if (!o->tested) o = nullptr;
-                }
-                t.tau = o ? o->tau : critical_tolerance(t);
-                t.tested = 1;
-                if (wants_split(t) && std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
-            }
-        });
-        stats.tested += active.size();
-        if (opt.previous)
-            for (std::uint32_t id : active)
-                if (reuse[id] && opt.previous->nodes[h.origin[id]].tested) ++stats.reused;
-        // split serially in index order: the result does not depend on the thread count
-        std::size_t first_new = tris.size();
-        for (std::uint32_t id : active) {
-            if (!wants_split(tris[id])) continue;
-            split(id);
-            if (leaves > opt.max_triangles) {
-                error = "refinement passed max_triangles=" + std::to_string(opt.max_triangles) +
-                        " at tolerance_m=" + std::to_string(tol) +
-                        "; raise tolerance_m or max_triangles";
-                return Status::BudgetExceeded;
-            }
+    // the survey: refine to kSurveyFactor * tol and estimate the count at tol from its leaves
+    split_tol = kSurveyFactor * tol;
+    const std::uint64_t survey_cap = opt.survey_only ? opt.survey_cap : opt.max_triangles;
+    Status st = grow(active, stats, error, survey_cap, round);
+    if (st != Status::Ok) return st;
+    // stopped at the cap: the splits due make more leaves than it allows
+    const bool capped = !active.empty();
+    stats.estimate = std::max<std::uint64_t>({static_cast<std::uint64_t>(survey_estimate(nullptr, nullptr, nullptr)),
+                                              20ull << static_cast<unsigned>(opt.min_level), capped ? survey_floor : 0});
+    if (opt.survey_only) return Status::Ok;
+    if (capped) {
+        error = budget_message("tolerance_m=" + num_text(tol) + " needs more than", survey_floor);
+        return Status::BudgetExceeded;
+    }
+    if (stats.estimate > kSurveySlack * static_cast<double>(opt.max_triangles)) {
+        error = budget_message("tolerance_m=" + num_text(tol) + " would need about", stats.estimate);
+        return Status::BudgetExceeded;
+    }
+    // the real refinement goes on from the survey's leaves
+    split_tol = tol;
+    for (std::size_t i = 0; i < tris.size(); ++i)
+        if (tris[i].child == kNone && wants_split(tris[i])) active.push_back(static_cast<std::uint32_t>(i));
+    parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
+        for (std::size_t i = b; i < e; ++i) {
+            Node& t = tris[active[i]];
+            if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
         }
-        active.clear();
-        for (std::size_t i = first_new; i < tris.size(); ++i)
-            if (tris[i].child == kNone) active.push_back(static_cast<std::uint32_t>(i));
-        ++round;
-        if (opt.progress) opt.progress(round, leaves);
+    });
+    std::size_t first_new = tris.size();
+    for (std::uint32_t id : active) split(id);
+    active.clear();
+    for (std::size_t i = first_new; i < tris.size(); ++i)
+        if (tris[i].child == kNone) active.push_back(static_cast<std::uint32_t>(i));
+    if (leaves > opt.max_triangles) {
+        error = budget_message("tolerance_m=" + num_text(tol) + " needs more than", leaves);
+        return Status::BudgetExceeded;
+    }
+    st = grow(active, stats, error, opt.max_triangles, round);
+    if (st != Status::Ok) return st;
+    if (!active.empty() || leaves > opt.max_triangles) {
+        error = budget_message("tolerance_m=" + num_text(tol) + " needs more than", leaves);
+        return Status::BudgetExceeded;
     }
     stats.rounds = round;
     auto clock1 = std::chrono::steady_clock::now();
     stats.refine_seconds = std::chrono::duration<double>(clock1 - clock0).count();
     const std::uint64_t verify_from = eval_tally().points;
     if (opt.verify_order > 0) {
-        Status st = verify(stats, error);
+        st = verify(stats, error);
         if (st != Status::Ok) return st;
     }
     stats.verify_seconds =
@@ -447,6 +482,114 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         if (t.child == kNone) maxl = std::max(maxl, static_cast<int>(t.level));
     stats.max_level = maxl;
     return Status::Ok;
+}
+
+// level-synchronous refinement from `active` (new, untested leaves) until no leaf wants a split
+// at split_tol. stops early, with every leaf tested and `active` not empty, when the splits due
+// would take the leaves past leaf_cap.
+Status Refiner::grow(std::vector<std::uint32_t>& active, RefineStats& stats, std::string& error,
+                     std::uint64_t leaf_cap, int& round) {
+    (void)error;
+    while (!active.empty()) {
+        // test every new triangle in parallel; each writes only its own node
+        parallel_for(active.size(), opt.threads, [&](std::size_t b, std::size_t e) {
+            for (std::size_t i = b; i < e; ++i) {
+                Node& t = tris[active[i]];
+                if (!t.tested) {
+                    const Node* o = nullptr;
+                    if (opt.previous && reuse[active[i]]) {
+                        o = &opt.previous->nodes[h.origin[active[i]]];
+                        if (!o->tested) o = nullptr;
+                    }
+                    if (o) {
+                        t.tau = o->tau;
+                        t.tau_fine = o->tau_fine;
+                    } else {
+                        t.tau = critical_tolerance(t, t.tau_fine);
+                    }
+                    t.tested = 1;
+                }
+                if (wants_split(t) && std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
+            }
+        });
+        stats.tested += active.size();
+        if (opt.previous)
+            for (std::uint32_t id : active)
+                if (reuse[id] && opt.previous->nodes[h.origin[id]].tested) ++stats.reused;
+        std::uint64_t due = 0;
+        for (std::uint32_t id : active) due += wants_split(tris[id]);
+        if (leaves + due > leaf_cap) {
+            survey_floor = leaves + due;
+            return Status::Ok;
+        }
+        // split serially in index order: the result does not depend on the thread count
+        std::size_t first_new = tris.size();
+        for (std::uint32_t id : active) {
+            if (!wants_split(tris[id])) continue;
+            split(id);
+            // closure splits beyond the due ones: stop before they run away
+            if (leaves > 2 * leaf_cap + 64) {
+                survey_floor = leaves;
+                return Status::Ok;
+            }
+        }
+        active.clear();
+        for (std::size_t i = first_new; i < tris.size(); ++i)
+            if (tris[i].child == kNone) active.push_back(static_cast<std::uint32_t>(i));
+        ++round;
+        if (opt.progress) opt.progress(round, leaves);
+    }
+    return Status::Ok;
+}
+
+// the survey's estimate of the leaves at opt.tolerance_m from the current leaves; with `driver`,
+// also the feature whose footprint holds the largest share of it (kNone: no feature) and the
+// share on open ground (no feature reaches). a leaf counts for the narrowest feature that reaches
+// it: the one that keeps its triangles small.
+double Refiner::survey_estimate(std::uint32_t* driver, double* share, double* open_share) const {
+    const double g = kSurveyGrowth, tol = opt.tolerance_m;
+    double total = 0;
+    std::vector<double> by;
+    if (driver) by.assign(F.size() + 1, 0.0);
+    for (const Node& t : tris) {
+        if (t.child != kNone) continue;
+        const double n = std::max(1.0, g * t.tau / tol);
+        total += n;
+        if (!driver) continue;
+        std::size_t d = F.size();
+        double narrowest = HUGE_VAL;
+        for (std::uint32_t i = 0; i < t.list_cnt; ++i) {
+            const std::uint32_t f = pool[t.list_off + i];
+            if (F.feature(f).scale_m < narrowest) narrowest = F.feature(f).scale_m, d = f;
+        }
+        by[d] += n;
+    }
+    if (driver) {
+        std::size_t best = F.size();
+        for (std::size_t i = 0; i < F.size(); ++i)
+            if (best == F.size() || by[i] > by[best]) best = i;
+        *driver = best == F.size() ? kNone : static_cast<std::uint32_t>(best);
+        *share = total > 0 && best < F.size() ? by[best] / total : 0;
+        *open_share = total > 0 ? by[F.size()] / total : 0;
+    }
+    return total;
+}
+
+std::string Refiner::budget_message(const std::string& what, std::uint64_t count) const {
+    std::uint32_t d = kNone;
+    double share = 0, open = 0;
+    survey_estimate(&d, &share, &open);
+    auto pct = [](double x) {
+        char b[32];
+        std::snprintf(b, sizeof b, "%.0f%%", 100 * x);
+        return std::string(b);
+    };
+    std::string who = d == kNone ? std::string("the base sphere drives the triangle count")
+                                 : "features[" + std::to_string(d) + "] drives the triangle count (" +
+                                       pct(share) + " of the estimate lies near it, " + pct(open) +
+                                       " on open ground)";
+    return who + ": " + what + " " + with_commas(count) + " triangles, more than max_triangles=" +
+           std::to_string(opt.max_triangles) + "; raise tolerance_m or max_triangles";
 }
 
 // a posteriori verification: every leaf is measured densely against the true surface (both
@@ -496,8 +639,7 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
             split(check[i]);
             ++stats.repaired;
             if (leaves > opt.max_triangles) {
-                error = "verification passed max_triangles=" + std::to_string(opt.max_triangles) +
-                        "; raise tolerance_m or max_triangles";
+                error = budget_message("tolerance_m=" + num_text(tol) + " (after verification) needs more than", leaves);
                 return Status::BudgetExceeded;
             }
         }
@@ -563,60 +705,21 @@ void icosahedron(std::vector<Vec3>& v, std::vector<std::uint32_t>& f) {
     }
 }
 
-std::uint64_t estimate_triangles(const Field& field, double tol) {
-    const double R = field.radius();
-    auto per_area = [&](double curvature) {
-        // triangles per square metre for a surface of this curvature (1/m) at this tolerance:
-        // an edge h deviates by about curvature * h^2 / 8 (common practice), bisection
-        // triangles have about 0.35 h^2 of area
-        double h2 = 8 * tol / std::max(curvature, 1e-300);
-        return 1.0 / (0.35 * h2);
-    };
-    // the base sphere; bisection triangles, the probes' margin and the verification's margin
-    // make about three times the count of an ideal equilateral mesh (measured on bare spheres)
-    double total = 3 * 4 * kPi * R * R * per_area(1.0 / R);
-    double global_density = 0;
-    for (std::size_t i = 0; i < field.size(); ++i) {
-        const Feature& f = field.feature(i);
-        const double* p = f.prm;
-        switch (f.kind) {
-            case Kind::Hill: {
-                double s = p[1];
-                total += kPi * 4 * s * s * per_area(f.amp_m / (s * s));
-                break;
-            }
-            case Kind::Mesa:
-            case Kind::Block: {
-                double w = f.kind == Kind::Mesa ? p[2] : p[4];
-                double perim = f.kind == Kind::Mesa ? 2 * kPi * p[1] : 4 * (p[1] + p[2]);
-                if (w > 0) total += perim * w * per_area(6 * f.amp_m / (w * w));
-                // a band about a tolerance wide follows the rim however steep it is
-                total += perim / std::max(tol, 1e-300) * 4;
-                break;
-            }
-            case Kind::Crater:
-                total += kPi * p[1] * p[1] * per_area(2 * (p[0] + p[2]) / (p[1] * p[1]));
-                total += 2 * kPi * p[1] / std::max(tol, 1e-300) * 2;
-                break;
-            case Kind::Ridge: {
-                double len = R * angle(f.c, f.c1);
-                total += 2 * len * p[1] * per_area(4 * f.amp_m / (p[1] * p[1]));
-                break;
-            }
-            case Kind::Noise: {
-                double a = std::fabs(p[0]), k = 2 * kPi * p[1], curv = 0;
-                for (int o = 0; o < static_cast<int>(p[2]); ++o, a *= p[3], k *= 2) curv += a * k * k;
-                // gradient noise bends far less than a sine of the same amplitude and frequency
-                // everywhere: measured on the demo world, 0.2 of this bound keeps the estimate
-                // within about twice the real count
-                global_density += per_area(0.2 * curv);
-                break;
-            }
-        }
-    }
-    total += 4 * kPi * R * R * global_density;
-    if (!(total < 1.8e19)) return ~0ull;
-    return static_cast<std::uint64_t>(total) + 20;
+std::uint64_t estimate_triangles(const Field& field, double tolerance_m, OffsetMode mode, int min_level,
+                                 std::uint64_t survey_cap, int threads) {
+    RefineOptions o;
+    o.tolerance_m = tolerance_m;
+    o.mode = mode;
+    o.min_level = min_level;
+    o.threads = threads;
+    o.verify_order = 0;
+    o.survey_only = true;
+    o.survey_cap = survey_cap;
+    Hierarchy h;
+    RefineStats st;
+    std::string error;
+    if (build_hierarchy(field, o, h, st, error) != Status::Ok) return 0;
+    return st.estimate;
 }
 
 double verify_spacing(const Field& field, double tolerance_m) {

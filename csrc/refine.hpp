@@ -44,10 +44,13 @@ struct RefineOptions {
     const Hierarchy* previous = nullptr;
     std::vector<Cap> changed;
     double changed_margin_m = 0;
+    // estimate only: run the budget survey and stop (stats.estimate), at most survey_cap leaves
+    bool survey_only = false;
+    std::uint64_t survey_cap = 0;
 };
 
 struct RefineStats {
-    std::uint64_t estimate = 0;        // triangles predicted before refining
+    std::uint64_t estimate = 0;        // triangles predicted by the budget survey
     std::uint64_t tested = 0;          // triangle tests run (each triangle at most once)
     std::uint64_t repaired = 0;        // triangles split because verification found them too far
     std::uint64_t reused = 0;          // triangle tests taken from a previous hierarchy
@@ -75,6 +78,9 @@ struct Node {
     // tolerance below tau (0: never)
     double tau = 0;
     float err = -1, m2s = 0, s2m = 0;  // measured deviation once verified (-1: not yet)
+    // the part of tau set by feature seeding and walls (not by probes): the budget survey
+    // follows it down to the finest tolerance, since it does not shrink with the node's area
+    float tau_fine = 0;
 };
 
 // the whole bisection hierarchy; every level of detail is a set of its nodes
@@ -102,8 +108,12 @@ struct Mesh {
     std::vector<float> errors;         // measured deviation per triangle (m), when verified
 };
 
-// triangles the tolerance will roughly need (cheap, analytic; used to refuse blown budgets early)
-std::uint64_t estimate_triangles(const Field& field, double tolerance_m);
+// the leaf triangles a hierarchy at this tolerance will need, from the budget survey (refinement
+// to 4x the tolerance, see refine.cpp): stated within 1.5x of the real count. the survey stops at
+// survey_cap leaves and extrapolates from there (an estimate of at least that many). 0 on bad
+// arguments.
+std::uint64_t estimate_triangles(const Field& field, double tolerance_m, OffsetMode mode, int min_level,
+                                 std::uint64_t survey_cap, int threads);
 
 // build the hierarchy down to options.tolerance_m (probes, seeding, closure, verification)
 Status build_hierarchy(const Field& field, const RefineOptions& options, Hierarchy& h,

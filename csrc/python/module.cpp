@@ -562,9 +562,18 @@ PYBIND11_MODULE(_core, m) {
         .def("result", &PyEditSession::result);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
           py::arg("order") = 6, py::arg("threads") = 0);
-    m.def("estimate_triangles",
-          [](const PyField& f, double tol) { return estimate_triangles(f.field(), tol); },
-          py::arg("field"), py::arg("tolerance_m"));
+    m.def(
+        "estimate_triangles",
+        [](const PyField& f, double tol, int offset, int chunk_level, std::uint64_t survey_cap, int threads) {
+            if (offset < 0 || offset > 2) throw py::value_error("offset: must be 0 (radial), 1 (normal) or 2 (exact)");
+            if (chunk_level < 0 || chunk_level > 10) throw py::value_error("chunk_level: must be in 0..10");
+            py::gil_scoped_release nogil;
+            return estimate_triangles(f.field(), tol, static_cast<OffsetMode>(offset), 2 * chunk_level, survey_cap,
+                                      threads);
+        },
+        py::arg("field"), py::arg("tolerance_m"), py::arg("offset") = 1, py::arg("chunk_level") = 0,
+        py::arg("survey_cap") = 2000000, py::arg("threads") = 0,
+        "leaf triangles the tolerance will need, from the budget survey (0 on a bad tolerance)");
     m.def("icosahedron", []() {
         std::vector<Vec3> v;
         std::vector<std::uint32_t> f;

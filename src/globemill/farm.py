@@ -273,23 +273,24 @@ def world_hash(
 # estimates before the work
 
 # Calibrated on this project's 2-core build machine from bakes of examples/pebblemoor.toml at
-# tolerances 2, 1 and 0.5 m with one thread (core estimate 275k / 550k / 1.10M triangles; bake
-# 4.1 / 7.6 / 27.9 s; peak resident memory 87 / 140 / 345 MB over a 46 MB interpreter; outputs
-# 4.9 / 10.8 / 30.8 MB) and from loading a spec of 100,000 hills (1.5 s, 240 MB). Memory and time
-# are the largest of those runs per estimated triangle (or feature), rounded up: on such worlds
-# the core's estimate runs 2-5x above the triangles a bake makes, so they are meant as upper
-# bounds. On tiny worlds (a few thousand triangles) the core's estimate can fall 15 % below the
-# bake's triangles; there the fixed part dominates (a `globemill bake` of a 6,800-triangle world
-# peaked at 54 MB resident, so 64 MB). Time is divided by the threads used (the
-# 1 m bake took 4.7 s with 2 threads, estimated 7.2 s). File bytes are a LOW estimate (the
-# smallest ratio seen, 17.9 B per estimated triangle at 2 m; tiny worlds write 70-80): a folder
-# with less free space than that cannot hold the files, and is refused before the bake.
-BYTES_PER_TRIANGLE = 280
-SECONDS_PER_TRIANGLE = 26e-6  # one thread
-OUTPUT_BYTES_PER_TRIANGLE = 17
+# tolerances 2, 1 and 0.5 m with one thread (54,914 / 162,328 / 564,632 triangles at the finest
+# level; bake 4.1 / 7.6 / 27.9 s; peak resident memory 87 / 140 / 345 MB over a 46 MB
+# interpreter; outputs 4.9 / 10.8 / 30.8 MB) and from loading a spec of 100,000 hills (1.5 s,
+# 240 MB). The core's triangle estimate (its budget survey) is within 1.5x of the real count
+# (0.82-1.17x measured on smooth, rough, walled, crowded and demo worlds). Memory and time are the
+# largest of those runs per real triangle (750 B, 75 us), times 1.2 for an estimate that falls
+# short, rounded up, so they are meant as upper bounds; on tiny worlds (a few thousand triangles)
+# the fixed part dominates (a `globemill bake` of a 6,800-triangle world peaked at 54 MB
+# resident, so 64 MB). Time is divided by the threads used. File bytes are a LOW estimate (the
+# smallest ratio seen, 55 B per real triangle at 0.5 m, over 1.2 for an estimate that runs high):
+# a folder with less free space than that cannot hold the files, and is refused before the bake.
+BYTES_PER_TRIANGLE = 900
+SECONDS_PER_TRIANGLE = 90e-6  # one thread
+OUTPUT_BYTES_PER_TRIANGLE = 45
 BYTES_PER_FEATURE = 2500
 SECONDS_PER_FEATURE = 16e-6
 BASE_BYTES = 64_000_000
+SURVEY_CAP = 1_000_000  # leaves: the survey's memory stays near 200 MB
 # the CLI prints the estimate of a bake above either of these
 LARGE_SECONDS = 10.0
 LARGE_BYTES = 1_000_000_000
@@ -341,15 +342,30 @@ def estimate_bake(
     spec: WorldSpec, *, tolerance_m: float | None = None, threads: int = 0
 ) -> BakeEstimate:
     """Estimate the triangles, memory, time and file size of baking `spec` (threads: 0 = all
-    cores), from the core's triangle estimate for the tolerance and the feature count."""
+    cores), from the core's triangle estimate for the tolerance and the feature count.
+
+    The triangle estimate is the core's budget survey (the refinement run to four times the
+    tolerance, see docs/meshing.md): it costs about a quarter of the bake's refinement on smooth
+    ground and up to all of it on noise and walls, and stops at a million leaves (beyond, it
+    extrapolates and is rougher)."""
     from . import _core
+    from .bake import OFFSET_MODES
     from .field import Field
 
     tol = float(spec.tolerance_m if tolerance_m is None else tolerance_m)
     if not tol > 0:
         raise ValueError(f"tolerance_m: must be > 0, got {tol!r}")
     nfeat = len(spec.features)
-    tris = int(_core.estimate_triangles(Field(spec)._core, tol))
+    tris = int(
+        _core.estimate_triangles(
+            Field(spec)._core,
+            tol,
+            offset=OFFSET_MODES[spec.offset],
+            chunk_level=int(spec.lod.chunk_level),
+            survey_cap=SURVEY_CAP,
+            threads=threads,
+        )
+    )
     tris = min(tris, int(spec.max_triangles))  # the bake stops at its budget
     used = min(threads, _cores()) if threads > 0 else _cores()
     return BakeEstimate(
