@@ -446,6 +446,7 @@ def test_an_over_budget_bake_names_the_feature_and_key_behind_it(tmp_path: Path)
     res = run("bake", str(spec), "-o", str(tmp_path / "out"))
     assert res.returncode == 3
     line = res.stderr.strip()
-    assert "max_triangles" in line and "features[1] ('grit'), a noise" in line
+    assert "max_triangles" in line and "features[1] ('grit') drives" in line
+    assert "features[1] is a noise; its finest scale is set by frequency_per_m" in line
     assert "frequency_per_m = 0.2" in line
     assert not (tmp_path / "out").exists()

@@ -284,7 +284,7 @@ def _bake_angle_target(spec: globemill.WorldSpec, target: float | None, threads:
 
 
 def _walled_world() -> globemill.WorldSpec:
-    # a mesa with a vertical 10 m wall (wall_width_m = 0) and a block with vertical walls: the ground
+    # a mesa with a vertical 10 m wall (wall_width_m = 0) and a block with vertical walls: ground
     # where a height field over well-shaped directions makes slivers in space
     return globemill.parse_spec(
         {

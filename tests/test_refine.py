@@ -251,7 +251,7 @@ def test_budget_refusal_names_the_feature_that_drives_the_count() -> None:
     # a sheer wall 628 m around (2 pi x 100 m) against a broad, low swell: the wall's band of
     # small triangles outweighs the swell's, whichever comes first in the list
     wall = {"name": "Great Ring", "kind": "mesa", "lat_deg": 0.0, "lon_deg": 0.0, "height_m": 10.0,
-            "radius_m": 100.0, "wall_m": 0.0}  # fmt: skip
+            "radius_m": 100.0, "wall_width_m": 0.0}  # fmt: skip
     swell = {"name": "Swell", "kind": "hill", "lat_deg": 0.0, "lon_deg": 90.0,
              "amplitude_m": 2.0, "sigma_m": 100.0}  # fmt: skip
     for features in ([wall, swell], [swell, wall]):
@@ -295,7 +295,7 @@ def _thin_world(feature: dict, tolerance_m: float = 1.0) -> globemill.WorldSpec:
         ({"kind": "hill", "amplitude_m": 30.0, "sigma_m": 0.05}, "sigma_m", "0.685"),
         (
             {"kind": "block", "height_m": 20.0, "half_x_m": 1e-9, "half_y_m": 1e-9,
-             "wall_m": 0.0, "heading_deg": 0.0, "corner_m": 0.0},
+             "wall_width_m": 0.0, "bearing_deg": 90.0, "corner_radius_m": 0.0},
             "min(half_x_m, half_y_m)", "0.56",
         ),
     ],

@@ -414,7 +414,7 @@ def bake(
         threads=threads,
         accept_over_tolerance=accept_over_tolerance,
     )
-    with named_features(spec), budget_named(spec, s["tolerance_m"]):
+    with named_features(spec), budget_named(spec):
         return _wrap(spec, s, _core.bake(Field(spec)._core, s, _closing_refine(progress)))
 
 
@@ -445,52 +445,26 @@ FINEST_KEY = {
     "ridge": "half_width_m",
     "noise": "frequency_per_m",
 }
-# one feature is named as the cause when it alone needs at least this share of the triangles
-CULPRIT_SHARE = 0.5
-
-
-def budget_culprit(spec: WorldSpec, tolerance_m: float) -> str | None:
-    """Which feature alone needs most of the triangles the core estimates for `spec` at
-    `tolerance_m` (each feature on the bare sphere, the core's estimate_triangles), in words, or
-    None when no single feature needs CULPRIT_SHARE of the whole."""
-    if not spec.features or not tolerance_m > 0:
-        return None
-    whole = int(_core.estimate_triangles(Field(spec)._core, tolerance_m))
-    bare = int(_core.estimate_triangles(Field(spec.model_copy(update={"features": []}))._core,
-                                        tolerance_m))  # fmt: skip
-    best, best_i = 0, -1
-    for i, f in enumerate(spec.features):
-        alone = spec.model_copy(update={"features": [f]})
-        n = int(_core.estimate_triangles(Field(alone)._core, tolerance_m)) - bare
-        if n > best:
-            best, best_i = n, i
-    if best_i < 0 or best < CULPRIT_SHARE * whole:
-        return None
-    f = spec.features[best_i]
-    name = f" ({f.name!r})" if getattr(f, "name", None) else ""
-    key = FINEST_KEY.get(f.kind)
-    what = f"features[{best_i}]{name}, a {f.kind}, alone needs about {best:,} of them"
-    if key is not None:
-        what += f"; its finest scale is set by {key} = {getattr(f, key):g}"
-    return what
-
-
 @contextlib.contextmanager
-def budget_named(spec: WorldSpec, tolerance_m: float) -> Iterator[None]:
-    """An over-budget error names the feature that causes it, when one does."""
+def budget_named(spec: WorldSpec) -> Iterator[None]:
+    """An over-budget error names the feature that drives the count (the core's budget survey
+    gives its index, "features[k] drives ..."); this adds its kind and the key that sets its
+    finest scale, the one to raise."""
     try:
         yield
     except ValueError as exc:
         msg = str(exc)
-        if "max_triangles" not in msg:
+        m = re.match(r"features\[(\d+)\]", msg)
+        if "max_triangles" not in msg or not m or int(m.group(1)) >= len(spec.features):
             raise
-        try:
-            culprit = budget_culprit(spec, tolerance_m)
-        except Exception:  # naming the cause must never hide the error itself
-            culprit = None
-        if culprit is None:
+        f = spec.features[int(m.group(1))]
+        key = FINEST_KEY.get(f.kind)
+        if key is None:
             raise
-        raise type(exc)(f"{msg} ({culprit})") from None
+        raise type(exc)(
+            f"{msg} (features[{m.group(1)}] is a {f.kind}; its finest scale is set by "
+            f"{key} = {getattr(f, key):g})"
+        ) from None
 
 
 @contextlib.contextmanager
