@@ -1,5 +1,5 @@
 // vertex attributes of the true surface: analytic normal, slope, altitude, material layer and its
-// colour (docs/terrain.md, "Gradient"; docs/spec.md, "layers").
+// color (docs/terrain.md, "Gradient"; docs/spec.md, "layers").
 #pragma once
 
 #include <cstddef>
@@ -20,7 +20,7 @@ void surface_attributes(const Field& field, const double* directions, std::size_
                         double* normals, double* slope_deg, double* altitude_m);
 
 // the index of the first rule whose closed slope and altitude bands hold each vertex (kNoLayer
-// when none does) and that rule's colour (kNoLayerGrey when none)
+// when none does) and that rule's color (kNoLayerGrey when none)
 void assign_layers(const std::vector<LayerRule>& rules, const double* slope_deg,
                    const double* altitude_m, std::size_t n, std::uint8_t* layer, double* color);
 

@@ -17,7 +17,7 @@ void chunk_vertex_ids(const Level& level, std::uint32_t chunks, std::vector<std:
                       std::vector<std::uint32_t>& ids);
 
 // the buffers of chunk c of `level`, its vertex ids given; attributes come from the pool in `pool`
-// (positions, normals, slope, altitude, layer, colour). skirt_depth_m > 0 hangs a skirt from every
+// (positions, normals, slope, altitude, layer, color). skirt_depth_m > 0 hangs a skirt from every
 // boundary edge: a quad `depth` metres down, wound as the continuation of the surface across the
 // edge; a skirt vertex takes its top vertex's normal and attributes (the ground it hangs from).
 // Returns false when a stitched border names a vertex outside the chunk (never seen; an

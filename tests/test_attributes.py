@@ -1,4 +1,4 @@
-"""Per-vertex surface attributes: slope, altitude, material layer and colour.
+"""Per-vertex surface attributes: slope, altitude, material layer and color.
 
 Expectations come from outside the code under test: the Gaussian hill formula of docs/terrain.md
 worked by hand, the plain-numpy reference terrain (tests/reference_terrain.py, written from
@@ -132,7 +132,7 @@ def test_first_match_wins_and_bands_are_closed() -> None:
     assert got.dtype == np.uint8
 
 
-def test_no_rules_means_no_layer_and_the_fallback_colour() -> None:
+def test_no_rules_means_no_layer_and_the_fallback_color() -> None:
     spec = globemill.parse_spec({"name": "bare", "radius_m": 100.0, "tolerance_m": 1.0})
     att = vertex_attributes(spec, random_directions(np.random.default_rng(1), 20))
     assert np.all(att.layer == NO_LAYER)

@@ -346,7 +346,7 @@ def check_layout_with_pygltflib(pygltflib: Any, result: globemill.BakeResult, pa
             )
             col = g.accessor(prim.attributes.COLOR_0)
             np.testing.assert_array_equal(col, quantize_color(att.color))
-            # normalized unsigned bytes: f = c / 255 (glTF 2.0), so colours within half a step
+            # normalized unsigned bytes: f = c / 255 (glTF 2.0), so colors within half a step
             assert np.abs(col[:, :3] / 255.0 - att.color).max() <= 0.5 / 255 + 1e-12
             if k + 1 < nlev:
                 disp = g.accessor(prim.targets[0]["POSITION"]).astype(np.float64)
@@ -363,7 +363,7 @@ def check_layout_with_pygltflib(pygltflib: Any, result: globemill.BakeResult, pa
     assert extras["no_layer"] == 255
 
 
-def test_demo_colours_and_attributes_read_back(demo: Any) -> None:
+def test_demo_colors_and_attributes_read_back(demo: Any) -> None:
     result, out = demo
     g = read(out / "pebblemoor.glb")
     every = vertex_attributes(result.spec, result.directions)

@@ -49,8 +49,8 @@ SEED = 16
 
 
 def world(i: int, *, color: float = 0.4, tolerance_m: float = 1.0) -> dict[str, Any]:
-    """A small world of our own: two hills and a crater, one material layer of colour `color`
-    (a colour changes only COLOR_0's bytes, never a file's size)."""
+    """A small world of our own: two hills and a crater, one material layer of color `color`
+    (a color changes only COLOR_0's bytes, never a file's size)."""
     return {
         "name": f"knoll_{i}",
         "radius_m": 300.0 + 40.0 * i,
@@ -153,7 +153,7 @@ def fill(folder: Path, leave_bytes: int) -> None:
 
 @pytest.fixture(scope="module")
 def refs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
-    """Three worlds in two versions (A: colour 0.4, B: colour 0.6) and single bakes of each."""
+    """Three worlds in two versions (A: color 0.4, B: color 0.6) and single bakes of each."""
     root = tmp_path_factory.mktemp("hostile_refs")
     specs_a = write_worlds(root / "a", 3)
     specs_b = write_worlds(root / "b", 3, color=0.6)
@@ -452,7 +452,7 @@ def test_a_farm_killed_at_a_random_moment_leaves_nothing_called_fresh(
 def test_cache_compares_bytes_not_sizes(tmp_path: Path, refs: dict[str, Any]) -> None:
     out = tmp_path / "out"
     assert farm(refs["a"], out, jobs=2).ok
-    # another colour: the same sizes, other bytes (the case a size check took as current)
+    # another color: the same sizes, other bytes (the case a size check took as current)
     sizes = {p.name: p.stat().st_size for p in refs["ref_a"].glob("knoll_0*.glb")}
     assert sizes == {p.name: p.stat().st_size for p in refs["ref_b"].glob("knoll_0*.glb")}
     assert cli_main(["bake", str(refs["b"][0]), "-o", str(out), "-q"]) == EXIT_OK

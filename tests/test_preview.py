@@ -1,5 +1,5 @@
 """Pictures: the rasteriser against geometry worked by hand, the preview PNG (size, content, every
-colour mode), the error histogram, and the `preview` command."""
+color mode), the error histogram, and the `preview` command."""
 
 from __future__ import annotations
 
@@ -97,7 +97,7 @@ def test_srgb_transfer_round_trips() -> None:
 # ---- what is drawn -----------------------------------------------------------------------------
 
 
-def test_neighbouring_chunks_get_different_colours(baked: globemill.BakeResult) -> None:
+def test_neighbouring_chunks_get_different_colors(baked: globemill.BakeResult) -> None:
     col = chunk_colors(baked.chunk_neighbors)
     for c, nb in enumerate(baked.chunk_neighbors):
         assert all(col[c] != col[int(n)] for n in nb)
@@ -120,7 +120,7 @@ def image_checks(path: Path, size: tuple[int, int]) -> np.ndarray:
     img = imread(path)
     assert img.shape[:2] == (size[1], size[0])  # rows = height
     rgb = img[:, :, :3]
-    # not blank: far from the background in a good share of the picture, and many colours
+    # not blank: far from the background in a good share of the picture, and many colors
     away = np.abs(rgb - BACKGROUND).max(axis=2) > 0.1
     assert away.mean() > 0.2
     assert len(np.unique((rgb * 255).astype(np.uint8).reshape(-1, 3), axis=0)) > 200
@@ -141,11 +141,11 @@ def test_preview_png_of_the_requested_size(
     assert np.abs(rgb[size[1] // 2, size[0] // 4] - BACKGROUND).max() > 0.05
 
 
-def test_layer_picture_shows_the_layer_colours(baked: globemill.BakeResult, tmp_path: Path) -> None:
+def test_layer_picture_shows_the_layer_colors(baked: globemill.BakeResult, tmp_path: Path) -> None:
     out = tmp_path / "layers.png"
     write_preview(baked, out, color="layer", size=(600, 300), views=("north",))
     rgb = imread(out)[:, :, :3].reshape(-1, 3).astype(np.float64)
-    # the demo's most common layer colour appears (shaded: same hue, some brightness)
+    # the demo's most common layer color appears (shaded: same hue, some brightness)
     counts = np.bincount(
         globemill.attributes.vertex_attributes(baked.spec, baked.directions).layer, minlength=256
     )
@@ -272,7 +272,7 @@ def test_a_finished_bake_is_drawn_like_the_bake_in_memory(
     assert np.mean(np.abs(a - b).max(axis=2) > 0.05) < 0.01
 
 
-def test_altitude_and_slope_colours_follow_the_ground(bake_dir: Path, tmp_path: Path) -> None:
+def test_altitude_and_slope_colors_follow_the_ground(bake_dir: Path, tmp_path: Path) -> None:
     from matplotlib import colormaps
 
     from globemill.preview import read_ground
@@ -281,7 +281,7 @@ def test_altitude_and_slope_colours_follow_the_ground(bake_dir: Path, tmp_path: 
     # attributes read back are the bake's own (the report's ranges hold them)
     assert len(g.altitude_m) == len(g.positions) and g.slope_deg.min() >= 0.0
     size = (400, 400)
-    # looking straight down on the highest vertex: the middle pixel has cividis' top colour
+    # looking straight down on the highest vertex: the middle pixel has cividis' top color
     top = g.positions[int(np.argmax(g.altitude_m))]
     lat = np.degrees(np.arcsin(top[1] / np.linalg.norm(top)))
     lon = np.degrees(np.arctan2(top[0], top[2]))
@@ -290,7 +290,7 @@ def test_altitude_and_slope_colours_follow_the_ground(bake_dir: Path, tmp_path: 
     write_preview(bake_dir, out, color="altitude", size=size, views=(view,), grid_deg=0,
                        names=False)  # fmt: skip
     img = imread(out)[:, :, :3]
-    # the globe is the largest lit blob (not the title, the colour bar or the view's label)
+    # the globe is the largest lit blob (not the title, the color bar or the view's label)
     from scipy import ndimage
 
     blobs, n = ndimage.label(np.abs(img - BACKGROUND).max(axis=2) > 0.1)

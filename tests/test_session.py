@@ -277,7 +277,7 @@ def test_random_edit_sequences_match_a_fresh_bake(edits: list[tuple]) -> None:
         (lambda s: s.set_feature(True, sigma_m=1.0), "index"),
         (lambda s: s.set_feature(1, sigma_m=-5.0), "features[1].sigma_m"),
         (lambda s: s.set_feature(1, amplitude_m=float("nan")), "features[1].amplitude_m"),
-        (lambda s: s.set_feature(1, colour=3), "features[1]"),
+        (lambda s: s.set_feature(1, color=3), "features[1]"),
         (lambda s: s.set_feature(1), "set_feature"),
         (lambda s: s.remove_feature(6), "index"),
         (lambda s: s.move_feature(0, (10.0, 10.0)), "features[0]"),

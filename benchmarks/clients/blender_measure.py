@@ -5,7 +5,7 @@
 LAYOUTDIR is the folder make_layouts.py wrote (expected.json names the files). The result holds,
 per file, the common record of clients.py (levels visible and hidden, triangles, the value
 ranges of the channels the import kept, the distances of visible vertices from the centre).
-With SHOT.png, the default single file is rendered (Workbench, vertex colours) to that picture.
+With SHOT.png, the default single file is rendered (Workbench, vertex colors) to that picture.
 """
 
 from __future__ import annotations
@@ -42,7 +42,7 @@ def widen(ranges: dict, key: str, arr: np.ndarray) -> None:
     ranges[key] = [lo, hi]
 
 
-def colour_in_material(mesh: object) -> bool:
+def color_in_material(mesh: object) -> bool:
     for mat in mesh.materials:
         if mat and mat.use_nodes:
             for node in mat.node_tree.nodes:
@@ -91,7 +91,7 @@ def measure(path: str) -> dict:
             widen(rec["ranges"], f"uv{i}", values(uv.data, "uv", 2))
         kept["uv_sets"] = max(kept["uv_sets"], len(m.uv_layers))
         kept["color"] |= len(m.color_attributes) > 0
-        kept["color_in_material"] |= colour_in_material(m)
+        kept["color_in_material"] |= color_in_material(m)
         kept["morph"] = max(kept["morph"], len(m.shape_keys.key_blocks) - 1 if m.shape_keys else 0)
         # glTF extras become custom properties of the object (node) and of the mesh
         kept["extras"] |= "chunk" in m.keys() or "chunk" in o.keys()

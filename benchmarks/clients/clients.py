@@ -272,11 +272,11 @@ def table(client: dict[str, Any], rows: dict[str, dict[str, Any]], name: str) ->
         if "uv_v" in r:
             uv = f"{r['uv_sets']} sets, v {r['uv_v']}, dev {r['uv_max_dev']:.3g}"
         inward = f", {r['inward_triangles']} facing inward" if "inward_triangles" in r else ""
-        colour = "kept, " + ("used as albedo" if r["color_in_material"] else "not in material")
+        color = "kept, " + ("used as albedo" if r["color_in_material"] else "not in material")
         lines.append(
             f"| {label} | {shown} | {r['triangles']}{'' if r['triangles_match'] else ' (MISMATCH)'}"
             f"{inward} "
-            f"| {custom} | {uv} | {colour if r['color'] else 'dropped'} | {r['morph_targets']} "
+            f"| {custom} | {uv} | {color if r['color'] else 'dropped'} | {r['morph_targets']} "
             f"| {yes(r['extras'])} | {r.get('radius_max_dev_m', float('nan')):.3g} |"
         )
     return "\n".join(lines)

@@ -43,7 +43,7 @@
  *   written in their shortest exact form, which may differ from Python's), and gm_bake_create runs the
  *   same core calls with the same defaults as globemill.bake(), so counts, vertex positions,
  *   indices, morph targets, normals and colliders equal the Python API's for the same spec and
- *   options. Attributes (slope, altitude, layer, colour) follow globemill.attributes.
+ *   options. Attributes (slope, altitude, layer, color) follow globemill.attributes.
  *
  * Live editing.  A gm_edit session keeps a world's meshes and re-meshes, on gm_edit_update, only
  *   what the changed features touch; the result equals a fresh gm_bake_create of the new world,

@@ -156,7 +156,7 @@ py::dict stats_dict(const RefineStats& stats) {
 }
 
 
-// layer rules from an (n, 7) array: slope lo, hi, altitude lo, hi, colour r, g, b
+// layer rules from an (n, 7) array: slope lo, hi, altitude lo, hi, color r, g, b
 std::vector<LayerRule> layers_from(const py::object& o) {
     Doubles a = py::cast<Doubles>(o);
     if (a.size() == 0) return {};
@@ -513,7 +513,7 @@ PYBIND11_MODULE(_core, m) {
             return py::make_tuple(to_numpy(std::move(layer), {ss(n)}), to_numpy(std::move(color), {ss(n), 3}));
         },
         py::arg("layers"), py::arg("slope_deg"), py::arg("altitude_m"),
-        "(layer (N,) uint8, colour (N, 3)) of the first rule whose closed bands hold each vertex");
+        "(layer (N,) uint8, color (N, 3)) of the first rule whose closed bands hold each vertex");
     m.def(
         "cache_order",
         [](const Indices& tris, std::size_t vertex_count) {

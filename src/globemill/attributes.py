@@ -1,11 +1,11 @@
-"""Surface attributes per vertex: slope, altitude, material layer and the layer's colour.
+"""Surface attributes per vertex: slope, altitude, material layer and the layer's color.
 
 - slope (degrees) = atan(|grad H| / (R + H)) at the vertex direction (docs/terrain.md, "Gradient"),
   from the analytic gradient, so it is the slope of the true surface, not of the mesh;
 - altitude (metres above `radius_m`) = H at the vertex direction;
 - layer = index of the first rule of `spec.layers` whose slope band and altitude band (both
   closed intervals [lo, hi]) hold the vertex, or NO_LAYER (255) when none does;
-- colour = that layer's linear RGB colour, NO_LAYER_COLOR where no rule matched.
+- color = that layer's linear RGB color, NO_LAYER_COLOR where no rule matched.
 
 Every number is computed by the C++ core (csrc/attributes.cpp), the very code a bake runs, so
 these equal the attributes a bake stores on its vertices bit for bit; this module only wraps it.
@@ -27,7 +27,7 @@ from .spec import Layer, WorldSpec
 NO_LAYER: int = _core.NO_LAYER
 """_LAYER value of a vertex that no layer rule matches."""
 NO_LAYER_COLOR = (0.5, 0.5, 0.5)
-"""Linear RGB colour of a vertex that no layer rule matches (mid grey)."""
+"""Linear RGB color of a vertex that no layer rule matches (mid grey)."""
 MAX_LAYERS = 255
 """Layer indices 0..254 fit the 8-bit attribute beside NO_LAYER."""
 
@@ -60,7 +60,7 @@ class VertexAttributes:
 
 
 def layer_rows(layers: Sequence[Layer]) -> F64:
-    """The layer rules as the core reads them: (n, 7) slope lo, hi, altitude lo, hi, colour."""
+    """The layer rules as the core reads them: (n, 7) slope lo, hi, altitude lo, hi, color."""
     if len(layers) > MAX_LAYERS:
         raise ValueError(f"layers: at most {MAX_LAYERS} layer rules fit _LAYER, got {len(layers)}")
     rows = [[*r.slope_deg, *r.altitude_m, *r.color] for r in layers]
@@ -87,7 +87,7 @@ def assign_layers(
 
 
 def layer_palette(layers: Sequence[Layer]) -> F64:
-    """(256, 3) linear RGB: row i is layer i's colour, every other row NO_LAYER_COLOR."""
+    """(256, 3) linear RGB: row i is layer i's color, every other row NO_LAYER_COLOR."""
     pal = np.tile(np.asarray(NO_LAYER_COLOR, dtype=np.float64), (256, 1))
     for i, rule in enumerate(layers[:MAX_LAYERS]):
         pal[i] = rule.color
@@ -97,7 +97,7 @@ def layer_palette(layers: Sequence[Layer]) -> F64:
 def vertex_attributes(
     spec: WorldSpec, directions: npt.ArrayLike, fld: Field | None = None
 ) -> VertexAttributes:
-    """Slope, altitude, layer and colour at every direction of `directions` (N, 3)."""
+    """Slope, altitude, layer and color at every direction of `directions` (N, 3)."""
     fld = fld if fld is not None else Field(spec)
     slope, alt = slope_and_altitude(fld, directions)
     layer, color = _core.assign_layers(layer_rows(spec.layers), slope, alt)

@@ -1,4 +1,4 @@
-"""glTF 2.0 binary (.glb) writer: positions, normals, indices, vertex colours, application
+"""glTF 2.0 binary (.glb) writer: positions, normals, indices, vertex colors, application
 attributes and morph targets; planet centre at the origin, Y up, metres. Layout per the glTF 2.0
 specification (Khronos): a 12-byte header, a JSON chunk padded with spaces and a BIN chunk padded
 with zeros, both to 4-byte boundaries; every buffer view starts on a 4-byte boundary and every

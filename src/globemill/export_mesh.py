@@ -3,7 +3,7 @@
 - OBJ (text): `v` positions, `vn` analytic normals, `f a//a b//b c//c` triangles (1-based). meshio
   writes faces without normal references; they are added so tools use the stored normals.
 - PLY (binary little-endian): vertex properties x, y, z (float32), nx, ny, nz (float32), red,
-  green, blue (uint8, the layer colour in linear RGB), slope (degrees), altitude (metres above
+  green, blue (uint8, the layer color in linear RGB), slope (degrees), altitude (metres above
   the radius), layer (uint8, 255 = no rule matched); faces as uint8-counted int32 index lists.
 
 Positions are float32, bit-identical to the .glb's, planet centre at the origin, Y up, metres.

@@ -13,7 +13,7 @@
   the globemill version. A world is skipped and reported as cached only when its cache record,
   ``outdir/.globemill-cache/<name>.json``, holds the same hash and every output it lists holds
   the bytes whose SHA-256 was recorded when they were written (sizes alone would take a bake of
-  a spec with one colour changed as current). The record is removed before a world is re-baked
+  a spec with one color changed as current). The record is removed before a world is re-baked
   and written (atomically) only after its outputs are in place and checked, so a crash in
   between only costs a re-bake.
 - One farm per folder: a farm holds ``outdir/.globemill-farm.lock`` (flock) while it runs; a

@@ -4,7 +4,7 @@
 glTF layout (docs/gltf.md): one root node per chunk holding its finest level; the node's
 `MSFT_lod` extension lists the nodes of its coarser levels (finest to coarsest), with
 `extras.MSFT_screencoverage` hints. Each level mesh has one triangle primitive with POSITION,
-NORMAL (analytic), COLOR_0 (layer colour), _SLOPE, _ALTITUDE, _LAYER and one morph target: the
+NORMAL (analytic), COLOR_0 (layer color), _SLOPE, _ALTITUDE, _LAYER and one morph target: the
 displacement to the vertex's position on the next coarser level. Stitched borders are index
 accessors named in the mesh's `extras.seams` by edge mask.
 """
@@ -47,7 +47,7 @@ REFERENCE_PIXEL_ERROR = 1.0
 
 GROUND_MATERIAL: dict[str, Any] = {
     "name": "ground",
-    # COLOR_0 carries the layer colours; ground is a dielectric (metallic 0), fully rough
+    # COLOR_0 carries the layer colors; ground is a dielectric (metallic 0), fully rough
     "pbrMetallicRoughness": {
         "baseColorFactor": [1.0, 1.0, 1.0, 1.0],
         "metallicFactor": 0.0,

@@ -1,12 +1,12 @@
-"""Pictures of a bake: shaded views of the world coloured by material layer, chunk, level or
+"""Pictures of a bake: shaded views of the world colored by material layer, chunk, level or
 measured error, and a histogram of measured errors.
 
 The views are rasterised here with numpy (orthographic camera, z-buffer, normals interpolated
 across each triangle, Lambert shading, a supersampled box filter), because a world has up to
 millions of triangles and a vector renderer would spend minutes on them. matplotlib (the `preview`
-extra) only lays the finished views out with titles, a legend or a colour bar, and writes the PNG.
+extra) only lays the finished views out with titles, a legend or a color bar, and writes the PNG.
 
-Colours are handled in linear RGB (layer colours are linear by the spec) and turned into sRGB
+Colors are handled in linear RGB (layer colors are linear by the spec) and turned into sRGB
 with the sRGB transfer function (IEC 61966-2-1) for the picture.
 """
 
@@ -52,7 +52,7 @@ DEFAULT_SIZE = (1600, 640)
 MIN_SIZE, MAX_SIZE = 64, 8192
 BACKGROUND = "#11151c"
 FOREGROUND = "#e8e8e8"
-# six colours far apart in hue (sRGB), for chunks (adjacent chunks never share one) and levels
+# six colors far apart in hue (sRGB), for chunks (adjacent chunks never share one) and levels
 PALETTE = np.array(
     [
         [0.90, 0.62, 0.00],
@@ -228,7 +228,7 @@ def shade_view(
 ) -> tuple[F64, F64]:
     """One view: (size, size, 3) linear RGB and the (size, size) share of each pixel covered.
 
-    Colour comes from `vertex_rgb` (interpolated) or `face_rgb` (flat), in linear RGB; light is a
+    Color comes from `vertex_rgb` (interpolated) or `face_rgb` (flat), in linear RGB; light is a
     directional key light from the viewer's upper left (Lambert) plus `ambient`. With
     `grid_deg` > 0, lines of latitude and longitude every `grid_deg` degrees are drawn on the
     ground, one pixel wide on screen.
@@ -311,9 +311,9 @@ def grid_lines(points: F64, hit: I64, big: int, step_deg: float) -> npt.NDArray[
 
 
 def chunk_colors(neighbors: npt.NDArray[Any]) -> I64:
-    """A palette index per chunk such that chunks sharing an edge differ: greedy colouring
-    (every chunk has 3 neighbours, so 4 colours always suffice, Brooks 1941), each chunk taking
-    the least used colour its neighbours leave free, so the whole palette shows."""
+    """A palette index per chunk such that chunks sharing an edge differ: greedy coloring
+    (every chunk has 3 neighbours, so 4 colors always suffice, Brooks 1941), each chunk taking
+    the least used color its neighbours leave free, so the whole palette shows."""
     n = len(neighbors)
     color = np.full(n, -1, dtype=np.int64)
     used = np.zeros(len(PALETTE), dtype=np.int64)
@@ -396,7 +396,7 @@ def picture_format(path: str | Path) -> str:
 
 @dataclass
 class Ground:
-    """One level of a bake as a single mesh, with what the pictures colour it by.
+    """One level of a bake as a single mesh, with what the pictures color it by.
 
     positions, normals : (V, 3) float64; triangles : (T, 3) int64; chunk : (T,) int64
     slope_deg, altitude_m : (V,) float64; layer : (V,) uint8 (NO_LAYER: no rule)
@@ -454,7 +454,7 @@ def ground_of(result: BakeResult, level: int = 0) -> Ground:
 
 
 def _layer_key(g: Ground) -> tuple[F64, list[Any], str]:
-    """Vertex colours of the layer picture and its key (each layer's share of the area)."""
+    """Vertex colors of the layer picture and its key (each layer's share of the area)."""
     from matplotlib.patches import Patch
 
     vertex_rgb = layer_palette([])[g.layer]
@@ -481,11 +481,11 @@ def _layer_key(g: Ground) -> tuple[F64, list[Any], str]:
                 label=f"no rule {share[NO_LAYER]:.0f}%",
             )
         )
-    return vertex_rgb, legend, "coloured by material layer (key: share of the ground's area)"
+    return vertex_rgb, legend, "colored by material layer (key: share of the ground's area)"
 
 
 def _ramp(values: F64, cmap_name: str, unit: str, what: str) -> tuple[F64, Any]:
-    """Vertex colours of `values` on a colour map from their least to their largest value."""
+    """Vertex colors of `values` on a color map from their least to their largest value."""
     from matplotlib import colormaps
     from matplotlib.colors import Normalize
 
@@ -498,7 +498,7 @@ def _ramp(values: F64, cmap_name: str, unit: str, what: str) -> tuple[F64, Any]:
 
 
 def ground_views(g: Ground, color: str, views: Sequence[str]) -> _Views:
-    """What the picture of `g` draws for the colour modes a Ground holds (GROUND_COLOR_MODES)."""
+    """What the picture of `g` draws for the color modes a Ground holds (GROUND_COLOR_MODES)."""
     if color not in GROUND_COLOR_MODES:
         allowed = ", ".join(GROUND_COLOR_MODES)
         raise ValueError(f"color: must be one of {allowed} for a finished bake, got {color!r}")
@@ -510,18 +510,18 @@ def ground_views(g: Ground, color: str, views: Sequence[str]) -> _Views:
     elif color == "altitude":
         vertex_rgb, colorbar = _ramp(g.altitude_m, "cividis", "m above radius_m", "altitude")
         subtitle = (
-            f"coloured by altitude ({g.altitude_m.min():.4g} to {g.altitude_m.max():.4g} m)"
+            f"colored by altitude ({g.altitude_m.min():.4g} to {g.altitude_m.max():.4g} m)"
             if len(g.altitude_m)
-            else "coloured by altitude"
+            else "colored by altitude"
         )
     elif color == "slope":
         vertex_rgb, colorbar = _ramp(g.slope_deg, "viridis", "degrees", "slope")
         worst = float(g.slope_deg.max()) if len(g.slope_deg) else 0.0
-        subtitle = f"coloured by slope (up to {worst:.3g}°)"
+        subtitle = f"colored by slope (up to {worst:.3g}°)"
     else:
         pal = srgb_to_linear(PALETTE)[chunk_colors(g.neighbors)]
         face_rgb = pal[g.chunk]
-        subtitle = f"coloured by chunk ({len(g.neighbors)} chunks)"
+        subtitle = f"colored by chunk ({len(g.neighbors)} chunks)"
     what = f"level {g.level}: {len(g.triangles):,} triangles, tolerance {g.tolerance_m:g} m"
     return _Views(
         title=f"{g.name} — {what}",
@@ -551,7 +551,7 @@ def _label_points(positions: F64, labels: list[tuple[str, F64]]) -> list[tuple[s
 @dataclass
 class _Views:
     """What the layout draws: title lines, per view (positions, normals, triangles, vertex or
-    face colours), a key (legend patches or a colour bar) and labelled surface points."""
+    face colors), a key (legend patches or a color bar) and labelled surface points."""
 
     title: str
     subtitle: str
@@ -576,9 +576,9 @@ def preview_png(
 ) -> tuple[bytes, int]:
     """The picture as PNG (or `fmt`) bytes, and the number of triangles drawn per view.
 
-    color : layer (the layer rules' colours), altitude, slope, chunk, level (chunks at mixed
+    color : layer (the layer rules' colors), altitude, slope, chunk, level (chunks at mixed
     levels joined by stitched seams) or error (measured deviation of each triangle, a heat map
-    from 0 to the level's tolerance with a colour bar). level : which level to draw (not for
+    from 0 to the level's tolerance with a color bar). level : which level to draw (not for
     color=level). grid_deg : latitude/longitude lines every so many degrees (0: none).
     names : write the names of named features at their centres.
     """
@@ -612,7 +612,7 @@ def check_views(views: Sequence[str], grid_deg: float) -> None:
 
 
 def _bake_views(result: BakeResult, color: str, level: int, views: Sequence[str]) -> _Views:
-    """The colour modes that need the bake in memory: error and level."""
+    """The color modes that need the bake in memory: error and level."""
     from matplotlib.colors import Normalize
     from matplotlib.patches import Patch
 
@@ -631,13 +631,13 @@ def _bake_views(result: BakeResult, color: str, level: int, views: Sequence[str]
         face_rgb = srgb_to_linear(cmap(norm(lv.errors.astype(np.float64)))[:, :3])
         colorbar = (cmap, norm, f"measured deviation (m), tolerance {lv.tolerance_m:g} m")
         worst = float(lv.errors.max()) if len(lv.errors) else 0.0
-        subtitle = f"coloured by measured error (max {worst:.3g} m)"
+        subtitle = f"colored by measured error (max {worst:.3g} m)"
         per_view = [(g.positions, g.normals, g.triangles, None, face_rgb)] * len(views)
         title = f"level {level}: {len(g.triangles):,} triangles, tolerance {lv.tolerance_m:g} m"
         ntris = len(g.triangles)
         points = _label_points(g.positions, labels)
     else:
-        subtitle = "coloured by level: finest facing the viewer, seams stitched"
+        subtitle = "colored by level: finest facing the viewer, seams stitched"
         for k in range(nlev):
             tol = result.levels[k].tolerance_m
             legend.append(Patch(color=PALETTE[k % len(PALETTE)], label=f"level {k}, {tol:g} m"))
@@ -815,8 +815,8 @@ def write_preview(
     """Render the picture of `source` and write it to `path` atomically, PNG or JPEG by the
     suffix (.png, .jpg, .jpeg; any other is refused before rendering).
 
-    source : a bake in memory (see preview_png for the colours), or a finished bake's folder (or
-        its `<name>.report.json`), drawn from its files without baking again, in the colours
+    source : a bake in memory (see preview_png for the colors), or a finished bake's folder (or
+        its `<name>.report.json`), drawn from its files without baking again, in the colors
         the files hold (GROUND_COLOR_MODES).
     """
     t0 = time.perf_counter()

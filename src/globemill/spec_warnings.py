@@ -1,6 +1,6 @@
 """Warnings about a valid spec that probably does not say what its author meant.
 
-Today: layer rules that leave part of the ground uncovered (it gets the no-layer colour and
+Today: layer rules that leave part of the ground uncovered (it gets the no-layer color and
 _LAYER = NO_LAYER). The share is measured on the true surface at equal-area sample directions
 (a Fibonacci lattice: Gonzalez 2010, "Measurement of areas on a sphere using Fibonacci and
 latitude-longitude lattices"), so it does not depend on a bake.
@@ -62,7 +62,7 @@ def warnings_for(spec: WorldSpec) -> list[str]:
             out.append(
                 f"layers: no rule covers {100 * cov['uncovered']:.0f}% of the ground (slopes "
                 f"{s0:.3g} to {s1:.3g} degrees, altitudes {a0:.4g} to {a1:.4g} m there); it gets "
-                f"no layer (_LAYER {NO_LAYER}) and the grey no-layer colour. Widen a rule's "
+                f"no layer (_LAYER {NO_LAYER}) and the grey no-layer color. Widen a rule's "
                 "slope_deg or altitude_m band, or add a catch-all last rule"
             )
     return out

@@ -21,7 +21,7 @@ inline gm::BakeSettings small_settings(int threads) {
     s.levels = 3;
     s.chunk_level = 1;
     s.threads = threads;
-    gm::LayerRule steep;  // two layer rules, so layers and colours vary
+    gm::LayerRule steep;  // two layer rules, so layers and colors vary
     steep.slope_deg[0] = 20;
     steep.color[0] = 0.4, steep.color[1] = 0.35, steep.color[2] = 0.3;
     gm::LayerRule high;

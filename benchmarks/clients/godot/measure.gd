@@ -1,6 +1,6 @@
 # Godot 3: load every imported .glb named in res://files.txt, instance it and write what the
 # engine shows to res://result.json: per file, the MeshInstances visible and hidden by level,
-# triangles, the surface arrays present (UV, UV2, colour), blend shapes, metadata (extras), the
+# triangles, the surface arrays present (UV, UV2, color), blend shapes, metadata (extras), the
 # value ranges of UV/UV2 and the distance of visible vertices from the centre. With a line
 # "shot <file> <png>" in files.txt, that file is also drawn and saved as a picture.
 extends SceneTree
