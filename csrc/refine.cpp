@@ -437,7 +437,7 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         error = budget_message("tolerance_m=" + num_text(tol) + " needs more than", survey_floor);
         return Status::BudgetExceeded;
     }
-    if (stats.estimate > kSurveySlack * static_cast<double>(opt.max_triangles)) {
+    if (static_cast<double>(stats.estimate) > kSurveySlack * static_cast<double>(opt.max_triangles)) {
         error = budget_message("tolerance_m=" + num_text(tol) + " would need about", stats.estimate);
         return Status::BudgetExceeded;
     }
