@@ -231,6 +231,27 @@ def test_check_passes_on_the_demo(baseline: tuple[int, dict[str, Any]]) -> None:
 
 
 @pytest.mark.slow
+def test_check_reads_a_quantized_bake(tmp_path: Path) -> None:
+    # KHR_mesh_quantization: int16 positions put in place by the node's scale and translation
+    # (glTF 2.0 spec, KHR_mesh_quantization); check undoes them and allows the morph
+    # comparison the two roundings of sqrt(3)/2 grid step each
+    out = tmp_path / "q"
+    res = run("bake", str(DEMO), "-o", str(out), "--tolerance-m", "2", "--quantize", "--quiet")
+    assert res.returncode == 0, res.stderr
+    doc = parse_glb((out / f"{NAME}.glb").read_bytes()).doc
+    assert "KHR_mesh_quantization" in doc.get("extensionsRequired", [])
+    mesh0 = doc["meshes"][doc["nodes"][doc["scenes"][0]["nodes"][0]]["mesh"]]
+    position = mesh0["primitives"][0]["attributes"]["POSITION"]
+    assert doc["accessors"][position]["componentType"] == 5122  # SHORT (int16)
+    res = run("check", str(DEMO), str(out), "--json")
+    report = json.loads(res.stdout)
+    assert res.returncode == 0 and report["ok"] is True, report["failures"]
+    step = json.loads((out / f"{NAME}.report.json").read_text())["export"]["quantization"]["step_m"]
+    morph = [c for c in report["checks"] if c["check"] == "morph on coarser"]
+    assert morph and all(c["limit"] >= 3**0.5 * step for c in morph)
+
+
+@pytest.mark.slow
 def test_check_json_has_every_measurement(baseline: tuple[int, dict[str, Any]]) -> None:
     _, report = baseline
     for key in ("ok", "planet", "checks", "failures", "float32_allowance_m", "measure_order"):

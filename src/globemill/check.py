@@ -195,8 +195,11 @@ def _primitive(glb: Glb, mesh_index: int) -> tuple[F32, I64, dict[str, Any]]:
     if prim.get("mode", _TRIANGLES) != _TRIANGLES:
         raise CheckInputError(f"{glb.name}: mesh {mesh_index}: primitive mode is not triangles")
     pos = glb.accessor(pos_index)
-    if pos.shape[1] != 3 or pos.dtype != np.float32:
-        raise CheckInputError(f"{glb.name}: mesh {mesh_index}: POSITION is not float32 VEC3")
+    if pos.ndim != 2 or pos.shape[1] != 3 or pos.dtype not in (np.float32, np.int16):
+        raise CheckInputError(
+            f"{glb.name}: mesh {mesh_index}: POSITION is not float32 or int16 "
+            "(KHR_mesh_quantization) VEC3"
+        )
     tris = _triangles(glb, idx_index, len(pos), f"mesh {mesh_index}")
     return pos, tris, prim
 
@@ -226,6 +229,7 @@ class ChunkLevel:
         `interior` triangles plus seams[m] (no entry: no border to replace)
     gid : (n,) int64 ids of the positions after welding every mesh of the file (set by read_world)
     skirt : (k, 3) int64 skirt triangles taken out of `triangles` (bakes with skirts only)
+    step_m : grid step of the stored positions when quantized (int16), 0 for float32
     """
 
     chunk: int
@@ -239,6 +243,7 @@ class ChunkLevel:
     neighbors: tuple[int, ...]
     gid: I64 = field(default_factory=lambda: np.zeros(0, np.int64))
     skirt: I64 = field(default_factory=lambda: np.zeros((0, 3), np.int64))
+    step_m: float = 0.0
 
     def variant(self, mask: int) -> I64:
         """Local triangles drawn when the neighbours across the edges in `mask` are coarser."""
@@ -248,10 +253,12 @@ class ChunkLevel:
 
 @dataclass
 class World:
-    """chunks[c][k]: chunk c at level k; welded : (W, 3) float32 every distinct position."""
+    """chunks[c][k]: chunk c at level k; welded : (W, 3) float32 every distinct position;
+    quant_step_m : the largest grid step of quantized (int16) positions, 0 for float32 files."""
 
     chunks: list[list[ChunkLevel]]
     welded: F32
+    quant_step_m: float = 0.0
 
     @property
     def levels(self) -> int:
@@ -283,11 +290,14 @@ def read_world(glb: Glb) -> World:
             lod = nodes[root].get("extensions", {}).get("MSFT_lod", {})
             chain = [root] + [int(i) for i in lod.get("ids", [])]
             meshes = [int(nodes[i]["mesh"]) for i in chain]
+            places = [_placement(nodes[i]) for i in chain]
         except (KeyError, IndexError, TypeError, ValueError, AttributeError):
             raise CheckInputError(
                 f"{glb.name}: root node {root} or its MSFT_lod nodes lack a mesh"
             ) from None
-        chunks.append([_chunk_level(glb, m, k) for k, m in enumerate(meshes)])
+        chunks.append(
+            [_chunk_level(glb, m, k, places[k]) for k, m in enumerate(meshes)]
+        )
     if not chunks:
         raise CheckInputError(f"{glb.name}: the scene has no chunks")
     for c, levels in enumerate(chunks):
@@ -306,11 +316,24 @@ def read_world(glb: Glb) -> World:
     for cl in every:
         cl.gid = inv[start : start + len(cl.positions)]
         start += len(cl.positions)
-    return World(chunks, welded)
+    return World(chunks, welded, max(cl.step_m for cl in every))
 
 
-def _chunk_level(glb: Glb, mesh_index: int, expected_level: int) -> ChunkLevel:
-    pos, tris, prim = _primitive(glb, mesh_index)
+def _placement(node: dict[str, Any]) -> tuple[F64, F64]:
+    """A node's scale and translation (a quantized bake puts its int16 positions in place with
+    them, docs/gltf.md Layouts; a float32 bake has neither)."""
+    scale = np.asarray(node.get("scale", [1.0, 1.0, 1.0]), dtype=np.float64).reshape(3)
+    shift = np.asarray(node.get("translation", [0.0, 0.0, 0.0]), dtype=np.float64).reshape(3)
+    return scale, shift
+
+
+def _chunk_level(
+    glb: Glb, mesh_index: int, expected_level: int, place: tuple[F64, F64]
+) -> ChunkLevel:
+    raw, tris, prim = _primitive(glb, mesh_index)
+    scale, shift = place
+    quantized = raw.dtype != np.float32
+    pos = (raw * scale + shift).astype(np.float32) if quantized else raw
     mesh = glb.doc["meshes"][mesh_index]
     ex = mesh.get("extras", {})
     what = f"mesh {mesh.get('name', mesh_index)}"
@@ -340,9 +363,11 @@ def _chunk_level(glb: Glb, mesh_index: int, expected_level: int) -> ChunkLevel:
         d = glb.accessor(targets[0]["POSITION"])
         if d.shape != pos.shape or d.dtype != np.float32:
             raise CheckInputError(f"{glb.name}: {what}: morph target does not match POSITION")
-        # the target stores displacements (glTF morph targets): the morph position is their sum
-        morph = pos.astype(np.float64) + d.astype(np.float64)
-    return ChunkLevel(chunk, level, tol, pos, tris, interior, seams, morph, neighbors)
+        # the target stores displacements (glTF morph targets), in the node's units: the morph
+        # position is their sum, put in place like the positions
+        morph = (raw.astype(np.float64) + d.astype(np.float64)) * scale + shift
+    step = float(np.max(np.abs(scale))) if quantized else 0.0
+    return ChunkLevel(chunk, level, tol, pos, tris, interior, seams, morph, neighbors, step_m=step)
 
 
 def read_colliders(glb: Glb) -> tuple[list[int], list[F32], list[I64]]:
@@ -1663,7 +1688,9 @@ def run_check(
             check_topology(pos, tris, chunk, name="watertight", level=k, min_area_m2=min_area)
         )
         if k + 1 < world.levels:
-            checks.append(check_morph(world, k, allowance))
+            # a quantized file rounds the morph position and the coarser triangle each by up to
+            # sqrt(3)/2 of its grid step
+            checks.append(check_morph(world, k, allowance + math.sqrt(3) * world.quant_step_m))
             if stitched:
                 checks.extend(check_seams(world, k))
             else:
