@@ -63,26 +63,46 @@ void leaves_of(const Hierarchy& h, const std::vector<std::uint8_t>& in, std::vec
     }
 }
 
-// measure the nodes not measured yet at the sampling this level asks for (the same sampling rule
-// as the hierarchy's own verification, at the level's own tolerance); a node that is a leaf of
-// several levels keeps its value where their sampling orders agree. each value is a function of
-// the node and the level alone, so an edit that keeps a node keeps its numbers
+// a node's measurement at one level: the hierarchy's own for a leaf of the hierarchy (denser,
+// whatever level it is a leaf of), else the one at the sampling order this level asks for (the
+// same sampling rule as the hierarchy's verification, at the level's own tolerance)
+struct Measured {
+    float err = -1, m2s = 0, s2m = 0;
+};
+int level_order(const Hierarchy& h, const Node& t, int order, double spacing) {
+    return sampling_order(h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, spacing);
+}
+Measured measured_at(const Node& t, int need) {
+    if ((t.child == kNone && t.err >= 0) || (t.err >= 0 && t.err_order == need)) return {t.err, t.m2s, t.s2m};
+    if (t.alt_order != 0 && t.alt_order == need) return {std::max(t.alt_m2s, t.alt_s2m), t.alt_m2s, t.alt_s2m};
+    return {};
+}
+
+// measure the nodes not measured yet at this level's sampling. a node keeps two measurements (at
+// two sampling orders) so that one that is a leaf of several levels is measured once per order,
+// in a bake and across the edits of a session. each value is a function of the node and the
+// order alone (err = max(m2s, s2m) exactly, float rounding being monotonic), so which slot holds
+// it does not matter and an edit that keeps a node keeps its numbers
 void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& ids, int order,
                    double spacing, int threads) {
     parallel_for(ids.size(), threads, [&](std::size_t b, std::size_t e) {
         for (std::size_t k = b; k < e; ++k) {
             Node& t = h.nodes[ids[k]];
-            // a leaf of the hierarchy keeps the (denser) measurement of the hierarchy's own
-            // verification, whatever level it is a leaf of
-            if (t.child == kNone && t.err >= 0) continue;
-            const int need = sampling_order(h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, spacing);
-            if (t.err >= 0 && t.err_order == need) continue;
+            const int need = level_order(h, t, order, spacing);
+            if (measured_at(t, need).err >= 0) continue;
             double m2s, s2m;
-            t.err = static_cast<float>(
-                triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), need, m2s, s2m));
-            t.err_order = static_cast<std::uint8_t>(need);
-            t.m2s = static_cast<float>(m2s);
-            t.s2m = static_cast<float>(s2m);
+            const double w =
+                triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), need, m2s, s2m);
+            if (t.err < 0) {
+                t.err = static_cast<float>(w);
+                t.err_order = static_cast<std::uint8_t>(need);
+                t.m2s = static_cast<float>(m2s);
+                t.s2m = static_cast<float>(s2m);
+            } else {
+                t.alt_order = static_cast<std::uint8_t>(need);
+                t.alt_m2s = static_cast<float>(m2s);
+                t.alt_s2m = static_cast<float>(s2m);
+            }
         }
     });
 }
@@ -99,7 +119,8 @@ void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int t
         measure_nodes(field, h, check, verify_order, spacing, threads);
         for (std::uint32_t id : check) {
             const Node& t = h.nodes[id];
-            if (t.err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
+            const float err = measured_at(t, level_order(h, t, verify_order, spacing)).err;
+            if (err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
                 in[id] = 1;
                 stack.push_back(id);
                 ++lv.repaired;
@@ -120,7 +141,8 @@ void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int t
 
 // the leaves as the level's triangles, grouped by chunk, in node order within a chunk (a
 // counting sort)
-void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& leaves, Level& lv) {
+void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& leaves, int verify_order, double spacing,
+                       Level& lv) {
     std::vector<std::uint32_t> first(static_cast<std::size_t>(h.chunks) + 1, 0), order(leaves.size());
     for (std::uint32_t id : leaves) ++first[h.nodes[id].chunk + 1];
     for (std::size_t c = 0; c < h.chunks; ++c) first[c + 1] += first[c];
@@ -129,13 +151,15 @@ void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& lea
     lv.triangles.reserve(order.size() * 3);
     for (std::uint32_t id : order) {
         const Node& t = h.nodes[id];
+        const Measured m = verify_order > 0 ? measured_at(t, level_order(h, t, verify_order, spacing))
+                                            : Measured{t.err, t.m2s, t.s2m};
         lv.triangles.insert(lv.triangles.end(), {t.v[0], t.v[1], t.v[2]});
         lv.chunk.push_back(t.chunk);
-        lv.errors.push_back(t.err);
+        lv.errors.push_back(m.err);
         for (int k = 0; k < 3; ++k) lv.present[t.v[k]] = 1;
-        lv.max_error_m = std::max(lv.max_error_m, static_cast<double>(t.err));
-        lv.mesh_to_surface_m = std::max(lv.mesh_to_surface_m, static_cast<double>(t.m2s));
-        lv.surface_to_mesh_m = std::max(lv.surface_to_mesh_m, static_cast<double>(t.s2m));
+        lv.max_error_m = std::max(lv.max_error_m, static_cast<double>(m.err));
+        lv.mesh_to_surface_m = std::max(lv.mesh_to_surface_m, static_cast<double>(m.m2s));
+        lv.surface_to_mesh_m = std::max(lv.surface_to_mesh_m, static_cast<double>(m.s2m));
     }
 }
 
@@ -147,7 +171,7 @@ void cut_level(const Field& field, Hierarchy& h, int verify_order, int threads, 
     verify_and_repair(field, h, verify_order, threads, split, lv);
     std::vector<std::uint32_t> leaves;
     leaves_of(h, split, leaves);
-    collect_triangles(h, leaves, lv);
+    collect_triangles(h, leaves, verify_order, verify_spacing(field, lv.tolerance_m), lv);
 }
 
 }  // namespace gm

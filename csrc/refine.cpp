@@ -140,7 +140,8 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     const Node& o = opt.previous->nodes[old];
     // the field is read inside the node's cap and, by projections onto the ground, up to about
     // its measured deviation beyond it
-    const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * std::max(0.0f, o.err) + 2 * o.tau) / R;
+    const float err = std::max({0.0f, o.err, o.alt_order ? std::max(o.alt_m2s, o.alt_s2m) : 0.0f});
+    const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * err + 2 * o.tau) / R;
     for (const Cap& c : opt.changed) {
         const double a = reach + c.angle;
         if (a >= kPi || dot(cap.c, c.c) >= std::cos(a) - 1e-12) return;
@@ -153,6 +154,9 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
         t.m2s = o.m2s;
         t.s2m = o.s2m;
     }
+    t.alt_order = o.alt_order;
+    t.alt_m2s = o.alt_m2s;
+    t.alt_s2m = o.alt_s2m;
 }
 
 double Refiner::midpoint_radius(const Node& t) const {
@@ -616,6 +620,13 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
                     Node& t = tris[check[i]];
                     const int order =
                         sampling_order(pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), opt.verify_order, spacing);
+                    if (t.err >= 0 && t.err_order != order && t.alt_order == order) {
+                        // measured at this order by a level of the previous bake: the same numbers
+                        std::swap(t.err_order, t.alt_order);
+                        std::swap(t.m2s, t.alt_m2s);
+                        std::swap(t.s2m, t.alt_s2m);
+                        t.err = std::max(t.m2s, t.s2m);
+                    }
                     if (t.err < 0 || t.err_order != order) {  // (an incremental rebuild may have it already)
                         double m2s, s2m;
                         double w = triangle_deviation(F, pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), order, m2s, s2m);
