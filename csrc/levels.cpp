@@ -72,24 +72,28 @@ struct Measured {
 int level_order(const Hierarchy& h, const Node& t, int order, double spacing) {
     return sampling_order(h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), order, spacing);
 }
-Measured measured_at(const Node& t, int need) {
-    if ((t.child == kNone && t.err >= 0) || (t.err >= 0 && t.err_order == need)) return {t.err, t.m2s, t.s2m};
-    if (t.alt_order != 0 && t.alt_order == need) return {std::max(t.alt_m2s, t.alt_s2m), t.alt_m2s, t.alt_s2m};
+Measured measured_at(const Hierarchy& h, const Node& t, int order, double spacing) {
+    if (t.child == kNone && t.err >= 0) return {t.err, t.m2s, t.s2m};
+    const int need = level_order(h, t, order, spacing);
+    if (t.err >= 0 && t.err_order == need) return {t.err, t.m2s, t.s2m};
+    for (int k = 0; k < kAltSlots; ++k)
+        if (t.alt_order[k] != 0 && t.alt_order[k] == need)
+            return {std::max(t.alt_m2s[k], t.alt_s2m[k]), t.alt_m2s[k], t.alt_s2m[k]};
     return {};
 }
 
-// measure the nodes not measured yet at this level's sampling. a node keeps two measurements (at
-// two sampling orders) so that one that is a leaf of several levels is measured once per order,
-// in a bake and across the edits of a session. each value is a function of the node and the
-// order alone (err = max(m2s, s2m) exactly, float rounding being monotonic), so which slot holds
-// it does not matter and an edit that keeps a node keeps its numbers
+// measure the nodes not measured yet at this level's sampling. a node keeps up to 1 + kAltSlots
+// measurements (at as many sampling orders) so that one that is a leaf of several levels is
+// measured once per order, in a bake and across the edits of a session. each value is a function
+// of the node and the order alone (err = max(m2s, s2m) exactly, float rounding being monotonic),
+// so which slot holds it does not matter and an edit that keeps a node keeps its numbers
 void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& ids, int order,
                    double spacing, int threads) {
     parallel_for(ids.size(), threads, [&](std::size_t b, std::size_t e) {
         for (std::size_t k = b; k < e; ++k) {
             Node& t = h.nodes[ids[k]];
+            if (measured_at(h, t, order, spacing).err >= 0) continue;
             const int need = level_order(h, t, order, spacing);
-            if (measured_at(t, need).err >= 0) continue;
             double m2s, s2m;
             const double w =
                 triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), need, m2s, s2m);
@@ -99,9 +103,13 @@ void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint
                 t.m2s = static_cast<float>(m2s);
                 t.s2m = static_cast<float>(s2m);
             } else {
-                t.alt_order = static_cast<std::uint8_t>(need);
-                t.alt_m2s = static_cast<float>(m2s);
-                t.alt_s2m = static_cast<float>(s2m);
+                // the first free slot, else the last one (a node needs more orders than it keeps
+                // only with more levels than usual: it is then measured again, same numbers)
+                int a = 0;
+                while (a + 1 < kAltSlots && t.alt_order[a] != 0) ++a;
+                t.alt_order[a] = static_cast<std::uint8_t>(need);
+                t.alt_m2s[a] = static_cast<float>(m2s);
+                t.alt_s2m[a] = static_cast<float>(s2m);
             }
         }
     });
@@ -119,7 +127,7 @@ void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int t
         measure_nodes(field, h, check, verify_order, spacing, threads);
         for (std::uint32_t id : check) {
             const Node& t = h.nodes[id];
-            const float err = measured_at(t, level_order(h, t, verify_order, spacing)).err;
+            const float err = measured_at(h, t, verify_order, spacing).err;
             if (err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
                 in[id] = 1;
                 stack.push_back(id);
@@ -151,7 +159,7 @@ void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& lea
     lv.triangles.reserve(order.size() * 3);
     for (std::uint32_t id : order) {
         const Node& t = h.nodes[id];
-        const Measured m = verify_order > 0 ? measured_at(t, level_order(h, t, verify_order, spacing))
+        const Measured m = verify_order > 0 ? measured_at(h, t, verify_order, spacing)
                                             : Measured{t.err, t.m2s, t.s2m};
         lv.triangles.insert(lv.triangles.end(), {t.v[0], t.v[1], t.v[2]});
         lv.chunk.push_back(t.chunk);

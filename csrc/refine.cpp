@@ -140,7 +140,9 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     const Node& o = opt.previous->nodes[old];
     // the field is read inside the node's cap and, by projections onto the ground, up to about
     // its measured deviation beyond it
-    const float err = std::max({0.0f, o.err, o.alt_order ? std::max(o.alt_m2s, o.alt_s2m) : 0.0f});
+    float err = std::max(0.0f, o.err);
+    for (int k = 0; k < kAltSlots; ++k)
+        if (o.alt_order[k]) err = std::max({err, o.alt_m2s[k], o.alt_s2m[k]});
     const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * err + 2 * o.tau) / R;
     for (const Cap& c : opt.changed) {
         const double a = reach + c.angle;
@@ -154,9 +156,11 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
         t.m2s = o.m2s;
         t.s2m = o.s2m;
     }
-    t.alt_order = o.alt_order;
-    t.alt_m2s = o.alt_m2s;
-    t.alt_s2m = o.alt_s2m;
+    for (int k = 0; k < kAltSlots; ++k) {
+        t.alt_order[k] = o.alt_order[k];
+        t.alt_m2s[k] = o.alt_m2s[k];
+        t.alt_s2m[k] = o.alt_s2m[k];
+    }
 }
 
 double Refiner::midpoint_radius(const Node& t) const {
@@ -383,6 +387,14 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
     rad.resize(dir.size());
     for (std::size_t i = 0; i < dir.size(); ++i) rad[i] = R + F.eval(dir[i], nullptr);
     std::size_t reserve = static_cast<std::size_t>(std::min<std::uint64_t>(stats.estimate, opt.max_triangles)) * 2 + 64;
+    // an incremental rebuild makes about as many nodes and vertices as the hierarchy before it
+    if (opt.previous) {
+        reserve = std::max(reserve, opt.previous->nodes.size() + opt.previous->nodes.size() / 16 + 64);
+        const std::size_t nv = opt.previous->dir.size() + opt.previous->dir.size() / 16 + 64;
+        dir.reserve(nv);
+        rad.reserve(nv);
+        h.vparent.reserve(2 * nv);
+    }
     tris.reserve(std::min<std::size_t>(reserve, 1u << 26));
     for (std::uint32_t f = 0; f < 20; ++f) {
         // rotate so that v[0] is opposite the matched edge
@@ -620,11 +632,12 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
                     Node& t = tris[check[i]];
                     const int order =
                         sampling_order(pos(t.v[0]), pos(t.v[1]), pos(t.v[2]), opt.verify_order, spacing);
-                    if (t.err >= 0 && t.err_order != order && t.alt_order == order) {
+                    for (int a = 0; a < kAltSlots; ++a) {
+                        if (t.err < 0 || t.err_order == order || t.alt_order[a] != order) continue;
                         // measured at this order by a level of the previous bake: the same numbers
-                        std::swap(t.err_order, t.alt_order);
-                        std::swap(t.m2s, t.alt_m2s);
-                        std::swap(t.s2m, t.alt_s2m);
+                        std::swap(t.err_order, t.alt_order[a]);
+                        std::swap(t.m2s, t.alt_m2s[a]);
+                        std::swap(t.s2m, t.alt_s2m[a]);
                         t.err = std::max(t.m2s, t.s2m);
                     }
                     if (t.err < 0 || t.err_order != order) {  // (an incremental rebuild may have it already)

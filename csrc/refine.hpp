@@ -61,6 +61,10 @@ struct RefineStats {
     std::uint64_t verify_points = 0;  // field evaluations of the a posteriori measurement
 };
 
+// measurements a node keeps besides its first (a node is a leaf of at most about three levels
+// whose sampling orders differ)
+constexpr int kAltSlots = 2;
+
 // one triangle of the bisection hierarchy
 struct Node {
     std::uint32_t v[3];   // v[0] newest vertex; refinement edge (base) is v[1]-v[2]
@@ -73,9 +77,9 @@ struct Node {
     std::uint8_t level = 0;
     std::uint8_t tested = 0;
     std::uint8_t err_order = 0;  // the sampling order err was measured at (see sampling_order)
-    // a second measurement at another sampling order (0: none), for a node that is a leaf of
-    // levels whose verification spacings differ; its deviation is max(alt_m2s, alt_s2m)
-    std::uint8_t alt_order = 0;
+    // more measurements at other sampling orders (0: none), for a node that is a leaf of levels
+    // whose verification spacings differ; slot k's deviation is max(alt_m2s[k], alt_s2m[k])
+    std::uint8_t alt_order[kAltSlots] = {};
     double mid_r = NAN;  // R + H at the base midpoint once known
     // critical tolerance: the probes and feature seeding want this node split at every
     // tolerance below tau (0: never)
@@ -84,7 +88,7 @@ struct Node {
     // the part of tau set by feature seeding and walls (not by probes): the budget survey
     // follows it down to the finest tolerance, since it does not shrink with the node's area
     float tau_fine = 0;
-    float alt_m2s = 0, alt_s2m = 0;
+    float alt_m2s[kAltSlots] = {}, alt_s2m[kAltSlots] = {};
 };
 
 // the whole bisection hierarchy; every level of detail is a set of its nodes
