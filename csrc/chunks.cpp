@@ -95,13 +95,23 @@ void chunk_vertex_ids(const Level& level, std::uint32_t chunks, std::vector<std:
     ids.reserve(level.chunk.size() / 2 + 3 * static_cast<std::size_t>(chunks));
     std::size_t t = 0;
     std::vector<std::uint32_t> run;
+    // the chunk that last took each vertex: each chunk sorts its distinct ids only (about a sixth
+    // of its corner list)
+    std::size_t nv = level.present.size();
+    for (std::uint32_t v : level.triangles) nv = std::max<std::size_t>(nv, std::size_t{v} + 1);
+    std::vector<std::uint32_t> taken(nv, kNone);
     for (std::uint32_t c = 0; c < chunks; ++c) {
         std::size_t e = t;
         while (e < level.chunk.size() && level.chunk[e] == c) ++e;
-        run.assign(level.triangles.begin() + static_cast<std::ptrdiff_t>(3 * t),
-                   level.triangles.begin() + static_cast<std::ptrdiff_t>(3 * e));
+        run.clear();
+        for (std::size_t i = 3 * t; i < 3 * e; ++i) {
+            const std::uint32_t v = level.triangles[i];
+            if (taken[v] != c) {
+                taken[v] = c;
+                run.push_back(v);
+            }
+        }
         std::sort(run.begin(), run.end());
-        run.erase(std::unique(run.begin(), run.end()), run.end());
         ids.insert(ids.end(), run.begin(), run.end());
         offsets[c + 1] = ids.size();
         t = e;
