@@ -16,6 +16,7 @@
 #include <utility>
 
 #include "measure.hpp"
+#include "refine.hpp"
 
 namespace gm {
 
@@ -49,32 +50,67 @@ struct Change {
     bool dead;
 };
 
-class AnglePass {
-public:
-    AnglePass(const Field& f, const std::vector<double>& P, std::vector<std::uint32_t>& tris,
-              std::vector<std::uint32_t>& chunk, double target, double tol, int order)
-        : f_(f), P_(P), tris_(tris), chunk_(chunk), target_(target), tol_(tol), order_(order) {
+// the mesh the pass works on, shared by its workers
+struct AngleMesh {
+    AngleMesh(const Field& f, const std::vector<double>& P, const std::vector<std::uint32_t>& tris,
+              const std::vector<std::uint32_t>& chunk, double target, double tol, int order)
+        : f(f), P(P), chunk(chunk), target(target), tol(tol), order(order) {
         const std::size_t T = chunk.size();
-        t_.resize(T);
-        alive_.assign(T, 1);
-        ang_.resize(T);
-        dev_.assign(T, -1.0);
-        m2s_.assign(T, 0.0);
-        inc_.resize(P.size() / 3);
-        for (std::size_t t = 0; t < T; ++t) {
+        t.resize(T);
+        alive.assign(T, 1);
+        ang.resize(T);
+        dev.assign(T, -1.0);
+        m2s.assign(T, 0.0);
+        inc.resize(P.size() / 3);
+        border.assign(P.size() / 3, 0);
+        std::vector<std::uint32_t> owner(P.size() / 3, kNoChunk);
+        for (std::size_t i = 0; i < T; ++i) {
             for (int k = 0; k < 3; ++k) {
-                t_[t].v[k] = tris[3 * t + static_cast<std::size_t>(k)];
-                inc_[t_[t].v[k]].push_back(static_cast<std::uint32_t>(t));
+                const std::uint32_t v = tris[3 * i + static_cast<std::size_t>(k)];
+                t[i].v[k] = v;
+                inc[v].push_back(static_cast<std::uint32_t>(i));
+                if (owner[v] == kNoChunk) owner[v] = chunk[i];
+                else if (owner[v] != chunk[i]) border[v] = 1;
             }
-            ang_[t] = angle_of(t_[t]);
+            ang[i] = smallest_angle_deg(pos(t[i].v[0]), pos(t[i].v[1]), pos(t[i].v[2]));
         }
     }
+    Vec3 pos(std::uint32_t v) const {
+        const double* q = &P[3 * static_cast<std::size_t>(v)];
+        return {q[0], q[1], q[2]};
+    }
+    static constexpr std::uint32_t kNoChunk = 0xffffffffu;
 
-    AngleStats run() {
+    const Field& f;
+    const std::vector<double>& P;
+    const std::vector<std::uint32_t>& chunk;
+    const double target, tol;
+    const int order;
+    std::vector<Tri> t;
+    std::vector<std::uint8_t> alive;
+    std::vector<double> ang;
+    std::vector<double> dev;  // deviation with the current surroundings (< 0: not yet measured)
+    std::vector<double> m2s;  // mesh -> surface part of dev
+    std::vector<std::vector<std::uint32_t>> inc;
+    std::vector<std::uint8_t> border;  // vertex of triangles of two or more chunks
+};
+
+// one worker of the pass. `local`: only moves whose triangles (before and after) have no border
+// vertex are taken; a triangle touching a border vertex then never changes, nor does a border
+// vertex's triangle list, so workers on different chunks read nothing another one writes and
+// each chunk's result depends on that chunk alone, not on the thread count.
+class AnglePass {
+public:
+    AnglePass(AngleMesh& m, bool local)
+        : f_(m.f), P_(m.P), chunk_(m.chunk), target_(m.target), tol_(m.tol), order_(m.order), t_(m.t),
+          alive_(m.alive), ang_(m.ang), dev_(m.dev), m2s_(m.m2s), inc_(m.inc), border_(m.border), local_(local) {}
+
+    // improves the triangles [b, e) below the target, best first, in rounds until none moves
+    AngleStats run(std::uint32_t b, std::uint32_t e) {
         for (int round = 0; round < kRounds; ++round) {
             const std::uint64_t moves = stats_.collapses + stats_.flips;
-            for (std::uint32_t t = 0; t < t_.size(); ++t)
-                if (alive_[t] && ang_[t] < target_) queue_.push({ang_[t], t});
+            for (std::uint32_t t = b; t < e; ++t)
+                if (alive_[t] && ang_[t] < target_ && !(local_ && touches_border(t))) queue_.push({ang_[t], t});
             while (!queue_.empty()) {
                 const auto [a, t] = queue_.top();
                 queue_.pop();
@@ -83,21 +119,13 @@ public:
             }
             if (stats_.collapses + stats_.flips == moves) break;
         }
-        for (std::uint32_t t = 0; t < t_.size(); ++t)
-            if (alive_[t] && ang_[t] < target_) ++stats_.stuck;
-        // write back, keeping the order (so chunks stay grouped)
-        std::size_t n = 0;
-        for (std::size_t t = 0; t < t_.size(); ++t) {
-            if (!alive_[t]) continue;
-            for (int k = 0; k < 3; ++k) tris_[3 * n + static_cast<std::size_t>(k)] = t_[t].v[k];
-            chunk_[n++] = chunk_[t];
-        }
-        tris_.resize(3 * n);
-        chunk_.resize(n);
         return stats_;
     }
 
 private:
+    bool touches_border(std::uint32_t t) const {
+        return border_[t_[t].v[0]] || border_[t_[t].v[1]] || border_[t_[t].v[2]];
+    }
     Vec3 pos(std::uint32_t v) const {
         const double* q = &P_[3 * static_cast<std::size_t>(v)];
         return {q[0], q[1], q[2]};
@@ -285,6 +313,9 @@ private:
             for (int k = 0; k < 3; ++k) verts_.insert(verts_.end(), {c.tri.v[k], t_[c.t].v[k]});
         std::sort(verts_.begin(), verts_.end());
         verts_.erase(std::unique(verts_.begin(), verts_.end()), verts_.end());
+        if (local_)
+            for (std::uint32_t v : verts_)
+                if (border_[v]) return false;
         around_.clear();
         for (std::uint32_t v : verts_) ring_after(v, around_);
         std::sort(around_.begin(), around_.end());
@@ -362,22 +393,24 @@ private:
 
     const Field& f_;
     const std::vector<double>& P_;
-    std::vector<std::uint32_t>& tris_;
-    std::vector<std::uint32_t>& chunk_;
+    const std::vector<std::uint32_t>& chunk_;
     const double target_, tol_;
     const int order_;
-    std::vector<Tri> t_;
-    std::vector<std::uint8_t> alive_;
-    std::vector<double> ang_;
-    std::vector<double> dev_;  // deviation with the current surroundings (< 0: not yet measured)
-    std::vector<Change> ov_;   // the pending move
+    std::vector<Tri>& t_;
+    std::vector<std::uint8_t>& alive_;
+    std::vector<double>& ang_;
+    std::vector<double>& dev_;
+    std::vector<double>& m2s_;
+    std::vector<std::vector<std::uint32_t>>& inc_;
+    const std::vector<std::uint8_t>& border_;
+    const bool local_;
+    // this worker's scratch
+    std::vector<Change> ov_;  // the pending move
     std::vector<std::uint32_t> ring_, verts_, around_;
     std::vector<Vec3> cover_;
     std::vector<std::tuple<std::uint32_t, double, double>> pending_;  // triangle, deviation, mesh -> surface
-    std::vector<double> m2s_;  // mesh -> surface part of dev_
     std::vector<Change> keep_;
     double last_m2s_ = 0;
-    std::vector<std::vector<std::uint32_t>> inc_;
     using Entry = std::pair<double, std::uint32_t>;
     std::priority_queue<Entry, std::vector<Entry>, std::greater<Entry>> queue_;
     std::vector<std::uint32_t> scratch_;
@@ -389,9 +422,42 @@ private:
 
 AngleStats raise_min_angle(const Field& field, const std::vector<double>& P, std::vector<std::uint32_t>& tris,
                            std::vector<std::uint32_t>& chunk, double target_deg, double tolerance_m,
-                           int measure_order) {
+                           int measure_order, int threads) {
     if (target_deg <= 0 || chunk.empty()) return AngleStats{};
-    return AnglePass(field, P, tris, chunk, target_deg, tolerance_m, measure_order).run();
+    AngleMesh m(field, P, tris, chunk, target_deg, tolerance_m, measure_order);
+    const std::uint32_t T = static_cast<std::uint32_t>(chunk.size());
+    // chunk c's triangles are [start[c], start[c + 1])
+    std::vector<std::uint32_t> start{0};
+    for (std::uint32_t t = 1; t < T; ++t)
+        if (chunk[t] != chunk[t - 1]) start.push_back(t);
+    start.push_back(T);
+    const std::size_t runs = start.size() - 1;
+    // first each chunk inside its border, chunks in parallel; then the whole mesh in one pass
+    std::vector<AngleStats> part(runs);
+    parallel_for(
+        runs, threads,
+        [&](std::size_t b, std::size_t e) {
+            for (std::size_t c = b; c < e; ++c) part[c] = AnglePass(m, true).run(start[c], start[c + 1]);
+        },
+        1);
+    AngleStats stats = AnglePass(m, false).run(0, T);
+    for (const AngleStats& p : part) {
+        stats.collapses += p.collapses;
+        stats.flips += p.flips;
+    }
+    stats.stuck = 0;
+    for (std::uint32_t t = 0; t < T; ++t)
+        if (m.alive[t] && m.ang[t] < target_deg) ++stats.stuck;
+    // write back, keeping the order (so chunks stay grouped)
+    std::size_t n = 0;
+    for (std::uint32_t t = 0; t < T; ++t) {
+        if (!m.alive[t]) continue;
+        for (int k = 0; k < 3; ++k) tris[3 * n + static_cast<std::size_t>(k)] = m.t[t].v[k];
+        chunk[n++] = chunk[t];
+    }
+    tris.resize(3 * n);
+    chunk.resize(n);
+    return stats;
 }
 
 }  // namespace gm

@@ -26,9 +26,12 @@ struct AngleStats {
 // was, keeps the mesh a closed 2-manifold (link condition) and leaves every new triangle within
 // `tolerance_m` of the surface, measured as `measure` does on a grid of twice `measure_order`
 // (a superset of its samples, so the bake's own measurement of a new triangle never exceeds it).
-// sequential and ordered by (angle, triangle): the same input gives the same mesh.
+// first every chunk inside its border (moves that touch no vertex shared with another chunk),
+// chunks in parallel on `threads` workers; then the whole mesh in one sequential pass. each pass
+// takes moves in (angle, triangle) order: the same input gives the same mesh, whatever the thread
+// count.
 AngleStats raise_min_angle(const Field& field, const std::vector<double>& P, std::vector<std::uint32_t>& tris,
                            std::vector<std::uint32_t>& chunk, double target_deg, double tolerance_m,
-                           int measure_order);
+                           int measure_order, int threads);
 
 }  // namespace gm

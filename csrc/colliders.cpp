@@ -100,12 +100,12 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
     const double target = s.collider_min_angle_deg;
     const double mesh_tol = centered ? tol / 1.5 : tol;
     AngleStats as = raise_min_angle(field, r.positions, lv.triangles, lv.chunk, target,
-                                    kColliderAngleMargin * mesh_tol, kMeasureOrder);
+                                    kColliderAngleMargin * mesh_tol, kMeasureOrder, s.threads);
     const std::vector<double> P =
         centered ? bias_vertices(field, r.positions, lv.triangles, tol / 3, s.threads) : r.positions;
     if (centered) {
         const AngleStats more = raise_min_angle(field, P, lv.triangles, lv.chunk, target, kColliderAngleMargin * tol,
-                                                kMeasureOrder);
+                                                kMeasureOrder, s.threads);
         as.collapses += more.collapses;
         as.flips += more.flips;
         as.stuck = more.stuck;
