@@ -181,11 +181,19 @@ double Refiner::critical_tolerance(const Node& t, float& fine) const {
     Cap cap = cap_of(t);
     const double size = 2 * R * cap.angle;  // diameter of the footprint on the base sphere
     double tau = 0;
-    // seeding: a feature narrower than the triangle that could move the ground by more than
-    // half the tolerance must be resolved before probes can be trusted to see it
+    // seeding. a feature narrower than the triangle can hide between the probes; the probes then
+    // look at the ground without it (`rest`), and its amplitude, the most it moves the ground
+    // (so the distance to it, every blend being 1-Lipschitz in the ground below), is added to
+    // what they see: a certified bound, so a feature whose whole amplitude fits in a level's
+    // tolerance forces no split there. noise octaves narrower than the triangle, and vertical
+    // walls crossing it, still set a floor on tau.
+    thread_local std::vector<std::uint32_t> rest;
+    rest.clear();
+    double hidden = 0;  // sum of the narrow features' amplitudes
     for (std::size_t i = 0; i < cnt; ++i) {
         const Feature& f = F.feature(list[i]);
         if (f.kind == Kind::Noise) {
+            rest.push_back(list[i]);
             // each octave narrower than the triangle, weighed by its amplitude
             double a = std::fabs(f.prm[0]), lam = 1.0 / f.prm[1];
             int oct = static_cast<int>(f.prm[2]);
@@ -193,7 +201,10 @@ double Refiner::critical_tolerance(const Node& t, float& fine) const {
                 if (lam < R * cap.angle) tau = std::max(tau, 2 * a / m);
             continue;
         }
-        if (f.scale_m < 0.5 * R * cap.angle) tau = std::max(tau, 2 * f.amp_m / m);
+        if (f.scale_m < 0.5 * R * cap.angle)
+            hidden += f.amp_m;
+        else
+            rest.push_back(list[i]);
         // a vertical wall crossing the triangle: it must get narrower than two tolerances
         if (f.step) {
             bool crosses;
@@ -212,48 +223,56 @@ double Refiner::critical_tolerance(const Node& t, float& fine) const {
             if (crosses) tau = std::max(tau, std::min(size / 2, 2 * f.amp_m) / m);
         }
     }
-    fine = static_cast<float>(std::min(tau, 8 * size / m));
-    // probes on the flat triangle against the surface, both ways
+    fine = static_cast<float>(std::min(std::max(tau, hidden / m), 8 * size / m));
+    const std::uint32_t* seen = rest.data();
+    const std::size_t nseen = rest.size();
+    // probes on the flat triangle against the surface (without the hidden features), both ways
     const bool walls = opt.mode != OffsetMode::Radial && F.has_steps();
     const double cap_tau = std::max(opt.tau_cap, kSurveyFactor * opt.tolerance_m);
+    double probed = 0;  // the largest offset the probes see
     auto probe = [&](Vec3 p) {
         double pn = norm(p);
         Vec3 u = (1.0 / pn) * p;
-        double H = F.eval(u, list, cnt, nullptr);
+        double H = F.eval(u, seen, nseen, nullptr);
         double radial = std::fabs(pn - R - H);
         // the radial offset bounds the other two (|grad F| >= 1): only a probe whose radial
-        // offset could raise tau costs a gradient or a projection
-        if (radial / m > tau) {
+        // offset could raise the bound costs a gradient or a projection
+        if (radial > probed && (radial + hidden) / m > tau) {
             double off = radial;
             if (opt.mode == OffsetMode::Normal) {
                 Vec3 g;
-                F.eval(u, list, cnt, &g);
+                F.eval(u, seen, nseen, &g);
                 off = radial / std::sqrt(1 + dot(g, g) / (pn * pn));
-            } else if (opt.mode == OffsetMode::Exact) {
+            } else if (opt.mode == OffsetMode::Exact && hidden == 0) {
+                // (a projection wanders off the footprint, where the ground without the hidden
+                // features is not known: with hidden ones, the radial offset bounds it)
                 off = std::min(radial, project_distance(F, p, nullptr, 0, 6));
             }
-            if (walls && off / m > tau) off = std::min(off, F.wall_distance(p));
-            tau = std::max(tau, off / m);
+            // the distance to the nearest wall bounds the distance to the ground with every
+            // feature in it, not without the hidden ones
+            if (walls && hidden == 0 && off > probed && off / m > tau) off = std::min(off, F.wall_distance(p));
+            probed = std::max(probed, off);
         }
         if (opt.mode == OffsetMode::Radial) return;
         // surface -> mesh: the ground point above the probe against this triangle
         Vec3 S = (R + H) * u;
-        tau = std::max(tau, norm(S - closest_on_triangle(S, P0, P1, P2)) / m);
+        probed = std::max(probed, norm(S - closest_on_triangle(S, P0, P1, P2)));
     };
     for (const Probe& pr : kProbes) {
-        if (tau > cap_tau) break;  // split at every level: the exact value is not needed
+        if (std::max(tau, (probed + hidden) / m) > cap_tau) break;  // split at every level
         probe(pr.b0 * P0 + pr.b1 * P1 + pr.b2 * P2);
     }
     // creases (a sharp ridge's crest, tips and foot, a crater's rim) inside the triangle
-    for (std::size_t i = 0; i < cnt && tau <= cap_tau; ++i) {
-        if (!F.has_creases(list[i])) continue;
+    for (std::size_t i = 0; i < nseen && std::max(tau, (probed + hidden) / m) <= cap_tau; ++i) {
+        if (!F.has_creases(seen[i])) continue;
         Vec3 pts[Field::kMaxCreasePoints];
-        int n = F.crease_points(list[i], cap.c, cap.angle, pts);
+        int n = F.crease_points(seen[i], cap.c, cap.angle, pts);
         for (int k = 0; k < n; ++k) {
             Vec3 p;
             if (ray_hits_triangle(pts[k], P0, P1, P2, p)) probe(p);
         }
     }
+    tau = std::max(tau, (probed + hidden) / m);
     // the size floor: a triangle an eighth of the (probe) tolerance across is never split
     return std::min(tau, 8 * size / m);
 }
