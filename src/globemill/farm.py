@@ -9,8 +9,9 @@
   ``pip install 'globemill[farm]'``). Dask workers write the outputs themselves, so ``outdir``
   must be a folder every worker sees at the same path (a shared filesystem).
 - Incremental: a world's content hash covers its canonical spec (``model_dump(mode="json")``
-  serialised with sorted keys), the bake options that change the output (tolerance, offset) and
-  the globemill version. A world is skipped and reported as cached only when its cache record,
+  serialised with sorted keys), the bake options that change the output (tolerance, offset,
+  levels, ratio, chunk level, seams, colliders on or off) and the globemill version. A world is
+  skipped and reported as cached only when its cache record,
   ``outdir/.globemill-cache/<name>.json``, holds the same hash and every output it lists holds
   the bytes whose SHA-256 was recorded when they were written (sizes alone would take a bake of
   a spec with one color changed as current). The record is removed before a world is re-baked
@@ -75,6 +76,7 @@ from ._atomic import (
     sweep_temporaries,
     write_files_atomically,
 )
+from .bake import check_overrides
 from .provenance import canonical_spec
 from .spec import SpecError, WorldSpec, load_spec, parse_spec
 
@@ -102,8 +104,9 @@ __all__ = [
 
 SUMMARY_NAME = "farm.json"
 CACHE_DIR = ".globemill-cache"
-# bump when the cache record or the hashed document changes shape (2: files named by sha256)
-CACHE_FORMAT = 2
+# bump when the cache record or the hashed document changes shape (2: files named by sha256;
+# 3: the options hold the level table: levels, ratio, chunk_level, seams, collision)
+CACHE_FORMAT = 3
 # held by the farm writing into a folder, and (shared) by its local worker processes
 LOCK_NAME = ".globemill-farm.lock"
 WORKERS_LOCK_NAME = ".globemill-workers.lock"
@@ -244,25 +247,37 @@ class FarmSummary:
 
 
 def bake_options(
-    spec: WorldSpec, *, tolerance_m: float | None = None, offset: str | None = None
+    spec: WorldSpec,
+    *,
+    tolerance_m: float | None = None,
+    offset: str | None = None,
+    levels: int | None = None,
+    ratio: float | None = None,
+    chunk_level: int | None = None,
+    seams: str | None = None,
+    collision: bool = True,
 ) -> dict[str, Any]:
     """The options of a farm bake that change its output, resolved against the spec (an override
     equal to the spec's own value hashes the same as no override). Threads do not change it."""
+    lod = spec.lod
     return {
         "tolerance_m": float(spec.tolerance_m if tolerance_m is None else tolerance_m),
         "offset": spec.offset if offset is None else offset,
-        "collision": True,
+        "levels": int(lod.levels if levels is None else levels),
+        "ratio": float(lod.ratio if ratio is None else ratio),
+        "chunk_level": int(lod.chunk_level if chunk_level is None else chunk_level),
+        "seams": lod.seams if seams is None else seams,
+        "collision": bool(collision),
     }
 
 
-def world_hash(
-    spec: WorldSpec, *, tolerance_m: float | None = None, offset: str | None = None
-) -> str:
-    """SHA-256 (hex) of the canonical spec, the bake options and the globemill version."""
+def world_hash(spec: WorldSpec, **overrides: Any) -> str:
+    """SHA-256 (hex) of the canonical spec, the bake options (`overrides`: the keyword arguments
+    of bake_options, resolved by it) and the globemill version."""
     doc = {
         "format": CACHE_FORMAT,
         "globemill": __version__,
-        "options": bake_options(spec, tolerance_m=tolerance_m, offset=offset),
+        "options": bake_options(spec, **overrides),
         "spec": json.loads(canonical_spec(spec)),
     }
     text = json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
@@ -339,10 +354,15 @@ def _cores() -> int:
 
 
 def estimate_bake(
-    spec: WorldSpec, *, tolerance_m: float | None = None, threads: int = 0
+    spec: WorldSpec,
+    *,
+    tolerance_m: float | None = None,
+    threads: int = 0,
+    chunk_level: int | None = None,
 ) -> BakeEstimate:
     """Estimate the triangles, memory, time and file size of baking `spec` (threads: 0 = all
-    cores), from the core's triangle estimate for the tolerance and the feature count.
+    cores; chunk_level: None for the spec's), from the core's triangle estimate for the tolerance
+    and the feature count.
 
     The triangle estimate is the core's budget survey (the refinement run to four times the
     tolerance, see docs/meshing.md): it costs about a quarter of the bake's refinement on smooth
@@ -361,7 +381,7 @@ def estimate_bake(
             Field(spec)._core,
             tol,
             offset=OFFSET_MODES[spec.offset],
-            chunk_level=int(spec.lod.chunk_level),
+            chunk_level=int(spec.lod.chunk_level if chunk_level is None else chunk_level),
             survey_cap=SURVEY_CAP,
             threads=threads,
         )
@@ -640,6 +660,7 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
             spec,
             tolerance_m=task["tolerance_m"],
             offset=task["offset"],
+            **task["lod"],
             threads=task["threads"],
             progress=progress,
         )
@@ -998,6 +1019,11 @@ def farm(
     scheduler: str | None = None,
     tolerance_m: float | None = None,
     offset: str | None = None,
+    levels: int | None = None,
+    ratio: float | None = None,
+    chunk_level: int | None = None,
+    seams: str | None = None,
+    collision: bool = True,
     threads: int | None = None,
     force: bool = False,
     progress: bool = False,
@@ -1011,7 +1037,9 @@ def farm(
     jobs : local worker processes (default: the cores this process may use); ignored with a
         scheduler, where the cluster's workers decide
     scheduler : a Dask scheduler address, e.g. "tcp://10.0.0.5:8786" (default: local pool)
-    tolerance_m, offset : bake overrides for every world (as `globemill bake`)
+    tolerance_m, offset, levels, ratio, chunk_level, seams, collision : bake overrides for every
+        world, as the keyword arguments of `globemill.bake` (None: each spec's own); they are
+        part of each world's cache key, so changing one re-bakes
     threads : core threads per bake (default: 1 when several bakes run at once, else all cores)
     force : bake every world even when its cache record says it is up to date
     progress : show a progress bar across worlds on stderr
@@ -1043,6 +1071,14 @@ def farm(
         isinstance(max_memory_bytes, int) and max_memory_bytes > 0
     ):
         raise ValueError(f"max_memory_bytes: must be an integer > 0, got {max_memory_bytes!r}")
+    lod: dict[str, Any] = {
+        "levels": levels,
+        "ratio": ratio,
+        "chunk_level": chunk_level,
+        "seams": seams,
+        "collision": collision,
+    }
+    check_overrides(**lod)  # a value no world can bake with: nothing is written
     note = log or (lambda _msg: None)
     out = Path(outdir).resolve()
     inputs = collect_specs(specs, out)
@@ -1065,6 +1101,7 @@ def farm(
             scheduler=scheduler,
             tolerance_m=tolerance_m,
             offset=offset,
+            lod=lod,
             threads=threads,
             force=force,
             progress=progress,
@@ -1084,6 +1121,7 @@ def _farm_locked(
     scheduler: str | None,
     tolerance_m: float | None,
     offset: str | None,
+    lod: dict[str, Any],
     threads: int | None,
     force: bool,
     progress: bool,
@@ -1142,7 +1180,7 @@ def _farm_locked(
             )
             continue
         try:
-            digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset)
+            digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset, **lod)
         except Exception as exc:
             error = f"world spec {inp.source} cannot be hashed: {_error_text(exc)}"
             report(
@@ -1185,7 +1223,9 @@ def _farm_locked(
     accepted: list[tuple[int, WorldSpec, str]] = []
     for i, spec, digest in pending:
         try:
-            est = estimate_bake(spec, tolerance_m=tolerance_m, threads=bake_threads)
+            est = estimate_bake(
+                spec, tolerance_m=tolerance_m, threads=bake_threads, chunk_level=lod["chunk_level"]
+            )
             check_memory(est, limit)
         except MemoryLimitError as exc:
             outcome = WorldOutcome(
@@ -1226,6 +1266,7 @@ def _farm_locked(
                 "outdir": str(out),
                 "tolerance_m": tolerance_m,
                 "offset": offset,
+                "lod": lod,
                 "threads": bake_threads,
                 "globemill": __version__,
                 "need_bytes": estimates[i].output_bytes if i in estimates else 0,
