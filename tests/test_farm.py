@@ -819,3 +819,70 @@ def test_the_farm_bar_is_told_how_far_running_bakes_are(tmp_path: Path) -> None:
         done = list(farm_module._completed({fut: job}, str(tmp_path), tick))
     assert done == [fut] and fut.result() == "done"
     assert {3: (0.4, "verify 10/25 triangles")} in ticks
+
+
+def assert_progress_per_world(calls: list[Any], names: list[str], caller: int) -> None:
+    """Each world's WorldProgress calls: on the farm's thread, fractions in 0..1 that never go
+    back, the stages in the bake's order (globemill.progress.ORDER), one that came while the
+    bake ran, and a last call "done" at 1.0."""
+    from globemill.progress import ORDER
+
+    assert {thread for thread, _ in calls} == {caller}
+    by_world: dict[str, list[Any]] = {}
+    for _, p in calls:
+        by_world.setdefault(p.world, []).append(p)
+    assert sorted(by_world) == sorted(names)
+    for name, seq in by_world.items():
+        fractions = [p.fraction for p in seq]
+        assert fractions == sorted(fractions) and 0.0 <= fractions[0], (name, fractions)
+        assert seq[-1].fraction == 1.0 and seq[-1].stage == "done", (name, seq[-1])
+        assert [p.stage for p in seq].count("done") == 1
+        assert any(0.0 < f < 1.0 for f in fractions), (name, fractions)
+        stages = [ORDER.index(p.stage.split(" ")[0]) for p in seq[:-1]]
+        assert stages == sorted(stages), (name, [p.stage for p in seq])
+
+
+def test_on_progress_follows_each_local_world_to_the_end(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import threading
+
+    # look at the running bakes often, so that even these small ones are seen under way
+    monkeypatch.setattr(farm_module, "TICK_SECONDS", 0.02)
+    specs = write_specs(tmp_path / "specs", n=2)
+    calls: list[tuple[int, Any]] = []
+    summary = farm(
+        specs,
+        tmp_path / "out",
+        jobs=2,
+        on_progress=lambda p: calls.append((threading.get_ident(), p)),
+    )
+    assert summary.ok, summary.table()
+    assert_progress_per_world(calls, names_of(specs), threading.get_ident())
+    assert {p.source for _, p in calls} == {str(p) for p in specs}
+    # a second run finds both cached: no bake, no progress
+    calls.clear()
+    assert [w.status for w in farm(specs, tmp_path / "out", on_progress=calls.append).worlds] == [
+        "cached",
+        "cached",
+    ]
+    assert calls == []
+
+
+def test_on_progress_from_dask_workers_through_events(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import threading
+
+    monkeypatch.setattr(farm_module, "TICK_SECONDS", 0.02)
+    specs = write_specs(tmp_path / "specs", n=2)
+    calls: list[tuple[int, Any]] = []
+    with loopback_dask_cluster(tmp_path / "cluster", nworkers=2) as cluster:
+        summary = farm(
+            specs,
+            tmp_path / "out",
+            scheduler=cluster.address,
+            on_progress=lambda p: calls.append((threading.get_ident(), p)),
+        )
+    assert summary.ok and summary.backend == "dask", summary.table()
+    assert_progress_per_world(calls, names_of(specs), threading.get_ident())

@@ -33,6 +33,13 @@
   ``distributed.scheduler.allowed-failures``); a local worker process that dies breaks its pool, so
   the pool is restarted and the unfinished worlds are baked again, the ones that were running at
   the time each on its own, until one kills its process twice and is reported as failed.
+- Progress per world: each bake reports its stages (refine, verify, levels, seams, chunks,
+  colliders, write) as one fraction of the whole (globemill.progress.BakeProgress). A local
+  worker keeps it in a file beside its job marker, which the farm reads about twice a second; a
+  Dask worker sends it as Dask events (``Worker.log_event`` under the topic
+  ``globemill-progress-<run>``, which the client subscribes to). The bar (``progress=True``)
+  counts finished worlds whole and running ones by their fraction, naming each running world's
+  percentage and stage; ``on_progress`` gets the same as WorldProgress values.
 - Before the work: the output folder is probe-written (an unwritable one raises WriteError, and
   each bake checks the free space against its estimated files before it starts), and each world's
   time and memory are estimated from its spec (estimate_bake).
@@ -52,6 +59,7 @@ import hashlib
 import json
 import multiprocessing
 import os
+import queue
 import signal
 import socket
 import sys
@@ -94,6 +102,7 @@ __all__ = [
     "FarmTerminated",
     "MemoryLimitError",
     "WorldOutcome",
+    "WorldProgress",
     "available_memory",
     "canonical_spec",
     "collect_specs",
@@ -120,6 +129,7 @@ CONNECT_TIMEOUT_S = 20.0
 
 Spec = str | os.PathLike[str] | WorldSpec
 OnWorld = Callable[["WorldOutcome"], None]
+OnProgress = Callable[["WorldProgress"], None]
 
 
 class FarmError(RuntimeError):
@@ -169,6 +179,24 @@ class WorldOutcome:
     @property
     def ok(self) -> bool:
         return self.status in ("baked", "cached")
+
+
+@dataclass(frozen=True)
+class WorldProgress:
+    """How far the bake of one world in a farm run has come (farm's on_progress payload).
+
+    world : the spec's name; source : where the spec came from (as WorldOutcome.source)
+    fraction : 0..1 of the world's bake and write, every stage weighted by its measured share
+        of a bake's time (globemill.progress.STAGES); it never decreases for a world in a run
+    stage : what the bake is doing, in its own unit, e.g. "verify 81,920/163,840 triangles
+        measured" (as `globemill bake`'s bar shows it); "done" on the last call, when the world's
+        outputs and cache record are written (fraction 1.0)
+    """
+
+    world: str
+    source: str
+    fraction: float
+    stage: str
 
 
 @dataclass
@@ -609,22 +637,55 @@ def _error_kind(exc: BaseException) -> str:
 PROGRESS_SUFFIX = ".progress"  # beside a local job's marker: "<fraction> <stage text>"
 
 
-def _progress_file(path: str) -> Callable[[str, int, int], None]:
-    """A bake progress callback that keeps `path` holding the bake's fraction done and its stage
-    (rewritten when the fraction moves by a percent), for the farm's bar to read."""
-    from .progress import BakeProgress
+def _progress_sender(
+    send: Callable[[float, str], None], collision: bool = True
+) -> Callable[[str, int, int], None]:
+    """A bake progress callback that passes the bake's fraction done (of the whole bake and its
+    write, globemill.progress.BakeProgress) and its stage text to `send` whenever the fraction
+    has moved by a percent, and at the end."""
+    from .progress import BakeProgress, bake_stages
 
-    bp = BakeProgress()
+    bp = BakeProgress(bake_stages(collision))
     last = [-1.0]
 
     def progress(stage: str, done: int, total: int) -> None:
         f = bp.update(stage, done, total)
         if f - last[0] >= 0.01 or f >= 1.0:
             last[0] = f
-            with contextlib.suppress(OSError):
-                Path(path).write_text(f"{f:.4f} {bp.text}", encoding="utf-8")
+            send(f, bp.text)
 
     return progress
+
+
+def _progress_file(path: str, collision: bool = True) -> Callable[[str, int, int], None]:
+    """A bake progress callback that keeps `path` holding the bake's fraction done and its stage
+    (rewritten when the fraction moves by a percent), for the local farm to read."""
+
+    def send(f: float, text: str) -> None:
+        with contextlib.suppress(OSError):
+            Path(path).write_text(f"{f:.4f} {text}", encoding="utf-8")
+
+    return _progress_sender(send, collision)
+
+
+def _progress_event(
+    topic: str, index: int, collision: bool = True
+) -> Callable[[str, int, int], None] | None:
+    """On a Dask worker: a bake progress callback that logs {"index", "fraction", "stage"} as an
+    event under `topic` (Worker.log_event), which the farm's client subscribes to. None when not
+    on a Dask worker."""
+    try:
+        from distributed import get_worker
+
+        worker = get_worker()
+    except (ImportError, ValueError):
+        return None
+
+    def send(f: float, text: str) -> None:
+        with contextlib.suppress(Exception):  # progress is never worth a failed bake
+            worker.log_event(topic, {"index": index, "fraction": f, "stage": text})
+
+    return _progress_sender(send, collision)
 
 
 def read_progress(path: str) -> tuple[float, str] | None:
@@ -655,7 +716,12 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         spec = parse_spec(task["spec"], source=task["source"])
         outdir = Path(task["outdir"])
         probe_folder(outdir, int(task.get("need_bytes", 0)))  # a full disk before, not after
-        progress = _progress_file(task["marker"] + PROGRESS_SUFFIX) if task.get("marker") else None
+        collision = bool(task["lod"]["collision"])
+        progress = None
+        if task.get("marker"):  # a local worker: beside its marker
+            progress = _progress_file(task["marker"] + PROGRESS_SUFFIX, collision)
+        elif task.get("progress_topic"):  # a Dask worker: as events
+            progress = _progress_event(task["progress_topic"], int(task["index"]), collision)
         result = bake(
             spec,
             tolerance_m=task["tolerance_m"],
@@ -934,8 +1000,16 @@ def _run_local(jobs: list[_Job], workers: int, finish: Finish, tick: Tick | None
 
 
 def _run_dask(
-    jobs: list[_Job], scheduler: str, finish: Finish, started: Callable[[int], None]
+    jobs: list[_Job],
+    scheduler: str,
+    finish: Finish,
+    started: Callable[[int], None],
+    tick: Tick | None = None,
 ) -> None:
+    """Bake `jobs` on the cluster at `scheduler`. With `tick`, each bake sends its progress as
+    Dask events (topic globemill-progress-<run>, Worker.log_event) that the client receives on
+    its own thread; they are queued and `tick({job index: (fraction, stage)})` is called here,
+    on the calling thread, about every TICK_SECONDS with the bakes running."""
     try:
         from distributed import Client, KilledWorker
         from distributed import as_completed as dask_completed
@@ -958,11 +1032,19 @@ def _run_dask(
     try:
         started(len(client.nthreads()))  # the workers there now (more may join)
         run = uuid.uuid4().hex[:8]
+        events: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        topic = f"globemill-progress-{run}"
+        if tick is not None:
+            client.subscribe_topic(topic, lambda event: events.put(event[1]))
         for job in jobs:
             job.attempts = 1
             key = f"globemill-bake-{job.name}-{job.digest[:12]}-{run}"
-            futures[client.submit(_bake_task, job.task, key=key, pure=False, retries=0)] = job
-        for fut in dask_completed(list(futures), loop=client.loop):
+            task = job.task
+            if tick is not None:
+                task = dict(task, index=job.index, progress_topic=topic)
+            futures[client.submit(_bake_task, task, key=key, pure=False, retries=0)] = job
+        ac = dask_completed(list(futures), loop=client.loop)
+        for fut in _dask_completed(ac, events, tick, lambda f: futures[f].index):
             job = futures[fut]
             try:
                 res = fut.result()
@@ -983,6 +1065,38 @@ def _run_dask(
     finally:
         with contextlib.suppress(Exception):
             client.close()
+
+
+def _dask_completed(
+    ac: Any, events: queue.SimpleQueue[Any], tick: Tick | None, index_of: Callable[[Any], int]
+) -> Iterator[Any]:
+    """The futures of Dask's as_completed `ac` as they complete, calling `tick` with the progress
+    events the running bakes sent (the newest of each job; a finished job's late ones are
+    dropped). `index_of(future)` is its job's index."""
+    running: dict[int, tuple[float, str]] = {}
+    finished: set[int] = set()
+    last_tick = 0.0
+    while not ac.is_empty():
+        batch = ac.next_batch(block=False)
+        for fut in batch:
+            finished.add(index_of(fut))
+            running.pop(index_of(fut), None)
+            yield fut
+        if batch:
+            continue
+        with contextlib.suppress(queue.Empty):  # wait a little for an event (or a result)
+            msg = events.get(timeout=min(TICK_SECONDS, 0.1))
+            while True:
+                with contextlib.suppress(KeyError, TypeError, ValueError):
+                    index = int(msg["index"])
+                    if index not in finished:
+                        f = min(max(float(msg["fraction"]), 0.0), 1.0)
+                        running[index] = (f, str(msg["stage"]))
+                msg = events.get_nowait()
+        now = time.monotonic()
+        if tick is not None and running and now - last_tick >= TICK_SECONDS:
+            last_tick = now
+            tick(dict(running))
 
 
 # --------------------------------------------------------------------------------------------
@@ -1028,6 +1142,7 @@ def farm(
     force: bool = False,
     progress: bool = False,
     on_world: OnWorld | None = None,
+    on_progress: OnProgress | None = None,
     max_memory_bytes: int | None = None,
     log: Callable[[str], None] | None = None,
 ) -> FarmSummary:
@@ -1044,6 +1159,13 @@ def farm(
     force : bake every world even when its cache record says it is up to date
     progress : show a progress bar across worlds on stderr
     on_world : called with each world's outcome as it is known (cached and failed ones first)
+    on_progress : called with a WorldProgress for each world being baked, on the calling
+        thread: about every TICK_SECONDS (0.5 s) for each running world whose fraction moved,
+        then once with fraction 1.0 and stage "done" when it is baked. Cached and failed worlds
+        get none (on_world reports them). Local pools and Dask clusters alike: a Dask worker
+        sends its bake's progress as Dask events (Worker.log_event), which this client
+        subscribes to; a bake retried on another worker is reported from the highest
+        fraction already reached (fractions never go back).
     max_memory_bytes : a world whose estimated memory exceeds it is refused (reported failed,
         error_kind "refused"); default: the memory this machine has available now
     log : called with one-line notes (waiting for another farm, estimates of long work)
@@ -1106,6 +1228,7 @@ def farm(
             force=force,
             progress=progress,
             on_world=on_world,
+            on_progress=on_progress,
             limit=limit,
             note=note,
             t_start=t_start,
@@ -1126,6 +1249,7 @@ def _farm_locked(
     force: bool,
     progress: bool,
     on_world: OnWorld | None,
+    on_progress: OnProgress | None,
     limit: int | None,
     note: Callable[[str], None],
     t_start: float,
@@ -1275,7 +1399,19 @@ def _farm_locked(
         for i, spec, digest in pending
     ]
 
+    names_of = {i: spec.name for i, spec, _ in pending}
+    reached: dict[int, float] = {}  # the fraction on_progress was last told, per world
+
+    def moved(i: int, fraction: float, stage: str, last: bool = False) -> None:
+        before = reached.get(i, -1.0)
+        if on_progress is None or (fraction <= before and not last):
+            return
+        reached[i] = max(fraction, before)
+        on_progress(WorldProgress(names_of[i], inputs[i].source, reached[i], stage))
+
     def tick(running: dict[int, tuple[float, str]]) -> None:
+        for i, (f, text) in sorted(running.items()):
+            moved(i, f, text)
         # finished worlds count whole, running ones by the share of their bake done
         if bar is None:
             return
@@ -1287,7 +1423,7 @@ def _farm_locked(
         bar.set_postfix_str(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
         bar.refresh()
 
-    names_of = {i: spec.name for i, spec, _ in pending}
+    ticking = tick if bar is not None or on_progress is not None else None
 
     def finish(job: _Job, res: dict[str, Any]) -> None:
         source = inputs[job.index].source
@@ -1338,6 +1474,7 @@ def _farm_locked(
         outcome.triangles = res["triangles"]
         outcome.collision_triangles = res["collision_triangles"]
         outcome.outputs = {k: v["name"] for k, v in files.items()}
+        moved(job.index, 1.0, "done", last=True)
         report(job.index, outcome)
 
     interrupted = False
@@ -1350,9 +1487,9 @@ def _farm_locked(
                 nonlocal workers
                 workers = n
 
-            _run_dask(jobs_list, scheduler, finish, connected)
+            _run_dask(jobs_list, scheduler, finish, connected, ticking)
         elif jobs_list and workers:
-            _run_local(jobs_list, workers, finish, tick if bar is not None else None)
+            _run_local(jobs_list, workers, finish, ticking)
     except KeyboardInterrupt:
         interrupted = True
         raise
