@@ -36,6 +36,19 @@ bool finite_positive(double x) { return std::isfinite(x) && x > 0; }
 
 }  // namespace
 
+Status check_lod(const int* levels, const double* ratio, const int* chunk_level, std::string& error) {
+    auto bad = [&](const std::string& m) {
+        error = m;
+        return Status::InvalidArgument;
+    };
+    if (levels && (*levels < 1 || *levels > 12))
+        return bad("levels: must be an integer in 1..12, got " + std::to_string(*levels));
+    if (ratio && !(*ratio > 1 && *ratio <= 16)) return bad("ratio: must be > 1 and <= 16, got " + num(*ratio));
+    if (chunk_level && (*chunk_level < 0 || *chunk_level > 5))
+        return bad("chunk_level: must be an integer in 0..5, got " + std::to_string(*chunk_level));
+    return Status::Ok;
+}
+
 Status check_settings(const BakeSettings& s, std::string& error) {
     auto bad = [&](const std::string& m) {
         error = m;
@@ -49,11 +62,7 @@ Status check_settings(const BakeSettings& s, std::string& error) {
         return bad("offset: must be 0 (radial), 1 (normal) or 2 (exact), got " + std::to_string(s.offset));
     if (s.threads < 0 || s.threads > 1024)
         return bad("threads: must be an integer in 0..1024 (0 = all cores), got " + std::to_string(s.threads));
-    if (s.levels < 1 || s.levels > 12)
-        return bad("levels: must be an integer in 1..12, got " + std::to_string(s.levels));
-    if (!(s.ratio > 1 && s.ratio <= 16)) return bad("ratio: must be > 1 and <= 16, got " + num(s.ratio));
-    if (s.chunk_level < 0 || s.chunk_level > 5)
-        return bad("chunk_level: must be an integer in 0..5, got " + std::to_string(s.chunk_level));
+    if (check_lod(&s.levels, &s.ratio, &s.chunk_level, error) != Status::Ok) return Status::InvalidArgument;
     if (s.max_triangles < 1)
         return bad("max_triangles: must be an integer >= 1, got " + std::to_string(s.max_triangles));
     const std::uint64_t chunks = 20ull << (2 * s.chunk_level);

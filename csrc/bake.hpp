@@ -83,6 +83,11 @@ extern const char* const kStageColliders;
 // check every setting against its allowed range; the message names the setting and the range
 Status check_settings(const BakeSettings& s, std::string& error);
 
+// the ranges of the level table's settings alone (check_settings applies the same): levels,
+// ratio and chunk_level, each checked only when given (a null pointer: not given). The command
+// line and the farm check their overrides with it before any work.
+Status check_lod(const int* levels, const double* ratio, const int* chunk_level, std::string& error);
+
 // features too thin to mesh within `tolerance_m`: a feature of amplitude A above the tolerance
 // needs triangles of about scale * sqrt(tolerance / A) at its peak, and refinement stops at
 // triangles tolerance / 8 across (refine.cpp, at_floor), so a feature whose scale is below

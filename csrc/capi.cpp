@@ -288,6 +288,21 @@ GM_API const char* gm_status_name(int32_t status) {
     }
 }
 
+namespace {
+// a text output (gm_spec_check, gm_world_warnings): the full length without the NUL to *length,
+// and as much of the text as fits `capacity` bytes, cut at a character boundary, NUL-terminated
+void text_out(char* dst, size_t capacity, size_t* length, const std::string& text) noexcept {
+    if (length) *length = text.size();
+    if (dst && capacity) {
+        std::size_t n = std::min(text.size(), capacity - 1);
+        if (n < text.size())
+            while (n > 0 && (static_cast<unsigned char>(text[n]) & 0xC0) == 0x80) --n;
+        std::memcpy(dst, text.data(), n);
+        dst[n] = '\0';
+    }
+}
+}  // namespace
+
 GM_API gm_status gm_spec_check(char* message, size_t message_capacity, size_t* message_length,
                                const char* spec_json, size_t spec_length) {
     gm_status s = guarded(nullptr, [&]() -> gm_status {
@@ -301,20 +316,10 @@ GM_API gm_status gm_spec_check(char* message, size_t message_capacity, size_t* m
             gm::SpecStatus ss = gm::load_spec_json(spec_json, spec_length, gm::SpecLimits{}, spec, msg);
             r = ss == gm::SpecStatus::Ok ? GM_OK : ss == gm::SpecStatus::Malformed ? GM_ERROR_PARSE : GM_ERROR_SPEC;
         }
-        if (message_length) *message_length = msg.size();
-        if (message && message_capacity) {
-            std::size_t n = std::min(msg.size(), message_capacity - 1);
-            if (n < msg.size())
-                while (n > 0 && (static_cast<unsigned char>(msg[n]) & 0xC0) == 0x80) --n;
-            std::memcpy(message, msg.data(), n);
-            message[n] = '\0';
-        }
+        text_out(message, message_capacity, message_length, msg);
         return r;
     });
-    if (s == GM_ERROR_OUT_OF_MEMORY || s == GM_ERROR_INTERNAL) {
-        if (message_length) *message_length = 0;
-        if (message && message_capacity) message[0] = '\0';
-    }
+    if (s == GM_ERROR_OUT_OF_MEMORY || s == GM_ERROR_INTERNAL) text_out(message, message_capacity, message_length, "");
     return s;
 }
 
@@ -337,6 +342,18 @@ GM_API gm_status gm_world_create(gm_world** world, const char* spec_json, size_t
 }
 
 GM_API void gm_world_destroy(gm_world* world) { delete world; }
+
+GM_API gm_status gm_world_warnings(char* text, size_t text_capacity, size_t* text_length,
+                                   const gm_world* world, gm_error* err) {
+    return guarded(err, [&]() -> gm_status {
+        if (!world) return null_arg(err, "world");
+        if (!text && text_capacity) return null_arg(err, "text (with a text_capacity above 0)");
+        std::string lines;
+        for (const std::string& w : world->spec.warnings) lines += (lines.empty() ? "" : "\n") + w;
+        text_out(text, text_capacity, text_length, lines);  // cannot throw: written whole
+        return ok(err);
+    });
+}
 
 GM_API gm_status gm_world_get_info(gm_world_info* info, const gm_world* world, gm_error* err) {
     return guarded(err, [&]() -> gm_status {

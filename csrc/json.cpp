@@ -5,6 +5,7 @@
 #include <charconv>
 #include <cmath>
 #include <cstdio>
+#include <cstdlib>
 #include <cstring>
 #include <locale>
 #include <sstream>
@@ -383,26 +384,51 @@ std::string format_number(double x) {
         std::snprintf(buf, sizeof buf, "%lld", static_cast<long long>(x));
         return buf;
     }
+    // the shortest digits that read back as the same double, in scientific form: [-]d[.ddd]e<exp>
+    std::string sci;
 #if defined(__cpp_lib_to_chars) && __cpp_lib_to_chars >= 201611L
-    auto r = std::to_chars(buf, buf + sizeof buf, x);
-    return std::string(buf, r.ptr);
+    auto r = std::to_chars(buf, buf + sizeof buf, x, std::chars_format::scientific);
+    sci.assign(buf, r.ptr);
 #else
-    // the shortest %.*g that reads back as the same double
-    std::string s;
-    for (int p = 1; p <= 17; ++p) {
+    for (int p = 0; p <= 16; ++p) {
         std::ostringstream o;
         o.imbue(std::locale::classic());
+        o << std::scientific;
         o.precision(p);
         o << x;
-        s = o.str();
-        std::istringstream in(s);
+        sci = o.str();
+        std::istringstream in(sci);
         in.imbue(std::locale::classic());
         double back = 0;
         in >> back;
         if (back == x) break;
     }
-    return s;
 #endif
+    const bool negative = sci[0] == '-';
+    const std::size_t e = sci.find_first_of("eE");
+    std::string digits;
+    for (std::size_t i = negative ? 1 : 0; i < e; ++i)
+        if (sci[i] != '.') digits += sci[i];
+    while (digits.size() > 1 && digits.back() == '0') digits.pop_back();
+    const int exp10 = std::atoi(sci.c_str() + e + 1);
+    // laid out as Python's repr: positional for exponents -4 .. 15, else d.ddde+XX
+    std::string out = negative ? "-" : "";
+    const int n = static_cast<int>(digits.size());
+    if (exp10 >= -4 && exp10 < 16) {
+        if (exp10 < 0) {
+            out += "0." + std::string(static_cast<std::size_t>(-exp10 - 1), '0') + digits;
+        } else if (exp10 + 1 >= n) {
+            out += digits + std::string(static_cast<std::size_t>(exp10 + 1 - n), '0') + ".0";
+        } else {
+            out += digits.substr(0, static_cast<std::size_t>(exp10 + 1)) + "." +
+                   digits.substr(static_cast<std::size_t>(exp10 + 1));
+        }
+        return out;
+    }
+    out += digits.substr(0, 1);
+    if (n > 1) out += "." + digits.substr(1);
+    std::snprintf(buf, sizeof buf, "e%c%02d", exp10 < 0 ? '-' : '+', exp10 < 0 ? -exp10 : exp10);
+    return out + buf;
 }
 
 unsigned utf8_next(const std::string& s, std::size_t& i) {

@@ -42,7 +42,9 @@ bool parse_json(const char* text, std::size_t length, const JsonLimits& limits, 
                 std::string& message);
 
 // a number in messages: integral values below 1e16 without a fraction, others in the shortest
-// text that reads back as the same double (std::to_chars); "nan", "inf", "-inf"
+// digits that read back as the same double, laid out as Python's repr (positional for decimal
+// exponents -4 .. 15, else 1.5e-05 / 1e+16), so messages write numbers as spec.py's _num does;
+// "nan", "inf", "-inf"
 std::string format_number(double x);
 
 // text in messages: double-quoted, with \", \\ and \uXXXX for control characters; cut to at

@@ -499,18 +499,41 @@ bool check_table(Checker& ck, const JValue& v, const std::string& path, const Se
     return m.ok;
 }
 
+// a message template of the table with its {name} placeholders filled in
+std::string fill(const std::string& tpl, const std::vector<std::pair<const char*, std::string>>& words) {
+    std::string out;
+    for (std::size_t i = 0; i < tpl.size();) {
+        const std::size_t close = tpl[i] == '{' ? tpl.find('}', i) : std::string::npos;
+        if (close != std::string::npos) {
+            const std::string key = tpl.substr(i + 1, close - i - 1);
+            for (const auto& w : words)
+                if (key == w.first) out += w.second;
+            i = close + 1;
+        } else {
+            out += tpl[i++];
+        }
+    }
+    return out;
+}
+
 // keys renamed in the table, given in their old spelling (and not also in the new one), take the
-// new one; a heading becomes a bearing (spec.py's _migrate does the same, with a message)
-void migrate_renamed(JValue& root) {
+// new one; a heading becomes a bearing. Each adds its deprecation message to `notes`, worded by
+// the table's renamed_messages exactly as spec.py's migrate_renamed words its warnings.
+void migrate_renamed(JValue& root, std::vector<std::string>& notes) {
     const SpecRules& R = spec_rules();
     if (root.type != JT::Object) return;
     for (JMember& top : root.members) {
         if (top.key != "features" || top.value.type != JT::Array) continue;
-        for (JValue& f : top.value.items) {
+        for (std::size_t i = 0; i < top.value.items.size(); ++i) {
+            JValue& f = top.value.items[i];
             if (f.type != JT::Object) continue;
             const JValue* kv = f.find("kind");
             const KindRules* kind = kv && kv->type == JT::String ? R.kind(kv->text) : nullptr;
             if (!kind) continue;
+            std::string what = "features[" + std::to_string(i) + "]";
+            const JValue* name = f.find("name");
+            if (name && name->type == JT::String && !name->text.empty())
+                what += " (" + quote_text(name->text, static_cast<std::size_t>(-1)) + ")";
             for (const Renamed& rn : kind->renamed) {
                 if (f.find(rn.to.c_str())) continue;
                 for (JMember& m : f.members) {
@@ -520,6 +543,12 @@ void migrate_renamed(JValue& root) {
                         m.value.number = bearing_of_heading(m.value.number);
                         m.value.is_int = false;
                         m.value.text = format_number(m.value.number);
+                        notes.push_back(fill(rn.message, {{"feature", what},
+                                                          {"from", rn.from},
+                                                          {"to", rn.to},
+                                                          {"value", m.value.text}}));
+                    } else {
+                        notes.push_back(fill(R.rename_message, {{"feature", what}, {"from", rn.from}, {"to", rn.to}}));
                     }
                 }
             }
@@ -691,10 +720,14 @@ SpecStatus load_spec_json(const char* text, std::size_t length, const SpecLimits
         }
     }
     Checker ck(limits.max_problems);
-    migrate_renamed(root);
+    std::vector<std::string> notes;
+    migrate_renamed(root, notes);
     validate(ck, root, out);
     const std::size_t n = ck.count();
-    if (n == 0) return SpecStatus::Ok;
+    if (n == 0) {
+        out.warnings = std::move(notes);
+        return SpecStatus::Ok;
+    }
     if (n == 1) {
         message = "invalid world spec: " + ck.lines[0];
     } else {

@@ -35,6 +35,9 @@ struct SpecData {
     std::uint64_t max_triangles_per_chunk = 65535;
     std::vector<double> features;  // 16 per feature, as WorldSpec.core_features()
     std::vector<SpecLayer> layers;
+    // deprecation messages, one per renamed key the spec gave in its old spelling (the lines of
+    // Python's SpecDeprecationWarning, without the source)
+    std::vector<std::string> warnings;
     std::size_t feature_count() const { return features.size() / 16; }
 };
 

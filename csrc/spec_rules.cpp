@@ -186,6 +186,8 @@ SpecRules read_rules() {
     std::vector<std::string> names;
     for (const JValue& k : member(root, "kinds").items) names.push_back(text_of(k, "kind"));
     r.kind_list = join(names);
+    r.rename_message = text_of(member(root, "renamed_messages"), "rename");
+    if (r.rename_message.empty()) defect("renamed_messages.rename is missing");
     const JValue& sections = member(root, "sections");
     section_of(member(sections, "world"), "world", r.kind_list, r.world);
     section_of(member(sections, "lod"), "lod", r.kind_list, r.lod);
@@ -201,7 +203,11 @@ SpecRules read_rules() {
                 Renamed rn;
                 rn.from = text_of(e, "from");
                 rn.to = text_of(e, "to");
-                rn.heading_to_bearing = text_of(e, "convert") == "heading_to_bearing";
+                const std::string convert = text_of(e, "convert");
+                rn.heading_to_bearing = convert == "heading_to_bearing";
+                const JValue& msg = member(member(root, "renamed_messages"), convert.empty() ? "rename" : convert.c_str());
+                if (msg.type != JT::String) defect("renamed_messages holds text");
+                rn.message = msg.text;
                 kr.renamed.push_back(rn);
             }
         }

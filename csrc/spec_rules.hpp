@@ -79,6 +79,9 @@ struct SectionRules {
 struct Renamed {
     std::string from, to;
     bool heading_to_bearing = false;  // the old value is a heading: convert it
+    // the deprecation message: the table's renamed_messages entry for this conversion, with
+    // the placeholders {feature}, {from}, {to} and {value} (spec.py fills the same ones)
+    std::string message;
 };
 
 struct KindRules : SectionRules {
@@ -98,6 +101,7 @@ struct SpecRules {
     SectionRules world, lod, collision, layer, feature;
     std::vector<KindRules> kinds;
     std::string kind_list;  // "hill, mesa, ..."
+    std::string rename_message;  // renamed_messages.rename (also for a value that cannot convert)
     const KindRules* kind(const std::string& name) const;
     const KindRules* kind_by_code(int code) const;
     const SectionRules& section(const std::string& name) const;

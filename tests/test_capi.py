@@ -171,6 +171,17 @@ class Api:
         assert again == status
         return status, buf.value.decode()
 
+    def warnings(self, world: C.c_void_p) -> list[str]:
+        """gm_world_warnings as a size query, then the full text, split into lines."""
+        n = C.c_size_t(12345)
+        err = Error()
+        status = self.lib.gm_world_warnings(None, C.c_size_t(0), C.byref(n), world, C.byref(err))
+        assert status == OK, err.message.decode()
+        buf = C.create_string_buffer(n.value + 1)
+        again = self.lib.gm_world_warnings(buf, C.c_size_t(n.value + 1), None, world, C.byref(err))
+        assert again == OK and len(buf.value) == n.value
+        return buf.value.decode().split("\n") if n.value else []
+
     def world(self, text: bytes | str) -> tuple[int, C.c_void_p, str]:
         data = text.encode() if isinstance(text, str) else text
         w = C.c_void_p(1)
@@ -967,26 +978,43 @@ def test_buffers_handles_and_indices_are_checked(api: Api, demo_c: C.c_void_p) -
 
 
 def test_fuzz_corpus_agrees_with_the_python_loader(api: Api) -> None:
-    """Every corpus file: both loaders accept it, or both refuse it with the same problems;
-    where only the C reader refuses, it is one of its documented strict rules."""
+    """Every corpus file: both loaders accept it, with the same deprecation messages, or both
+    refuse it with the same problems; where only the C reader refuses, it is one of its
+    documented strict rules."""
+    import warnings
+
+    from globemill.spec import SpecDeprecationWarning
+
     files = sorted(CORPUS.iterdir())
     assert len(files) >= 20
     strict = ("NaN and Infinity", "surrogate", "nested deeper")
+    warned = 0
     for path in files:
         status, message = api.spec_check(path.read_bytes())
-        try:
-            load_spec(path)
-            py: tuple[str, list[str]] = ("ok", [])
-        except SpecError as exc:
-            kind = "parse" if str(exc).startswith("cannot read") else "spec"
-            py = (kind, exc.problems)
+        with warnings.catch_warnings(record=True) as record:
+            warnings.simplefilter("always", SpecDeprecationWarning)
+            try:
+                load_spec(path)
+                py: tuple[str, list[str]] = ("ok", [])
+            except SpecError as exc:
+                kind = "parse" if str(exc).startswith("cannot read") else "spec"
+                py = (kind, exc.problems)
         if status == OK:
             assert py[0] == "ok", path.name
+            lines = [str(w.message).removeprefix(f"{path}: ") for w in record]
+            created, w, msg = api.world(path.read_bytes())
+            assert created == OK, msg
+            try:
+                assert api.warnings(w) == lines, path.name
+            finally:
+                api.lib.gm_world_destroy(w)
+            warned += bool(lines)
         elif status == SPEC:
             assert py[0] == "spec" and same_problems(c_problems(message), py[1]), path.name
         else:
             assert status == PARSE, path.name
             assert py[0] == "parse" or any(s in message for s in strict), (path.name, message)
+    assert warned >= 1  # valid_old_keys.json
 
 
 # --------------------------------------------------------------------------------------------
@@ -1082,6 +1110,17 @@ def test_c_example_summary_equals_python_counts(
     )
     assert run.stdout.startswith(f"globemill {globemill.__version__}\n")
     assert summary_parse(run.stdout) == summary_expected(demo_py)
+    assert run.stderr == ""  # the demo uses no renamed key
+    # a spec in the old spelling: Python's deprecation messages, one "warning: " line each
+    old = tmp_path / "old.json"
+    old.write_text(json.dumps(OLD_KEYS_WORLD))
+    run = subprocess.run(
+        [str(build / "globemill_bake_summary"), str(old)], capture_output=True, text=True
+    )
+    assert run.returncode == 0, run.stderr
+    assert run.stderr.splitlines() == [
+        f"warning: {line}" for line in python_warnings(OLD_KEYS_WORLD)
+    ]
     # a bad spec: exit status 1 and the library's message
     bad = tmp_path / "bad.json"
     bad.write_text('{"name": "x", "radius_m": 10, "tolerance_m": -1}')
@@ -1114,6 +1153,14 @@ def test_csharp_example_summary_equals_python_counts(
     )
     assert run.stdout.startswith(f"globemill {globemill.__version__}\n")
     assert summary_parse(run.stdout) == summary_expected(demo_py)
+    old = tmp_path / "old.json"
+    old.write_text(json.dumps(OLD_KEYS_WORLD))
+    run = subprocess.run(
+        ["mono", str(exe), str(old)], capture_output=True, text=True, env=env, check=True
+    )
+    assert run.stderr.splitlines() == [
+        f"warning: {line}" for line in python_warnings(OLD_KEYS_WORLD)
+    ]
 
 
 def test_cython_example_arrays_equal_python(api: Api, demo_py: BakeResult, tmp_path: Path) -> None:
@@ -1167,6 +1214,9 @@ def test_cython_example_arrays_equal_python(api: Api, demo_py: BakeResult, tmp_p
     with pytest.raises(globemill_cy.GlobemillError, match="invalid world spec") as info:
         globemill_cy.Bake('{"name": "x"}')
     assert info.value.status == SPEC
+    assert bk.warnings == []
+    old = globemill_cy.Bake(json.dumps(OLD_KEYS_WORLD), tolerance_m=8.0, collision=False)
+    assert old.warnings == python_warnings(OLD_KEYS_WORLD)
 
 
 # --------------------------------------------------------------------------------------------
@@ -1382,3 +1432,126 @@ def test_the_c_abi_reads_renamed_keys_as_python_does(api: Api) -> None:
     with pytest.warns(SpecDeprecationWarning):
         expected = parse_spec(old).core_features()
     assert same(rows, expected)
+
+
+# every renamed key of the rule table in its old spelling, on named and unnamed features; the
+# names hold what the quoting escapes (a double quote, a backslash) and what it keeps (non-ASCII)
+OLD_KEYS_WORLD: dict[str, Any] = {
+    "name": "old_keys",
+    "radius_m": 500.0,
+    "tolerance_m": 1.0,
+    "features": [
+        {"kind": "hill", "name": "plain", "lat_deg": 0, "lon_deg": 60, "amplitude_m": 3,
+         "sigma_m": 40},
+        {"kind": "mesa", "lat_deg": 0, "lon_deg": 0, "height_m": 4, "radius_m": 30, "wall_m": 3},
+        {"kind": "mesa", "name": 'Tor "Grey" \\ Öy', "lat_deg": -20, "lon_deg": 10,
+         "height_m": 4, "radius_m": 25, "wall_m": 2.5},
+        {"kind": "block", "name": "Pen", "lat_deg": 10, "lon_deg": 30, "height_m": 5,
+         "half_x_m": 30, "half_y_m": 20, "heading_deg": -300.5, "corner_m": 4, "wall_m": 2},
+        {"kind": "block", "lat_deg": 40, "lon_deg": -30, "height_m": 5, "half_x_m": 30,
+         "half_y_m": 20, "heading_deg": 30, "corner_m": 4, "wall_m": 2},
+    ],
+}  # fmt: skip
+
+
+def python_warnings(world: dict[str, Any]) -> list[str]:
+    """The messages of Python's SpecDeprecationWarning for `world`, without "<source>: "."""
+    from globemill.spec import SpecDeprecationWarning
+
+    with pytest.warns(SpecDeprecationWarning) as record:
+        parse_spec(world, source="S")
+    assert all(str(w.message).startswith("S: ") for w in record)
+    return [str(w.message)[3:] for w in record]
+
+
+def test_world_warnings_are_the_python_deprecation_messages(api: Api) -> None:
+    used = {(f["kind"], k) for f in OLD_KEYS_WORLD["features"] for k in f}
+    table = {(k["kind"], rn["from"]) for k in SPEC_RULES["kinds"] for rn in k.get("renamed", [])}
+    assert table and table <= used  # every old spelling the table still reads
+    status, w, msg = api.world(json.dumps(OLD_KEYS_WORLD))
+    assert status == OK, msg
+    try:
+        lines = api.warnings(w)
+    finally:
+        api.lib.gm_world_destroy(w)
+    expected = python_warnings(OLD_KEYS_WORLD)
+    assert lines == expected
+    # one line per old key, in spec order, each naming its feature as Python does
+    assert len(lines) == 1 + 1 + 3 + 3
+    assert lines[1].startswith('features[2] ("Tor \\"Grey\\" \\\\ Öy"): wall_m is deprecated')
+    # heading -300.5 counter-clockwise from east is bearing 90 - (-300.5) = 390.5, the same
+    # direction as 390.5 - 360 = 30.5 clockwise from north
+    assert "write bearing_deg = 30.5 (clockwise from north)" in lines[2]
+    # a spec in the new spelling has none
+    status, w, msg = api.world(json.dumps(coarse_demo()))
+    assert status == OK, msg
+    try:
+        assert api.warnings(w) == []
+    finally:
+        api.lib.gm_world_destroy(w)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    heading=st.one_of(
+        st.floats(-360.0, 360.0, allow_nan=False),
+        st.sampled_from([89.9999, 89.9995, 90.0 - 1e-12, 89.99999, -270.0, 90.5, 12.25]),
+    )
+)
+def test_converted_bearings_are_written_as_python_writes_them(api: Api, heading: float) -> None:
+    world = copy.deepcopy(OLD_KEYS_WORLD)
+    world["features"][3]["heading_deg"] = heading  # the block "Pen"
+    status, w, msg = api.world(json.dumps(world))
+    assert status == OK, msg
+    try:
+        assert api.warnings(w) == python_warnings(world)
+    finally:
+        api.lib.gm_world_destroy(w)
+
+
+def test_world_warnings_size_query_cutting_and_bad_arguments(api: Api) -> None:
+    status, w, msg = api.world(json.dumps(OLD_KEYS_WORLD))
+    assert status == OK, msg
+    try:
+        full = "\n".join(api.warnings(w)).encode()
+        n = C.c_size_t()
+        err = Error()
+        # a buffer too small: the text cut at a character boundary (never inside the two bytes
+        # of "Ö"), NUL-terminated, and the full length told
+        cut_at = full.index("Ö".encode()) + 1  # room up to the middle of Ö
+        buf = C.create_string_buffer(b"#" * 64, cut_at + 1)
+        assert (
+            api.lib.gm_world_warnings(buf, C.c_size_t(cut_at + 1), C.byref(n), w, C.byref(err))
+            == OK
+        )
+        assert n.value == len(full) and err.status == OK and err.message == b""
+        assert buf.value == full[: cut_at - 1]
+        buf.value.decode()  # whole characters only
+        # a NULL world, or a NULL buffer with room claimed: refused, nothing written
+        n = C.c_size_t(7)
+        status = api.lib.gm_world_warnings(None, C.c_size_t(0), C.byref(n), None, C.byref(err))
+        assert status == INVALID_ARGUMENT and "world is NULL" in err.message.decode()
+        assert n.value == 7
+        status = api.lib.gm_world_warnings(None, C.c_size_t(10), C.byref(n), w, C.byref(err))
+        assert status == INVALID_ARGUMENT and n.value == 7
+        # err may be NULL, the length pointer too
+        assert api.lib.gm_world_warnings(None, C.c_size_t(0), None, w, None) == OK
+    finally:
+        api.lib.gm_world_destroy(w)
+
+
+@pytest.mark.parametrize(
+    "ratio", [0.0005, 1e-05, -0.0001, 0.25, 1.5e-07, 123.456, 1e22, 1.2345678901234567e17]
+)
+def test_numbers_in_messages_are_laid_out_as_python_repr(api: Api, ratio: float) -> None:
+    # the core writes a number as Python's repr does (shortest round-trip digits; positional
+    # for decimal exponents -4 .. 15, else 1e-05 / 1.5e+22), which std::to_chars alone does not
+    # (it writes 0.0005 as 5e-04): messages then read the same from C and from Python
+    status, w, msg = api.world(json.dumps(coarse_demo()))
+    assert status == OK, msg
+    try:
+        status, b, msg = api.bake(w, ratio=ratio)
+    finally:
+        api.lib.gm_world_destroy(w)
+    assert status == INVALID_ARGUMENT and b.value is None
+    assert msg == f"ratio: must be > 1 and <= 16, got {ratio!r}"

@@ -230,10 +230,18 @@ def test_python_api_and_flags_give_the_same_bytes(tmp_path: Path, small: Path) -
 
 BAD_OPTIONS = {
     "levels not a number": (["bake", "--levels", "x"], "--levels"),
-    "levels 0": (["bake", "--levels", "0"], "levels"),
-    "ratio 1": (["bake", "--ratio", "1"], "ratio"),
-    "chunk level -1": (["bake", "--chunk-level", "-1"], "chunk_level"),
-    "chunk level 9": (["bake", "--chunk-level", "9"], "chunk_level"),
+    # the flag and the core's range (csrc/bake.cpp, check_lod), the same for every command
+    "levels 0": (["bake", "--levels", "0"], "--levels: must be an integer in 1..12, got 0"),
+    "ratio 1": (["bake", "--ratio", "1"], "--ratio: must be > 1 and <= 16, got 1"),
+    "chunk level -1": (["bake", "--chunk-level", "-1"], "--chunk-level: must be an integer in"),
+    "chunk level 9": (["bake", "--chunk-level", "9"], "--chunk-level: must be an integer in 0..5"),
+    "export levels 13": (["export", "--levels", "13"], "--levels: must be an integer in 1..12"),
+    "preview ratio 17": (["preview", "--ratio", "17"], "--ratio: must be > 1 and <= 16, got 17"),
+    "farm levels 0": (["farm", "--levels", "0"], "--levels: must be an integer in 1..12, got 0"),
+    "farm ratio 1": (["farm", "--ratio", "1"], "--ratio: must be > 1 and <= 16, got 1"),
+    "farm chunk level 6": (["farm", "--chunk-level", "6"], "--chunk-level: must be an integer"),
+    "farm seams": (["farm", "--seams", "weld"], "--seams"),
+    "farm levels not a number": (["farm", "--levels", "two"], "--levels"),
     "seams": (["bake", "--seams", "weld"], "--seams"),
     "threads": (["bake", "--threads", "-3"], "threads"),
     "quantize share": (["bake", "--quantize-share", "2"], "--quantize-share"),
@@ -252,7 +260,7 @@ def test_bad_option_values_one_message_exit_2_nothing_written(
 ) -> None:
     (cmd, *flags), needle = BAD_OPTIONS[case]
     out = tmp_path / "out"
-    target = {"bake": out, "export": out / "k.ply", "preview": out / "k.gif"}[cmd]
+    target = {"bake": out, "farm": out, "export": out / "k.ply", "preview": out / "k.gif"}[cmd]
     if cmd == "preview" and case != "picture type":
         target = out / "k.png"
     res = run(cmd, str(small), "-o", str(target), *flags)

@@ -410,6 +410,19 @@ def test_equivalent_specs_hash_the_same_and_options_change_it(tmp_path: Path) ->
     assert world_hash(a, tolerance_m=2.0, offset="normal") == world_hash(a)
     assert world_hash(a, tolerance_m=1.5) != world_hash(a)
     assert world_hash(a, offset="exact") != world_hash(a)
+    # so do the level table's overrides, each one, unless equal to the spec's own value
+    lod = a.lod
+    same = {"levels": lod.levels, "ratio": lod.ratio, "chunk_level": lod.chunk_level}
+    assert world_hash(a, **same, seams=lod.seams, collision=True) == world_hash(a)
+    changed = [
+        {"levels": lod.levels + 1},
+        {"ratio": lod.ratio + 1},
+        {"chunk_level": lod.chunk_level + 1},
+        {"seams": "skirt" if lod.seams == "stitch" else "stitch"},
+        {"collision": False},
+    ]
+    hashes = {world_hash(a, **kw) for kw in changed}
+    assert len(hashes) == len(changed) and world_hash(a) not in hashes
     moved = parse_spec({**b.model_dump(mode="json"), "radius_m": 401.0})
     assert world_hash(moved) != world_hash(a)
     h = world_hash(a)
@@ -659,14 +672,98 @@ def test_dask_cluster_with_a_killed_worker(worlds: tuple[list[Path], Path], tmp_
 def test_cache_key_is_sha256_of_the_canonical_document() -> None:
     # the cache key is a SHA-256 of the canonical spec text (hashlib, FIPS 180-4): recompute it
     spec = parse_spec(small_world(0))
+    # small_world(0) sets lod.levels 2 and chunk_level 0; ratio and seams are the defaults
+    options = {"tolerance_m": 1.0, "offset": "normal", "levels": 2, "ratio": 2.0}
+    options.update(chunk_level=0, seams="stitch", collision=True)
     doc = {
         "format": farm_module.CACHE_FORMAT,
         "globemill": farm_module.__version__,
-        "options": {"tolerance_m": 1.0, "offset": "normal", "collision": True},
+        "options": options,
         "spec": spec.model_dump(mode="json"),
     }
     text = json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
     assert world_hash(spec) == hashlib.sha256(text.encode()).hexdigest()
+
+
+# ---- the level table's flags ----------------------------------------------------------------
+
+
+def test_farm_takes_the_level_flags_of_bake_and_a_change_rebakes(tmp_path: Path) -> None:
+    specs = write_specs(tmp_path / "specs", n=2)  # each spec says lod.levels 2, chunk_level 0
+    names = names_of(specs)
+    out, ref = tmp_path / "out", tmp_path / "ref"
+    flags = ["--levels", "3", "--ratio", "3", "--chunk-level", "1", "--seams", "skirt"]
+    flags.append("--no-collision")
+    assert cli_main(["farm", *map(str, specs), "-o", str(out), "-q", *flags]) == 0
+    for spec, name in zip(specs, names, strict=True):
+        # the reference: `globemill bake` with the same flags, run on its own
+        assert cli_main(["bake", str(spec), "-o", str(ref), "-q", *flags]) == 0
+        assert (out / f"{name}.glb").read_bytes() == (ref / f"{name}.glb").read_bytes()
+        report = json.loads((out / f"{name}.report.json").read_text())
+        tol = json.loads(spec.read_text())["tolerance_m"]
+        # 20 * 4^c chunks (docs/lod.md); level k's tolerance is tolerance_m * ratio^k
+        assert [lv["chunks"] for lv in report["lods"]] == [80, 80, 80]
+        assert [lv["tolerance_m"] for lv in report["lods"]] == pytest.approx(
+            [tol, 3 * tol, 9 * tol], rel=1e-12
+        )
+        assert report["seams"] == "skirt" and report["collision"] is None
+        assert not (out / f"{name}.collision.glb").exists()
+    rows = json.loads((out / "farm.json").read_text())["worlds"]
+    assert [(r["status"], r["collision_triangles"]) for r in rows] == [("baked", None)] * 2
+    assert all("collision" not in r["outputs"] for r in rows)
+
+    # the same flags again: cached; a changed flag: every world baked again, as it now says
+    again = farm(specs, out, jobs=1, levels=3, ratio=3, chunk_level=1, seams="skirt",
+                 collision=False)  # fmt: skip
+    assert [w.status for w in again.worlds] == ["cached", "cached"]
+    two = farm(specs, out, jobs=1, levels=2, ratio=3, chunk_level=1, seams="skirt",
+               collision=False)  # fmt: skip
+    assert [w.status for w in two.worlds] == ["baked", "baked"]
+    for name in names:
+        report = json.loads((out / f"{name}.report.json").read_text())
+        assert len(report["lods"]) == 2
+    # no flags: the specs' own table, colliders back on
+    plain = farm(specs, out, jobs=1)
+    assert [w.status for w in plain.worlds] == ["baked", "baked"]
+    for name in names:
+        report = json.loads((out / f"{name}.report.json").read_text())
+        assert [lv["chunks"] for lv in report["lods"]] == [20, 20]
+        assert report["collision"]["triangles"] > 0
+        glb_parts((out / f"{name}.collision.glb").read_bytes())
+
+
+@pytest.mark.parametrize(
+    ("option", "needle"),
+    [
+        ({"levels": 0}, "levels: must be an integer in 1..12, got 0"),
+        ({"ratio": 1.0}, "ratio: must be > 1 and <= 16, got 1"),
+        ({"chunk_level": 6}, "chunk_level: must be an integer in 0..5, got 6"),
+        ({"seams": "weld"}, "seams: must be one of stitch, skirt, got 'weld'"),
+        ({"levels": 2.5}, "levels: must be an integer, got 2.5"),
+    ],
+)
+def test_bad_level_options_are_refused_before_anything_is_written(
+    tmp_path: Path, option: dict[str, Any], needle: str
+) -> None:
+    specs = write_specs(tmp_path / "specs", n=1)
+    out = tmp_path / "out"
+    with pytest.raises(ValueError) as exc:
+        farm(specs, out, jobs=1, **option)
+    assert needle in str(exc.value)
+    assert not out.exists()
+
+
+def test_the_estimate_follows_the_chunk_level_override() -> None:
+    from globemill.farm import estimate_bake
+
+    spec = parse_spec(small_world(0, tolerance_m=20.0))  # coarse: few triangles on its own
+    coarse = estimate_bake(spec, threads=1)
+    # every one of the 20 * 4^c chunks is meshed on its own (docs/lod.md), so at chunk level 4
+    # the finest level has at least 20 * 4^4 = 5120 triangles, whatever the tolerance allows
+    fine = estimate_bake(spec, threads=1, chunk_level=4)
+    assert coarse.triangles < 20 * 4**4 <= fine.triangles
+    assert fine.memory_bytes > coarse.memory_bytes
+    assert estimate_bake(spec, threads=1, chunk_level=spec.lod.chunk_level) == coarse
 
 
 # ---- per-world progress --------------------------------------------------------------------------
@@ -722,3 +819,70 @@ def test_the_farm_bar_is_told_how_far_running_bakes_are(tmp_path: Path) -> None:
         done = list(farm_module._completed({fut: job}, str(tmp_path), tick))
     assert done == [fut] and fut.result() == "done"
     assert {3: (0.4, "verify 10/25 triangles")} in ticks
+
+
+def assert_progress_per_world(calls: list[Any], names: list[str], caller: int) -> None:
+    """Each world's WorldProgress calls: on the farm's thread, fractions in 0..1 that never go
+    back, the stages in the bake's order (globemill.progress.ORDER), one that came while the
+    bake ran, and a last call "done" at 1.0."""
+    from globemill.progress import ORDER
+
+    assert {thread for thread, _ in calls} == {caller}
+    by_world: dict[str, list[Any]] = {}
+    for _, p in calls:
+        by_world.setdefault(p.world, []).append(p)
+    assert sorted(by_world) == sorted(names)
+    for name, seq in by_world.items():
+        fractions = [p.fraction for p in seq]
+        assert fractions == sorted(fractions) and 0.0 <= fractions[0], (name, fractions)
+        assert seq[-1].fraction == 1.0 and seq[-1].stage == "done", (name, seq[-1])
+        assert [p.stage for p in seq].count("done") == 1
+        assert any(0.0 < f < 1.0 for f in fractions), (name, fractions)
+        stages = [ORDER.index(p.stage.split(" ")[0]) for p in seq[:-1]]
+        assert stages == sorted(stages), (name, [p.stage for p in seq])
+
+
+def test_on_progress_follows_each_local_world_to_the_end(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import threading
+
+    # look at the running bakes often, so that even these small ones are seen under way
+    monkeypatch.setattr(farm_module, "TICK_SECONDS", 0.02)
+    specs = write_specs(tmp_path / "specs", n=2)
+    calls: list[tuple[int, Any]] = []
+    summary = farm(
+        specs,
+        tmp_path / "out",
+        jobs=2,
+        on_progress=lambda p: calls.append((threading.get_ident(), p)),
+    )
+    assert summary.ok, summary.table()
+    assert_progress_per_world(calls, names_of(specs), threading.get_ident())
+    assert {p.source for _, p in calls} == {str(p) for p in specs}
+    # a second run finds both cached: no bake, no progress
+    calls.clear()
+    assert [w.status for w in farm(specs, tmp_path / "out", on_progress=calls.append).worlds] == [
+        "cached",
+        "cached",
+    ]
+    assert calls == []
+
+
+def test_on_progress_from_dask_workers_through_events(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import threading
+
+    monkeypatch.setattr(farm_module, "TICK_SECONDS", 0.02)
+    specs = write_specs(tmp_path / "specs", n=2)
+    calls: list[tuple[int, Any]] = []
+    with loopback_dask_cluster(tmp_path / "cluster", nworkers=2) as cluster:
+        summary = farm(
+            specs,
+            tmp_path / "out",
+            scheduler=cluster.address,
+            on_progress=lambda p: calls.append((threading.get_ident(), p)),
+        )
+    assert summary.ok and summary.backend == "dask", summary.table()
+    assert_progress_per_world(calls, names_of(specs), threading.get_ident())

@@ -764,12 +764,32 @@ def test_old_keys_are_read_with_a_deprecation_message() -> None:
         old_spec = parse_spec(world([OLD_BLOCK]), source="old.toml")
     text = " ".join(str(w.message) for w in record)
     assert "bearing_deg = 60" in text and "corner_radius_m" in text and "wall_width_m" in text
-    assert "features[0] ('Pen')" in text
+    assert 'features[0] ("Pen")' in text
     assert old_spec == parse_spec(world([new]))
     assert np.array_equal(old_spec.core_features(), parse_spec(world([new])).core_features())
     mesa = {k: v for k, v in FEATURES["mesa"].items() if k != "wall_width_m"} | {"wall_m": 1.0}
     with pytest.warns(SpecDeprecationWarning, match="wall_m is deprecated"):
         parse_spec(world([mesa]))
+
+
+def test_deprecation_messages_in_full() -> None:
+    # the wording of spec_rules.json's renamed_messages, filled in (the C ABI's gm_world_warnings
+    # returns the same lines): heading 30 counter-clockwise from east is bearing 90 - 30 = 60
+    from globemill.spec import SpecDeprecationWarning
+
+    named = dict(OLD_BLOCK, name='Pen "north" \\ 2')
+    mesa = {k: v for k, v in FEATURES["mesa"].items() if k != "wall_width_m"} | {"wall_m": 1.0}
+    with pytest.warns(SpecDeprecationWarning) as record:
+        parse_spec(world([mesa, named]), source="old.json")
+    tail = "is deprecated and will not be read after this release; write"
+    pen = 'old.json: features[1] ("Pen \\"north\\" \\\\ 2")'
+    assert [str(w.message) for w in record] == [
+        f"old.json: features[0]: wall_m {tail} wall_width_m instead",
+        f"{pen}: heading_deg (counter-clockwise from east) {tail} bearing_deg = 60 (clockwise "
+        "from north) instead",
+        f"{pen}: corner_m {tail} corner_radius_m instead",
+        f"{pen}: wall_m {tail} wall_width_m instead",
+    ]
 
 
 def test_bearing_is_clockwise_from_north() -> None:

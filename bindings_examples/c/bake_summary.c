@@ -5,7 +5,9 @@
  *   globemill_bake_summary SPEC.json [TOLERANCE_M]
  *
  * TOLERANCE_M, when given, replaces the finest level's tolerance (like globemill.bake's
- * tolerance_m). Exit status 0 on success, 1 with the library's message on stderr otherwise. */
+ * tolerance_m). The spec's deprecation messages (keys written in an old spelling) go to stderr,
+ * one "warning: " line each. Exit status 0 on success, 1 with the library's message on stderr
+ * otherwise. */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -28,6 +30,22 @@ static char* read_file(const char* path, size_t* size) {
     }
     fclose(f);
     return data;
+}
+
+/* the spec's deprecation messages (renamed keys), each as "warning: <line>" on stderr */
+static void print_warnings(const gm_world* world) {
+    size_t n = 0;
+    char* lines;
+    char* line;
+    if (gm_world_warnings(NULL, 0, &n, world, NULL) != GM_OK || n == 0) return;
+    lines = (char*)malloc(n + 1);
+    if (!lines || gm_world_warnings(lines, n + 1, &n, world, NULL) != GM_OK) {
+        free(lines);
+        return;
+    }
+    for (line = strtok(lines, "\n"); line; line = strtok(NULL, "\n"))
+        fprintf(stderr, "warning: %s\n", line);
+    free(lines);
 }
 
 static int report(const char* what, const gm_error* err) {
@@ -67,6 +85,7 @@ int main(int argc, char** argv) {
         return report("gm_world_create", &err);
     }
     free(text);
+    print_warnings(world);
     gm_world_get_info(&wi, world, NULL);
 
     gm_bake_options_init(&opt);

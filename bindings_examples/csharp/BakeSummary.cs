@@ -1,6 +1,6 @@
 // A C# host of globemill through P/Invoke: bake a world from its JSON spec, copy every chunk of
 // every level into managed arrays (as an engine would before uploading them) and print the same
-// summary lines as the C example.
+// summary lines as the C example (and the same "warning: " lines on stderr).
 //   mono BakeSummary.exe SPEC.json [TOLERANCE_M]
 using System;
 using System.Globalization;
@@ -34,6 +34,7 @@ static class BakeSummary
         }
         try
         {
+            foreach (string line in World.Warnings(world)) Console.Error.WriteLine("warning: " + line);
             WorldInfo wi;
             Check.Ok(Native.gm_world_get_info(out wi, world, ref err), err);
             BakeOptions opt;

@@ -136,6 +136,9 @@ namespace Globemill
         public static extern void gm_world_destroy(IntPtr world);
 
         [DllImport(Lib, CallingConvention = CallingConvention.Cdecl)]
+        public static extern Status gm_world_warnings(byte[] text, UIntPtr textCapacity, out UIntPtr textLength, IntPtr world, ref Error err);
+
+        [DllImport(Lib, CallingConvention = CallingConvention.Cdecl)]
         public static extern Status gm_world_get_info(out WorldInfo info, IntPtr world, ref Error err);
 
         [DllImport(Lib, CallingConvention = CallingConvention.Cdecl)]
@@ -179,6 +182,22 @@ namespace Globemill
 
         [DllImport(Lib, CallingConvention = CallingConvention.Cdecl)]
         public static extern Status gm_collider_triangles(uint[] dst, UIntPtr capacity, IntPtr bake, uint chunk, ref Error err);
+    }
+
+    public static class World
+    {
+        // The deprecation messages of a world's spec (gm_world_warnings), one per line; none
+        // when it uses no renamed key.
+        public static string[] Warnings(IntPtr world)
+        {
+            var err = new Error();
+            UIntPtr length;
+            Check.Ok(Native.gm_world_warnings(null, UIntPtr.Zero, out length, world, ref err), err);
+            if (length.ToUInt64() == 0) return new string[0];
+            var text = new byte[length.ToUInt64() + 1];
+            Check.Ok(Native.gm_world_warnings(text, new UIntPtr((ulong)text.Length), out length, world, ref err), err);
+            return System.Text.Encoding.UTF8.GetString(text, 0, (int)length.ToUInt64()).Split('\n');
+        }
     }
 
     public class GlobemillException : Exception

@@ -10,6 +10,7 @@ the GIL released.
     bake.level_triangles(0)    # (T, 3) uint32 pool ids of level 0
     bake.chunk(0, 5)           # dict of one chunk's own mesh on level 0
     bake.collider(5)           # (positions (n, 3) float64, triangles (t, 3) uint32)
+    bake.warnings              # the spec's deprecation messages (gm_world_warnings), str each
 """
 from libc.stdint cimport int32_t, uint8_t, uint32_t, uint64_t
 
@@ -75,6 +76,7 @@ cdef extern from "globemill.h" nogil:
     const char* gm_version_string()
     gm_status gm_world_create(gm_world** world, const char* spec_json, size_t spec_length, gm_error* err)
     void gm_world_destroy(gm_world* world)
+    gm_status gm_world_warnings(char* text, size_t text_capacity, size_t* text_length, const gm_world* world, gm_error* err)
     void gm_bake_options_init(gm_bake_options* options)
     gm_status gm_bake_create(gm_bake** bake, const gm_world* world, const gm_bake_options* options, gm_error* err)
     void gm_bake_destroy(gm_bake* bake)
@@ -113,11 +115,27 @@ def version():
     return gm_version_string().decode()
 
 
+cdef list _warnings(const gm_world* world):
+    """The world's deprecation messages (gm_world_warnings), one str per line."""
+    cdef size_t n = 0
+    cdef gm_error err
+    _check(gm_world_warnings(NULL, 0, &n, world, &err), &err)
+    if n == 0:
+        return []
+    cdef bytearray text = bytearray(n + 1)
+    _check(gm_world_warnings(text, n + 1, &n, world, &err), &err)
+    return bytes(text[:n]).decode("utf-8").split("\n")
+
+
 cdef class Bake:
-    """Every level, chunk and collider of one world, baked through the C ABI."""
+    """Every level, chunk and collider of one world, baked through the C ABI.
+
+    warnings : the spec's deprecation messages (keys in a renamed spelling), one str each
+    """
 
     cdef gm_bake* _bake
     cdef gm_bake_info _info
+    cdef readonly list warnings
 
     def __cinit__(self, spec_json, double tolerance_m=0.0, int threads=0, bint collision=True):
         cdef bytes text = spec_json.encode("utf-8") if isinstance(spec_json, str) else bytes(spec_json)
@@ -131,6 +149,11 @@ cdef class Bake:
         with nogil:
             s = gm_world_create(&world, p, n, &err)
         _check(s, &err)
+        try:
+            self.warnings = _warnings(world)
+        except BaseException:
+            gm_world_destroy(world)
+            raise
         gm_bake_options_init(&opt)
         opt.tolerance_m = tolerance_m
         opt.threads = threads

@@ -38,9 +38,12 @@
  *   same handle. Baking uses its own worker threads (gm_bake_options.threads).
  *
  * Same results as Python.  The spec loader reads the rule table globemill.spec is built from
- *   (src/globemill/spec_rules.json: field names, ranges, defaults), and its problem lines
- *   `path: what (allowed: range), got value` name the same paths and allowed ranges (numbers
- *   written in their shortest exact form, which may differ from Python's), and gm_bake_create runs the
+ *   (src/globemill/spec_rules.json: field names, ranges, defaults, deprecation messages), and its
+ *   problem lines `path: what (allowed: range), got value` name the same paths and allowed ranges
+ *   (numbers written in their shortest exact form, laid out as Python's repr lays them out;
+ *   the values may still differ where Python reads a number exactly that float64 cannot hold,
+ *   e.g. an integer beyond 2^53), and
+ *   gm_world_warnings gives Python's deprecation messages word for word; gm_bake_create runs the
  *   same core calls with the same defaults as globemill.bake(), so counts, vertex positions,
  *   indices, morph targets, normals and colliders equal the Python API's for the same spec and
  *   options. Attributes (slope, altitude, layer, color) follow globemill.attributes.
@@ -181,6 +184,27 @@ GM_API gm_status gm_world_create(gm_world** world, const char* spec_json, size_t
 
 /* Release a world; NULL is ignored. Not while another call uses it. */
 GM_API void gm_world_destroy(gm_world* world);
+
+/* The deprecation messages of a world's spec: one line for each key it gave in a spelling that
+ * was renamed (docs/spec.md, "Renamed keys": wall_m, corner_m, heading_deg), which this release
+ * still reads and the next will not. The lines are worded by the rule table
+ * (src/globemill/spec_rules.json, renamed_messages) and are the messages of Python's
+ * SpecDeprecationWarning for the same spec without their leading "<source>: ", e.g.
+ *   features[1] ("Pen"): corner_m is deprecated and will not be read after this release; write
+ *   corner_radius_m instead
+ * (one line; a feature without a name is just features[i]).
+ *
+ * text: room for text_capacity bytes; receives the lines, in spec order, separated by '\n' with
+ *   no '\n' after the last, NUL-terminated ("" when the spec uses no old key); cut at a character
+ *   boundary when they do not fit (as gm_spec_check's message). May be NULL when text_capacity
+ *   is 0: then nothing is written but *text_length (the size query).
+ * text_length: if not NULL, receives the full text's length in bytes without the NUL (so a
+ *   caller can retry with text_length + 1 bytes; text_length < text_capacity means nothing was
+ *   cut).
+ * Fails with GM_ERROR_INVALID_ARGUMENT (a NULL world, or a NULL text with a capacity above 0),
+ * writing nothing. Thread-safe. */
+GM_API gm_status gm_world_warnings(char* text, size_t text_capacity, size_t* text_length,
+                                   const gm_world* world, gm_error* err);
 
 typedef struct gm_world_info {
     double radius_m;              /* base radius R */

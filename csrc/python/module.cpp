@@ -7,6 +7,7 @@
 
 #include <cmath>
 #include <memory>
+#include <optional>
 #include <stdexcept>
 #include <string>
 #include <vector>
@@ -554,6 +555,17 @@ PYBIND11_MODULE(_core, m) {
         },
         py::arg("indices"), py::arg("vertex_count"), py::arg("cache_size"),
         "vertices a FIFO post-transform cache of cache_size entries transforms for the index list");
+    m.def(
+        "check_lod",
+        [](std::optional<int> levels, std::optional<double> ratio, std::optional<int> chunk_level) {
+            std::string err;
+            raise_status(check_lod(levels ? &*levels : nullptr, ratio ? &*ratio : nullptr,
+                                   chunk_level ? &*chunk_level : nullptr, err),
+                         err);
+        },
+        py::arg("levels") = py::none(), py::arg("ratio") = py::none(), py::arg("chunk_level") = py::none(),
+        "ValueError naming the setting and its range for a bad levels, ratio or chunk_level (None: not "
+        "given), the very check the bake applies");
     m.def("bake", &bake_py, py::arg("field"), py::arg("settings"), py::arg("progress") = nullptr,
           "bake a world: every level, chunk, seam, attribute and collider, with the GIL released");
     py::class_<PyEditSession>(m, "EditSession")

@@ -39,6 +39,9 @@ class EditSession:
     def update(self, field: Field, layers: npt.ArrayLike) -> dict[str, Any]: ...
     def result(self) -> Bake: ...
 
+def check_lod(
+    levels: int | None = None, ratio: float | None = None, chunk_level: int | None = None
+) -> None: ...
 def bake(
     field: Field,
     settings: dict[str, Any],

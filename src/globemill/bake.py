@@ -174,23 +174,19 @@ def settings(
     if mode not in OFFSET_MODES:
         raise ValueError(f"offset: must be one of {', '.join(OFFSET_MODES)}, got {mode!r}")
     seam = spec.lod.seams if seams is None else seams
-    if seam not in SEAM_MODES:
-        raise ValueError(f"seams: must be one of {', '.join(SEAM_MODES)}, got {seam!r}")
-    if not isinstance(collision, bool):
-        raise ValueError(f"collision: must be true or false, got {collision!r}")
+    _check_seams(seam)
+    _check_collision(collision)
     tol = spec.tolerance_m if tolerance_m is None else tolerance_m
     rat = spec.lod.ratio if ratio is None else ratio
     for name, value in (("tolerance_m", tol), ("ratio", rat)):
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise ValueError(f"{name}: must be a number, got {value!r}")
+        _check_number(name, value)
     values = {
         "levels": spec.lod.levels if levels is None else levels,
         "chunk_level": spec.lod.chunk_level if chunk_level is None else chunk_level,
         "threads": threads,
     }
     for name, value in values.items():
-        if isinstance(value, bool) or not isinstance(value, int) or not -(2**31) < value < 2**31:
-            raise ValueError(f"{name}: must be an integer, got {value!r}")
+        _check_integer(name, value)
     col = spec.collision
     return {
         "radius_m": float(spec.radius_m),
@@ -208,6 +204,51 @@ def settings(
         "accept_over_tolerance": bool(accept_over_tolerance),
         "layers": layer_rows(spec.layers),
     }
+
+
+def _check_number(name: str, value: Any) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise ValueError(f"{name}: must be a number, got {value!r}")
+
+
+def _check_integer(name: str, value: Any) -> None:
+    if isinstance(value, bool) or not isinstance(value, int) or not -(2**31) < value < 2**31:
+        raise ValueError(f"{name}: must be an integer, got {value!r}")
+
+
+def _check_seams(value: Any) -> None:
+    if value not in SEAM_MODES:
+        raise ValueError(f"seams: must be one of {', '.join(SEAM_MODES)}, got {value!r}")
+
+
+def _check_collision(value: Any) -> None:
+    if not isinstance(value, bool):
+        raise ValueError(f"collision: must be true or false, got {value!r}")
+
+
+def check_overrides(
+    *,
+    levels: int | None = None,
+    ratio: float | None = None,
+    chunk_level: int | None = None,
+    seams: str | None = None,
+    collision: bool = True,
+) -> None:
+    """Raise ValueError, naming the option and its allowed range, for an override of the level
+    table that no world can be baked with (None: not given). The ranges are the core's own
+    (csrc/bake.cpp, check_lod, which every bake applies too); limits that depend on the world
+    (20 * 4^chunk_level chunks within its max_triangles) are left to its bake."""
+    if seams is not None:
+        _check_seams(seams)
+    _check_collision(collision)
+    if ratio is not None:
+        _check_number("ratio", ratio)
+    for name, value in (("levels", levels), ("chunk_level", chunk_level)):
+        if value is not None:
+            _check_integer(name, value)
+    _core.check_lod(
+        levels=levels, ratio=None if ratio is None else float(ratio), chunk_level=chunk_level
+    )
 
 
 def feature_table(spec: WorldSpec) -> list[dict[str, Any]]:

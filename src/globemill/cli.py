@@ -62,6 +62,7 @@ EXAMPLES = {
     "farm": [
         "globemill farm worlds/ -o out/",
         "globemill farm 'worlds/**/*.toml' -o out/ --jobs 4",
+        "globemill farm worlds/ -o out/ --levels 3 --chunk-level 2 --no-collision",
         "globemill farm worlds/ -o /shared/out --scheduler tcp://10.0.0.5:8786",
     ],
     "spec": [
@@ -137,6 +138,7 @@ def _bake_spec(
     from .farm import available_memory, check_memory, estimate_bake
     from .spec import load_spec
 
+    overrides = lod_overrides(args)  # a bad flag is named before the spec is even read
     spec = load_spec(args.spec)
     if not args.quiet:
         from .spec_warnings import warnings_for
@@ -152,7 +154,12 @@ def _bake_spec(
     est = None
     tol = spec.tolerance_m if args.tolerance_m is None else args.tolerance_m
     if tol > 0:  # else the bake names the bad tolerance
-        est = estimate_bake(spec, tolerance_m=tol, threads=max(0, args.threads))
+        est = estimate_bake(
+            spec,
+            tolerance_m=tol,
+            threads=max(0, args.threads),
+            chunk_level=overrides["chunk_level"],
+        )
         if est.large and not args.quiet:
             _note(est.describe())
         limit = args.max_memory if args.max_memory is not None else available_memory()
@@ -164,7 +171,7 @@ def _bake_spec(
     if show:
         from .progress import ProgressBar
 
-        bar = ProgressBar(spec.name, collision=not args.no_collision)
+        bar = ProgressBar(spec.name, collision=overrides["collision"])
     args.progress_bar = bar  # the writer reports its stage to the same bar
     progress = bar
     ok = False
@@ -182,14 +189,74 @@ def bake_options(args: argparse.Namespace) -> dict[str, Any]:
     return {
         "tolerance_m": args.tolerance_m,
         "offset": args.offset,
+        **lod_overrides(args),
+        "threads": args.threads,
+        "accept_over_tolerance": args.accept_over_tolerance,
+    }
+
+
+# ---- level table flags: bake, export, preview and farm (bake.check_overrides) ------------------
+
+# each override of the level table and the flag that sets it
+LOD_FLAGS = {
+    "levels": "--levels",
+    "ratio": "--ratio",
+    "chunk_level": "--chunk-level",
+    "seams": "--seams",
+    "collision": "--no-collision",
+}
+
+
+def _add_lod_options(p: argparse.ArgumentParser, whose: str = "the spec's") -> None:
+    """--levels, --ratio, --chunk-level, --seams and --no-collision (read by lod_overrides)."""
+    g = p.add_argument_group(f"levels, chunks and colliders (default: {whose} lod table)")
+    g.add_argument("--levels", type=int, default=None, metavar="N", help="levels of detail")
+    g.add_argument(
+        "--ratio",
+        type=float,
+        default=None,
+        metavar="R",
+        help="tolerance of level k = tolerance_m * R^k",
+    )
+    g.add_argument(
+        "--chunk-level",
+        type=int,
+        default=None,
+        metavar="C",
+        help="20 * 4^C chunks",
+    )
+    g.add_argument(
+        "--seams",
+        choices=["stitch", "skirt"],
+        default=None,
+        help="stitched border variants or skirts where chunks of different levels meet",
+    )
+    g.add_argument(
+        "--no-collision", action="store_true", help="bake no colliders (no .collision.glb)"
+    )
+
+
+def lod_overrides(args: argparse.Namespace) -> dict[str, Any]:
+    """The keyword arguments of `bake` (and `farm`) the flags of _add_lod_options give: levels,
+    ratio, chunk_level, seams (None: the spec's) and collision. A value no world can be baked
+    with raises ValueError naming the flag and its allowed range (the core's check)."""
+    from .bake import check_overrides
+
+    over: dict[str, Any] = {
         "levels": args.levels,
         "ratio": args.ratio,
         "chunk_level": args.chunk_level,
         "seams": args.seams,
         "collision": not args.no_collision,
-        "threads": args.threads,
-        "accept_over_tolerance": args.accept_over_tolerance,
     }
+    try:
+        check_overrides(**over)
+    except ValueError as exc:
+        key, sep, rest = str(exc).partition(":")
+        if sep and key in LOD_FLAGS:
+            raise ValueError(f"{LOD_FLAGS[key]}:{rest}") from None
+        raise
+    return over
 
 
 def _cmd_bake(args: argparse.Namespace) -> int:
@@ -294,31 +361,7 @@ def _add_bake_options(p: argparse.ArgumentParser) -> None:
         help="how the mesher measures offset (default: the spec's)",
     )
     p.add_argument("--threads", type=int, default=0, help="worker threads (0 = all cores)")
-    g = p.add_argument_group("levels, chunks and colliders (default: the spec's lod table)")
-    g.add_argument("--levels", type=int, default=None, metavar="N", help="levels of detail")
-    g.add_argument(
-        "--ratio",
-        type=float,
-        default=None,
-        metavar="R",
-        help="tolerance of level k = tolerance_m * R^k",
-    )
-    g.add_argument(
-        "--chunk-level",
-        type=int,
-        default=None,
-        metavar="C",
-        help="20 * 4^C chunks",
-    )
-    g.add_argument(
-        "--seams",
-        choices=["stitch", "skirt"],
-        default=None,
-        help="stitched border variants or skirts where chunks of different levels meet",
-    )
-    g.add_argument(
-        "--no-collision", action="store_true", help="bake no colliders (no .collision.glb)"
-    )
+    _add_lod_options(p)
     p.add_argument(
         "--accept-over-tolerance",
         action="store_true",
@@ -464,6 +507,7 @@ def _cmd_schema(args: argparse.Namespace) -> int:
 def _cmd_farm(args: argparse.Namespace) -> int:
     from .farm import FarmError, farm
 
+    overrides = lod_overrides(args)  # a bad flag: exit 2 before anything is written
     try:
         summary = farm(
             args.specs,
@@ -472,6 +516,7 @@ def _cmd_farm(args: argparse.Namespace) -> int:
             scheduler=args.scheduler,
             tolerance_m=args.tolerance_m,
             offset=args.offset,
+            **overrides,
             threads=args.threads,
             force=args.force,
             progress=not args.quiet and sys.stderr.isatty(),
@@ -600,6 +645,7 @@ def build_parser() -> argparse.ArgumentParser:
         default=None,
         help="threads per bake (default: 1 when bakes run side by side, else all cores)",
     )
+    _add_lod_options(f, "each spec's")
     f.add_argument("--force", action="store_true", help="re-bake worlds even when cached")
     _add_memory_option(f)
     f.add_argument("-q", "--quiet", action="store_true", help="print nothing but errors")

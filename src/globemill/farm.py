@@ -9,8 +9,9 @@
   ``pip install 'globemill[farm]'``). Dask workers write the outputs themselves, so ``outdir``
   must be a folder every worker sees at the same path (a shared filesystem).
 - Incremental: a world's content hash covers its canonical spec (``model_dump(mode="json")``
-  serialised with sorted keys), the bake options that change the output (tolerance, offset) and
-  the globemill version. A world is skipped and reported as cached only when its cache record,
+  serialised with sorted keys), the bake options that change the output (tolerance, offset,
+  levels, ratio, chunk level, seams, colliders on or off) and the globemill version. A world is
+  skipped and reported as cached only when its cache record,
   ``outdir/.globemill-cache/<name>.json``, holds the same hash and every output it lists holds
   the bytes whose SHA-256 was recorded when they were written (sizes alone would take a bake of
   a spec with one color changed as current). The record is removed before a world is re-baked
@@ -32,6 +33,13 @@
   ``distributed.scheduler.allowed-failures``); a local worker process that dies breaks its pool, so
   the pool is restarted and the unfinished worlds are baked again, the ones that were running at
   the time each on its own, until one kills its process twice and is reported as failed.
+- Progress per world: each bake reports its stages (refine, verify, levels, seams, chunks,
+  colliders, write) as one fraction of the whole (globemill.progress.BakeProgress). A local
+  worker keeps it in a file beside its job marker, which the farm reads about twice a second; a
+  Dask worker sends it as Dask events (``Worker.log_event`` under the topic
+  ``globemill-progress-<run>``, which the client subscribes to). The bar (``progress=True``)
+  counts finished worlds whole and running ones by their fraction, naming each running world's
+  percentage and stage; ``on_progress`` gets the same as WorldProgress values.
 - Before the work: the output folder is probe-written (an unwritable one raises WriteError, and
   each bake checks the free space against its estimated files before it starts), and each world's
   time and memory are estimated from its spec (estimate_bake).
@@ -51,6 +59,7 @@ import hashlib
 import json
 import multiprocessing
 import os
+import queue
 import signal
 import socket
 import sys
@@ -75,6 +84,7 @@ from ._atomic import (
     sweep_temporaries,
     write_files_atomically,
 )
+from .bake import check_overrides
 from .provenance import canonical_spec
 from .spec import SpecError, WorldSpec, load_spec, parse_spec
 
@@ -92,6 +102,7 @@ __all__ = [
     "FarmTerminated",
     "MemoryLimitError",
     "WorldOutcome",
+    "WorldProgress",
     "available_memory",
     "canonical_spec",
     "collect_specs",
@@ -102,8 +113,9 @@ __all__ = [
 
 SUMMARY_NAME = "farm.json"
 CACHE_DIR = ".globemill-cache"
-# bump when the cache record or the hashed document changes shape (2: files named by sha256)
-CACHE_FORMAT = 2
+# bump when the cache record or the hashed document changes shape (2: files named by sha256;
+# 3: the options hold the level table: levels, ratio, chunk_level, seams, collision)
+CACHE_FORMAT = 3
 # held by the farm writing into a folder, and (shared) by its local worker processes
 LOCK_NAME = ".globemill-farm.lock"
 WORKERS_LOCK_NAME = ".globemill-workers.lock"
@@ -117,6 +129,7 @@ CONNECT_TIMEOUT_S = 20.0
 
 Spec = str | os.PathLike[str] | WorldSpec
 OnWorld = Callable[["WorldOutcome"], None]
+OnProgress = Callable[["WorldProgress"], None]
 
 
 class FarmError(RuntimeError):
@@ -166,6 +179,24 @@ class WorldOutcome:
     @property
     def ok(self) -> bool:
         return self.status in ("baked", "cached")
+
+
+@dataclass(frozen=True)
+class WorldProgress:
+    """How far the bake of one world in a farm run has come (farm's on_progress payload).
+
+    world : the spec's name; source : where the spec came from (as WorldOutcome.source)
+    fraction : 0..1 of the world's bake and write, every stage weighted by its measured share
+        of a bake's time (globemill.progress.STAGES); it never decreases for a world in a run
+    stage : what the bake is doing, in its own unit, e.g. "verify 81,920/163,840 triangles
+        measured" (as `globemill bake`'s bar shows it); "done" on the last call, when the world's
+        outputs and cache record are written (fraction 1.0)
+    """
+
+    world: str
+    source: str
+    fraction: float
+    stage: str
 
 
 @dataclass
@@ -244,25 +275,37 @@ class FarmSummary:
 
 
 def bake_options(
-    spec: WorldSpec, *, tolerance_m: float | None = None, offset: str | None = None
+    spec: WorldSpec,
+    *,
+    tolerance_m: float | None = None,
+    offset: str | None = None,
+    levels: int | None = None,
+    ratio: float | None = None,
+    chunk_level: int | None = None,
+    seams: str | None = None,
+    collision: bool = True,
 ) -> dict[str, Any]:
     """The options of a farm bake that change its output, resolved against the spec (an override
     equal to the spec's own value hashes the same as no override). Threads do not change it."""
+    lod = spec.lod
     return {
         "tolerance_m": float(spec.tolerance_m if tolerance_m is None else tolerance_m),
         "offset": spec.offset if offset is None else offset,
-        "collision": True,
+        "levels": int(lod.levels if levels is None else levels),
+        "ratio": float(lod.ratio if ratio is None else ratio),
+        "chunk_level": int(lod.chunk_level if chunk_level is None else chunk_level),
+        "seams": lod.seams if seams is None else seams,
+        "collision": bool(collision),
     }
 
 
-def world_hash(
-    spec: WorldSpec, *, tolerance_m: float | None = None, offset: str | None = None
-) -> str:
-    """SHA-256 (hex) of the canonical spec, the bake options and the globemill version."""
+def world_hash(spec: WorldSpec, **overrides: Any) -> str:
+    """SHA-256 (hex) of the canonical spec, the bake options (`overrides`: the keyword arguments
+    of bake_options, resolved by it) and the globemill version."""
     doc = {
         "format": CACHE_FORMAT,
         "globemill": __version__,
-        "options": bake_options(spec, tolerance_m=tolerance_m, offset=offset),
+        "options": bake_options(spec, **overrides),
         "spec": json.loads(canonical_spec(spec)),
     }
     text = json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
@@ -339,10 +382,15 @@ def _cores() -> int:
 
 
 def estimate_bake(
-    spec: WorldSpec, *, tolerance_m: float | None = None, threads: int = 0
+    spec: WorldSpec,
+    *,
+    tolerance_m: float | None = None,
+    threads: int = 0,
+    chunk_level: int | None = None,
 ) -> BakeEstimate:
     """Estimate the triangles, memory, time and file size of baking `spec` (threads: 0 = all
-    cores), from the core's triangle estimate for the tolerance and the feature count.
+    cores; chunk_level: None for the spec's), from the core's triangle estimate for the tolerance
+    and the feature count.
 
     The triangle estimate is the core's budget survey (the refinement run to four times the
     tolerance, see docs/meshing.md): it costs about a quarter of the bake's refinement on smooth
@@ -361,7 +409,7 @@ def estimate_bake(
             Field(spec)._core,
             tol,
             offset=OFFSET_MODES[spec.offset],
-            chunk_level=int(spec.lod.chunk_level),
+            chunk_level=int(spec.lod.chunk_level if chunk_level is None else chunk_level),
             survey_cap=SURVEY_CAP,
             threads=threads,
         )
@@ -589,22 +637,55 @@ def _error_kind(exc: BaseException) -> str:
 PROGRESS_SUFFIX = ".progress"  # beside a local job's marker: "<fraction> <stage text>"
 
 
-def _progress_file(path: str) -> Callable[[str, int, int], None]:
-    """A bake progress callback that keeps `path` holding the bake's fraction done and its stage
-    (rewritten when the fraction moves by a percent), for the farm's bar to read."""
-    from .progress import BakeProgress
+def _progress_sender(
+    send: Callable[[float, str], None], collision: bool = True
+) -> Callable[[str, int, int], None]:
+    """A bake progress callback that passes the bake's fraction done (of the whole bake and its
+    write, globemill.progress.BakeProgress) and its stage text to `send` whenever the fraction
+    has moved by a percent, and at the end."""
+    from .progress import BakeProgress, bake_stages
 
-    bp = BakeProgress()
+    bp = BakeProgress(bake_stages(collision))
     last = [-1.0]
 
     def progress(stage: str, done: int, total: int) -> None:
         f = bp.update(stage, done, total)
         if f - last[0] >= 0.01 or f >= 1.0:
             last[0] = f
-            with contextlib.suppress(OSError):
-                Path(path).write_text(f"{f:.4f} {bp.text}", encoding="utf-8")
+            send(f, bp.text)
 
     return progress
+
+
+def _progress_file(path: str, collision: bool = True) -> Callable[[str, int, int], None]:
+    """A bake progress callback that keeps `path` holding the bake's fraction done and its stage
+    (rewritten when the fraction moves by a percent), for the local farm to read."""
+
+    def send(f: float, text: str) -> None:
+        with contextlib.suppress(OSError):
+            Path(path).write_text(f"{f:.4f} {text}", encoding="utf-8")
+
+    return _progress_sender(send, collision)
+
+
+def _progress_event(
+    topic: str, index: int, collision: bool = True
+) -> Callable[[str, int, int], None] | None:
+    """On a Dask worker: a bake progress callback that logs {"index", "fraction", "stage"} as an
+    event under `topic` (Worker.log_event), which the farm's client subscribes to. None when not
+    on a Dask worker."""
+    try:
+        from distributed import get_worker
+
+        worker = get_worker()
+    except (ImportError, ValueError):
+        return None
+
+    def send(f: float, text: str) -> None:
+        with contextlib.suppress(Exception):  # progress is never worth a failed bake
+            worker.log_event(topic, {"index": index, "fraction": f, "stage": text})
+
+    return _progress_sender(send, collision)
 
 
 def read_progress(path: str) -> tuple[float, str] | None:
@@ -635,11 +716,17 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         spec = parse_spec(task["spec"], source=task["source"])
         outdir = Path(task["outdir"])
         probe_folder(outdir, int(task.get("need_bytes", 0)))  # a full disk before, not after
-        progress = _progress_file(task["marker"] + PROGRESS_SUFFIX) if task.get("marker") else None
+        collision = bool(task["lod"]["collision"])
+        progress = None
+        if task.get("marker"):  # a local worker: beside its marker
+            progress = _progress_file(task["marker"] + PROGRESS_SUFFIX, collision)
+        elif task.get("progress_topic"):  # a Dask worker: as events
+            progress = _progress_event(task["progress_topic"], int(task["index"]), collision)
         result = bake(
             spec,
             tolerance_m=task["tolerance_m"],
             offset=task["offset"],
+            **task["lod"],
             threads=task["threads"],
             progress=progress,
         )
@@ -913,8 +1000,16 @@ def _run_local(jobs: list[_Job], workers: int, finish: Finish, tick: Tick | None
 
 
 def _run_dask(
-    jobs: list[_Job], scheduler: str, finish: Finish, started: Callable[[int], None]
+    jobs: list[_Job],
+    scheduler: str,
+    finish: Finish,
+    started: Callable[[int], None],
+    tick: Tick | None = None,
 ) -> None:
+    """Bake `jobs` on the cluster at `scheduler`. With `tick`, each bake sends its progress as
+    Dask events (topic globemill-progress-<run>, Worker.log_event) that the client receives on
+    its own thread; they are queued and `tick({job index: (fraction, stage)})` is called here,
+    on the calling thread, about every TICK_SECONDS with the bakes running."""
     try:
         from distributed import Client, KilledWorker
         from distributed import as_completed as dask_completed
@@ -937,11 +1032,19 @@ def _run_dask(
     try:
         started(len(client.nthreads()))  # the workers there now (more may join)
         run = uuid.uuid4().hex[:8]
+        events: queue.SimpleQueue[Any] = queue.SimpleQueue()
+        topic = f"globemill-progress-{run}"
+        if tick is not None:
+            client.subscribe_topic(topic, lambda event: events.put(event[1]))
         for job in jobs:
             job.attempts = 1
             key = f"globemill-bake-{job.name}-{job.digest[:12]}-{run}"
-            futures[client.submit(_bake_task, job.task, key=key, pure=False, retries=0)] = job
-        for fut in dask_completed(list(futures), loop=client.loop):
+            task = job.task
+            if tick is not None:
+                task = dict(task, index=job.index, progress_topic=topic)
+            futures[client.submit(_bake_task, task, key=key, pure=False, retries=0)] = job
+        ac = dask_completed(list(futures), loop=client.loop)
+        for fut in _dask_completed(ac, events, tick, lambda f: futures[f].index):
             job = futures[fut]
             try:
                 res = fut.result()
@@ -962,6 +1065,38 @@ def _run_dask(
     finally:
         with contextlib.suppress(Exception):
             client.close()
+
+
+def _dask_completed(
+    ac: Any, events: queue.SimpleQueue[Any], tick: Tick | None, index_of: Callable[[Any], int]
+) -> Iterator[Any]:
+    """The futures of Dask's as_completed `ac` as they complete, calling `tick` with the progress
+    events the running bakes sent (the newest of each job; a finished job's late ones are
+    dropped). `index_of(future)` is its job's index."""
+    running: dict[int, tuple[float, str]] = {}
+    finished: set[int] = set()
+    last_tick = 0.0
+    while not ac.is_empty():
+        batch = ac.next_batch(block=False)
+        for fut in batch:
+            finished.add(index_of(fut))
+            running.pop(index_of(fut), None)
+            yield fut
+        if batch:
+            continue
+        with contextlib.suppress(queue.Empty):  # wait a little for an event (or a result)
+            msg = events.get(timeout=min(TICK_SECONDS, 0.1))
+            while True:
+                with contextlib.suppress(KeyError, TypeError, ValueError):
+                    index = int(msg["index"])
+                    if index not in finished:
+                        f = min(max(float(msg["fraction"]), 0.0), 1.0)
+                        running[index] = (f, str(msg["stage"]))
+                msg = events.get_nowait()
+        now = time.monotonic()
+        if tick is not None and running and now - last_tick >= TICK_SECONDS:
+            last_tick = now
+            tick(dict(running))
 
 
 # --------------------------------------------------------------------------------------------
@@ -998,10 +1133,16 @@ def farm(
     scheduler: str | None = None,
     tolerance_m: float | None = None,
     offset: str | None = None,
+    levels: int | None = None,
+    ratio: float | None = None,
+    chunk_level: int | None = None,
+    seams: str | None = None,
+    collision: bool = True,
     threads: int | None = None,
     force: bool = False,
     progress: bool = False,
     on_world: OnWorld | None = None,
+    on_progress: OnProgress | None = None,
     max_memory_bytes: int | None = None,
     log: Callable[[str], None] | None = None,
 ) -> FarmSummary:
@@ -1011,11 +1152,20 @@ def farm(
     jobs : local worker processes (default: the cores this process may use); ignored with a
         scheduler, where the cluster's workers decide
     scheduler : a Dask scheduler address, e.g. "tcp://10.0.0.5:8786" (default: local pool)
-    tolerance_m, offset : bake overrides for every world (as `globemill bake`)
+    tolerance_m, offset, levels, ratio, chunk_level, seams, collision : bake overrides for every
+        world, as the keyword arguments of `globemill.bake` (None: each spec's own); they are
+        part of each world's cache key, so changing one re-bakes
     threads : core threads per bake (default: 1 when several bakes run at once, else all cores)
     force : bake every world even when its cache record says it is up to date
     progress : show a progress bar across worlds on stderr
     on_world : called with each world's outcome as it is known (cached and failed ones first)
+    on_progress : called with a WorldProgress for each world being baked, on the calling
+        thread: about every TICK_SECONDS (0.5 s) for each running world whose fraction moved,
+        then once with fraction 1.0 and stage "done" when it is baked. Cached and failed worlds
+        get none (on_world reports them). Local pools and Dask clusters alike: a Dask worker
+        sends its bake's progress as Dask events (Worker.log_event), which this client
+        subscribes to; a bake retried on another worker is reported from the highest
+        fraction already reached (fractions never go back).
     max_memory_bytes : a world whose estimated memory exceeds it is refused (reported failed,
         error_kind "refused"); default: the memory this machine has available now
     log : called with one-line notes (waiting for another farm, estimates of long work)
@@ -1043,6 +1193,14 @@ def farm(
         isinstance(max_memory_bytes, int) and max_memory_bytes > 0
     ):
         raise ValueError(f"max_memory_bytes: must be an integer > 0, got {max_memory_bytes!r}")
+    lod: dict[str, Any] = {
+        "levels": levels,
+        "ratio": ratio,
+        "chunk_level": chunk_level,
+        "seams": seams,
+        "collision": collision,
+    }
+    check_overrides(**lod)  # a value no world can bake with: nothing is written
     note = log or (lambda _msg: None)
     out = Path(outdir).resolve()
     inputs = collect_specs(specs, out)
@@ -1065,10 +1223,12 @@ def farm(
             scheduler=scheduler,
             tolerance_m=tolerance_m,
             offset=offset,
+            lod=lod,
             threads=threads,
             force=force,
             progress=progress,
             on_world=on_world,
+            on_progress=on_progress,
             limit=limit,
             note=note,
             t_start=t_start,
@@ -1084,10 +1244,12 @@ def _farm_locked(
     scheduler: str | None,
     tolerance_m: float | None,
     offset: str | None,
+    lod: dict[str, Any],
     threads: int | None,
     force: bool,
     progress: bool,
     on_world: OnWorld | None,
+    on_progress: OnProgress | None,
     limit: int | None,
     note: Callable[[str], None],
     t_start: float,
@@ -1142,7 +1304,7 @@ def _farm_locked(
             )
             continue
         try:
-            digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset)
+            digest = world_hash(spec, tolerance_m=tolerance_m, offset=offset, **lod)
         except Exception as exc:
             error = f"world spec {inp.source} cannot be hashed: {_error_text(exc)}"
             report(
@@ -1185,7 +1347,9 @@ def _farm_locked(
     accepted: list[tuple[int, WorldSpec, str]] = []
     for i, spec, digest in pending:
         try:
-            est = estimate_bake(spec, tolerance_m=tolerance_m, threads=bake_threads)
+            est = estimate_bake(
+                spec, tolerance_m=tolerance_m, threads=bake_threads, chunk_level=lod["chunk_level"]
+            )
             check_memory(est, limit)
         except MemoryLimitError as exc:
             outcome = WorldOutcome(
@@ -1226,6 +1390,7 @@ def _farm_locked(
                 "outdir": str(out),
                 "tolerance_m": tolerance_m,
                 "offset": offset,
+                "lod": lod,
                 "threads": bake_threads,
                 "globemill": __version__,
                 "need_bytes": estimates[i].output_bytes if i in estimates else 0,
@@ -1234,7 +1399,19 @@ def _farm_locked(
         for i, spec, digest in pending
     ]
 
+    names_of = {i: spec.name for i, spec, _ in pending}
+    reached: dict[int, float] = {}  # the fraction on_progress was last told, per world
+
+    def moved(i: int, fraction: float, stage: str, last: bool = False) -> None:
+        before = reached.get(i, -1.0)
+        if on_progress is None or (fraction <= before and not last):
+            return
+        reached[i] = max(fraction, before)
+        on_progress(WorldProgress(names_of[i], inputs[i].source, reached[i], stage))
+
     def tick(running: dict[int, tuple[float, str]]) -> None:
+        for i, (f, text) in sorted(running.items()):
+            moved(i, f, text)
         # finished worlds count whole, running ones by the share of their bake done
         if bar is None:
             return
@@ -1246,7 +1423,7 @@ def _farm_locked(
         bar.set_postfix_str(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
         bar.refresh()
 
-    names_of = {i: spec.name for i, spec, _ in pending}
+    ticking = tick if bar is not None or on_progress is not None else None
 
     def finish(job: _Job, res: dict[str, Any]) -> None:
         source = inputs[job.index].source
@@ -1297,6 +1474,7 @@ def _farm_locked(
         outcome.triangles = res["triangles"]
         outcome.collision_triangles = res["collision_triangles"]
         outcome.outputs = {k: v["name"] for k, v in files.items()}
+        moved(job.index, 1.0, "done", last=True)
         report(job.index, outcome)
 
     interrupted = False
@@ -1309,9 +1487,9 @@ def _farm_locked(
                 nonlocal workers
                 workers = n
 
-            _run_dask(jobs_list, scheduler, finish, connected)
+            _run_dask(jobs_list, scheduler, finish, connected, ticking)
         elif jobs_list and workers:
-            _run_local(jobs_list, workers, finish, tick if bar is not None else None)
+            _run_local(jobs_list, workers, finish, ticking)
     except KeyboardInterrupt:
         interrupted = True
         raise

@@ -27,6 +27,11 @@ STAGES: dict[str, tuple[float, str]] = {
 ORDER = list(STAGES)
 
 
+def bake_stages(collision: bool = True) -> list[str]:
+    """The stages a bake goes through, in order (without colliders: no "colliders" stage)."""
+    return [s for s in ORDER if collision or s != "colliders"]
+
+
 @dataclass
 class BakeProgress:
     """Turns (stage, done, total) reports into a fraction of the whole bake and a line of text.
@@ -60,8 +65,7 @@ class ProgressBar:
     def __init__(self, name: str, *, collision: bool = True, file: Any = None) -> None:
         from tqdm import tqdm
 
-        stages = [s for s in ORDER if collision or s != "colliders"]
-        self.progress = BakeProgress(stages)
+        self.progress = BakeProgress(bake_stages(collision))
         self.bar = tqdm(
             total=1000,
             desc=f"baking {name}",

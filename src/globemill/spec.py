@@ -170,6 +170,10 @@ SPEC_RULES: dict[str, Any] = json.loads(
 
 _SECTIONS: dict[str, dict[str, Any]] = SPEC_RULES["sections"]
 _KINDS: dict[str, dict[str, Any]] = {k["kind"]: k for k in SPEC_RULES["kinds"]}
+# the deprecation message of a renamed key, by its entry's convert ("rename": none)
+_RENAMED_MESSAGES: dict[str, str] = {
+    k: v for k, v in SPEC_RULES["renamed_messages"].items() if k != "doc"
+}
 LIMITS: dict[str, int] = dict(SPEC_RULES["limits"])
 """Reader limits shared with the C ABI: max_bytes, max_depth, max_values, max_problems."""
 
@@ -236,13 +240,19 @@ def _printable(text: str) -> str:
 
 
 def _path_key(key: str) -> str:
-    """A key as it appears in a problem path: as is, or quoted with \\uXXXX escapes when it holds
-    control characters, lone surrogates, quotes or backslashes (the C ABI writes the same)."""
+    """A key as it appears in a problem path: as is, or quoted (_quoted) when it holds control
+    characters, lone surrogates, quotes or backslashes (the C ABI writes the same)."""
     if not any(_is_control(c) or _is_surrogate(c) or c in '"\\' for c in key):
         return key
+    return _quoted(key)
+
+
+def _quoted(text: str) -> str:
+    """`text` in double quotes, with backslash and double quote escaped by a backslash and
+    control characters and lone surrogates as \\uXXXX (the C ABI's quote_text writes the same)."""
     out = "".join(
         f"\\u{ord(c):04x}" if _is_control(c) or _is_surrogate(c) else "\\" + c if c in '"\\' else c
-        for c in key
+        for c in text
     )
     return f'"{out}"'
 
@@ -1065,25 +1075,21 @@ def migrate_renamed(data: Mapping[str, Any]) -> tuple[dict[str, Any], list[str]]
             new_features.append(f)
             continue
         g = dict(f)
+        name = f.get("name")
+        what = f"features[{i}]" + (f" ({_quoted(name)})" if isinstance(name, str) and name else "")
         for rn in kind["renamed"]:
             old, new = rn["from"], rn["to"]
             if old not in g or new in g:
                 continue
             value = g.pop(old)
-            name = f.get("name")
-            what = f"features[{i}]" + (f" ({name!r})" if isinstance(name, str) else "")
-            if rn.get("convert") == "heading_to_bearing" and _is_number(value):
+            words = {"feature": what, "from": old, "to": new}
+            convert = rn.get("convert") or "rename"
+            if convert == "heading_to_bearing" and _is_number(value):
                 value = bearing_of_heading(float(value))
-                notes.append(
-                    f"{what}: heading_deg (counter-clockwise from east) is deprecated and will "
-                    f"not be read after this release; write bearing_deg = {_num(value)} "
-                    "(clockwise from north) instead"
-                )
+                words["value"] = _num(value)
             else:
-                notes.append(
-                    f"{what}: {old} is deprecated and will not be read after this release; "
-                    f"write {new} instead"
-                )
+                convert = "rename"  # not a number: nothing to convert (validation names it)
+            notes.append(_RENAMED_MESSAGES[convert].format(**words))
             g[new] = value
         new_features.append(g)
     out["features"] = new_features

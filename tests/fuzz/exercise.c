@@ -112,6 +112,30 @@ int gm_exercise(const char* text, size_t size, uint64_t max_triangles, int threa
         CHECK(s == GM_ERROR_INVALID_ARGUMENT);
     }
     {
+        /* deprecation messages: the size query, the full text (lines without empty ones), then
+         * a short buffer gets a NUL-terminated prefix cut at a character boundary */
+        size_t n = 1, again = 0, cut;
+        char* lines;
+        s = gm_world_warnings(NULL, 0, &n, world, &err);
+        check_error(s, &err);
+        CHECK(s == GM_OK);
+        lines = (char*)alloc(n + 1, 1);
+        s = gm_world_warnings(lines, n + 1, &again, world, &err);
+        check_error(s, &err);
+        CHECK(s == GM_OK && again == n && strlen(lines) == n);
+        CHECK(n == 0 || (lines[0] != '\n' && lines[n - 1] != '\n' && strstr(lines, "\n\n") == NULL));
+        CHECK(n == 0 || strstr(lines, " is deprecated and will not be read after this release") != NULL);
+        s = gm_world_warnings(small, sizeof small, &again, world, &err);
+        check_error(s, &err);
+        cut = strlen(small);
+        CHECK(s == GM_OK && again == n && cut < sizeof small && cut <= n);
+        CHECK(memcmp(small, lines, cut) == 0);
+        CHECK(cut == n || ((unsigned char)lines[cut] & 0xC0) != 0x80);
+        free(lines);
+        CHECK(gm_world_warnings(NULL, 1, &n, world, &err) == GM_ERROR_INVALID_ARGUMENT);
+        CHECK(gm_world_warnings(NULL, 0, &n, NULL, &err) == GM_ERROR_INVALID_ARGUMENT);
+    }
+    {
         gm_bake_options opt;
         gm_world_info wi;
         gm_world_get_info(&wi, world, NULL);
