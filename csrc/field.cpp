@@ -94,22 +94,23 @@ double perlin(const std::uint8_t* P, Vec3 q, Vec3* grad) {
     double b0 = a0 + v * (a1 - a0), b1 = a2 + v * (a3 - a2);
     double value = b0 + w * (b1 - b0);
     if constexpr (WithGrad) {
-        double du = dfade(x), dv = dfade(y), dw = dfade(z);
-        double wx[2] = {1 - u, u}, wy[2] = {1 - v, v}, wz[2] = {1 - w, w};
-        double dx[2] = {-du, du}, dy[2] = {-dv, dv}, dz[2] = {-dw, dw};
-        const Grad* G[2][2][2] = {{{&g000, &g001}, {&g010, &g011}}, {{&g100, &g101}, {&g110, &g111}}};
-        double N[2][2][2] = {{{n000, n001}, {n010, n011}}, {{n100, n101}, {n110, n111}}};
-        Vec3 g{};
-        for (int i = 0; i < 2; ++i)
-            for (int j = 0; j < 2; ++j)
-                for (int k = 0; k < 2; ++k) {
-                    double wt = wx[i] * wy[j] * wz[k], n = N[i][j][k];
-                    const Grad& c = *G[i][j][k];
-                    g.x += wt * c.x + dx[i] * wy[j] * wz[k] * n;
-                    g.y += wt * c.y + wx[i] * dy[j] * wz[k] * n;
-                    g.z += wt * c.z + wx[i] * wy[j] * dz[k] * n;
-                }
-        *grad = g;
+        // the derivative of the trilinear blend of n_ijk = g_ijk . (x - i, y - j, z - k): the corner
+        // gradients blended with the same weights, plus each weight's slope times the difference
+        // it blends (about half the work of summing the eight corners' terms)
+        const double du = dfade(x), dv = dfade(y), dw = dfade(z);
+        auto blend = [&](double c000, double c100, double c010, double c110, double c001, double c101,
+                         double c011, double c111) {
+            const double e0 = c000 + u * (c100 - c000), e1 = c010 + u * (c110 - c010);
+            const double e2 = c001 + u * (c101 - c001), e3 = c011 + u * (c111 - c011);
+            const double f0 = e0 + v * (e1 - e0), f1 = e2 + v * (e3 - e2);
+            return f0 + w * (f1 - f0);
+        };
+        const double ex0 = (n100 - n000) + v * ((n110 - n010) - (n100 - n000));
+        const double ex1 = (n101 - n001) + v * ((n111 - n011) - (n101 - n001));
+        const double ey0 = a1 - a0, ey1 = a3 - a2;
+        grad->x = blend(g000.x, g100.x, g010.x, g110.x, g001.x, g101.x, g011.x, g111.x) + du * (ex0 + w * (ex1 - ex0));
+        grad->y = blend(g000.y, g100.y, g010.y, g110.y, g001.y, g101.y, g011.y, g111.y) + dv * (ey0 + w * (ey1 - ey0));
+        grad->z = blend(g000.z, g100.z, g010.z, g110.z, g001.z, g101.z, g011.z, g111.z) + dw * (b1 - b0);
     }
     return value;
 }
