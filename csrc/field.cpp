@@ -485,6 +485,18 @@ void Field::contribution(const Feature& f, Vec3 u, bool want_grad, Contribution&
     }
 }
 
+double Field::max_change_over(std::size_t i, const Cap& cap) const {
+    const Feature& f = features_[i];
+    if (f.kind != Kind::Hill) return f.amp_m;
+    const double R = radius_, s = f.prm[1];
+    const double d = R * std::max(0.0, angle(cap.c, f.c) - cap.angle);
+    if (d >= 4 * s) return 0;
+    // the weight falls with the distance from the centre: its largest value is at the nearest
+    // point (rounded up by a part in 10^12, a margin for the cap's own rounding)
+    const double w = (std::exp(-d * d / (2 * s * s)) - kE4) / (1 - kE4);
+    return f.amp_m * std::min(1.0, w * (1 + 1e-12));
+}
+
 double Field::noise(const Feature& f, Vec3 u, Vec3* grad) const {
     const std::uint8_t* P = perms_[static_cast<std::size_t>(f.noise_table)].data();
     const double* p = f.prm;

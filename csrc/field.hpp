@@ -119,6 +119,12 @@ public:
     // a feature changes nothing that is computed beyond its reach.
     double reach_angle(std::size_t i) const;
 
+    // an upper bound on how much feature f changes H anywhere in `cap`: its amplitude (amp_m)
+    // times its largest weight there (a hill's Gaussian weight at the cap's nearest point to its
+    // centre; 1 for the other kinds). every blend moves H by the weight times a change within
+    // amp_m, so this bounds the feature's effect on the ground over the cap.
+    double max_change_over(std::size_t f, const Cap& cap) const;
+
     bool has_steps() const { return has_steps_; }
     // the features with creases (has_creases), ascending
     const std::vector<std::uint32_t>& crease_features() const { return creases_; }

@@ -182,10 +182,10 @@ double Refiner::critical_tolerance(const Node& t, float& fine) const {
     const double size = 2 * R * cap.angle;  // diameter of the footprint on the base sphere
     double tau = 0;
     // seeding. a feature narrower than the triangle can hide between the probes; the probes then
-    // look at the ground without it (`rest`), and its amplitude, the most it moves the ground
-    // (so the distance to it, every blend being 1-Lipschitz in the ground below), is added to
-    // what they see: a certified bound, so a feature whose whole amplitude fits in a level's
-    // tolerance forces no split there. noise octaves narrower than the triangle, and vertical
+    // look at the ground without it (`rest`), and the most it moves the ground over the
+    // triangle's footprint (Field::max_change_over; the distance to the ground moves no more,
+    // every blend being 1-Lipschitz in the ground below) is added to what they see: a certified
+    // bound, so a feature whose effect fits in a level's tolerance forces no split there. noise octaves narrower than the triangle, and vertical
     // walls crossing it, still set a floor on tau.
     thread_local std::vector<std::uint32_t> rest;
     rest.clear();
@@ -202,7 +202,7 @@ double Refiner::critical_tolerance(const Node& t, float& fine) const {
             continue;
         }
         if (f.scale_m < 0.5 * R * cap.angle)
-            hidden += f.amp_m;
+            hidden += F.max_change_over(list[i], cap);
         else
             rest.push_back(list[i]);
         // a vertical wall crossing the triangle: it must get narrower than two tolerances

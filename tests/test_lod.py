@@ -181,10 +181,12 @@ def test_spec_level_settings_are_validated() -> None:
 def test_features_within_a_level_tolerance_force_no_resolution_there() -> None:
     """400 hummocks 0.2-0.3 m tall, narrower than the coarse triangles, at 0.1/0.2/0.4/0.8 m.
 
-    A narrow feature is bounded at refinement by its amplitude (the probes see the ground without
-    it, its amplitude is added), so it is resolved only where that bound exceeds the level's
-    tolerance. Counts measured when this was written: 84,826 / 57,456 / 43,070 / 12,078 (the
-    0.4 m level kept 92 % of the 0.2 m level's triangles before). Every level stays within its
+    A narrow feature is bounded at refinement by the most it moves the ground over the triangle
+    (the probes see the ground without it, that bound is added), so it is resolved only where
+    the bound exceeds the level's tolerance. Counts measured when this was written: 81,114 /
+    42,892 / 26,830 / 9,908 (before: 84,826 / 57,456 / 52,616 / 7,728, the 0.4 m level keeping
+    92 % of the 0.2 m level's triangles and the 0.8 m level's report 0.715 m under an
+    independent 0.765 m). Every level stays within its
     tolerance by the independent measure (tests/independent_error.py).
     """
     from test_error_bound import _independent
@@ -192,7 +194,8 @@ def test_features_within_a_level_tolerance_force_no_resolution_there() -> None:
     spec = globemill.load_spec("tests/data/hummock_field.toml")
     result = globemill.bake(spec, collision=False)
     counts = [len(lv.triangles) for lv in result.levels]
-    assert counts[2] <= 0.8 * counts[1]
+    assert counts[1] <= 0.6 * counts[0]
+    assert counts[2] <= 0.7 * counts[1]
     assert counts[3] <= 0.55 * counts[2]
     for k, lv in enumerate(result.levels):
         assert _independent(spec, result.mesh(k)) <= lv.tolerance_m
