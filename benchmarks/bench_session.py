@@ -174,7 +174,7 @@ def _timed_moves(session: globemill.EditSession, i: int, rounds: int) -> tuple[l
         r = session.move_feature(i, (lat + step_lat * k, lon + step_lon * k))
         times.append(time.perf_counter() - t)
         fresh.append(r.tested - r.reused)
-    if rounds % 2:
+    if (rounds - 1) % 2:  # the last move went out: back to where the feature was
         session.move_feature(i, (lat, lon))
     return times, int(np.median(fresh))
 
