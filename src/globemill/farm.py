@@ -285,23 +285,18 @@ def bake_options(
     seams: str | None = None,
     collision: bool = True,
 ) -> dict[str, Any]:
-    """The options of a farm bake that change its output, resolved against the spec by the
-    bake's own settings (so an override equal to the spec's value hashes the same as no
-    override). Threads do not change it."""
-    from .bake import settings
-
-    s = settings(
-        spec,
-        tolerance_m=tolerance_m,
-        offset=offset,
-        levels=levels,
-        ratio=ratio,
-        chunk_level=chunk_level,
-        seams=seams,
-        collision=collision,
-    )
-    del s["threads"], s["accept_over_tolerance"]
-    return s
+    """The options of a farm bake that change its output, resolved against the spec (an override
+    equal to the spec's own value hashes the same as no override). Threads do not change it."""
+    lod = spec.lod
+    return {
+        "tolerance_m": float(spec.tolerance_m if tolerance_m is None else tolerance_m),
+        "offset": spec.offset if offset is None else offset,
+        "levels": int(lod.levels if levels is None else levels),
+        "ratio": float(lod.ratio if ratio is None else ratio),
+        "chunk_level": int(lod.chunk_level if chunk_level is None else chunk_level),
+        "seams": lod.seams if seams is None else seams,
+        "collision": bool(collision),
+    }
 
 
 def world_hash(spec: WorldSpec, **overrides: Any) -> str:
