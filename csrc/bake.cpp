@@ -243,6 +243,7 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
     r = BakeResult{};
     r.settings = settings;
     r.settings.progress = nullptr;
+    r.settings.on_estimate = nullptr;
     r.plan = std::move(plan0);
     const BakePlan& plan = r.plan;
     auto progress = [&](const char* stage, std::uint64_t done, std::uint64_t total) {
@@ -265,6 +266,7 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
         ro.verify_progress = [&](std::uint64_t done, std::uint64_t total) { progress(kStageVerify, done, total); };
     }
     const Hierarchy* previous = inc && inc->previous ? &inc->previous->hierarchy : nullptr;
+    if (settings.on_estimate && !previous) ro.estimated = settings.on_estimate;
     if (previous) {
         ro.previous = previous;
         ro.changed = inc->changed;

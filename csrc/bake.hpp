@@ -70,6 +70,9 @@ struct BakeSettings {
     // measured), levels and seams (levels done), chunks (levels whose chunk buffers are made),
     // colliders (0 then 1)
     std::function<void(const char*, std::uint64_t, std::uint64_t)> progress;
+    // called once on the calling thread with the budget survey's triangle estimate, before the
+    // refinement goes on; false stops the bake (Status::Stopped). Edits never call it.
+    std::function<bool(std::uint64_t)> on_estimate;
 };
 
 // the stages progress reports, in order

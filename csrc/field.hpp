@@ -64,6 +64,7 @@ enum class Status : int {
     NonFinite = 3,
     Internal = 4,
     ToleranceMissed = 5,  // a level measured beyond its tolerance (the mesher's size floor)
+    Stopped = 6,          // the caller stopped the bake (RefineOptions::estimated returned false)
 };
 
 class Field {

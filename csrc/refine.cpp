@@ -476,6 +476,10 @@ Status Refiner::run(RefineStats& stats, std::string& error) {
         error = budget_message("tolerance_m=" + num_text(tol) + " would need about", stats.estimate);
         return Status::BudgetExceeded;
     }
+    if (opt.estimated && !opt.estimated(stats.estimate)) {
+        error = "the bake was stopped after its estimate of " + with_commas(stats.estimate) + " triangles";
+        return Status::Stopped;
+    }
     // the real refinement goes on from the survey's leaves
     split_tol = tol;
     for (std::size_t i = 0; i < tris.size(); ++i)

@@ -44,6 +44,10 @@ struct RefineOptions {
     const Hierarchy* previous = nullptr;
     std::vector<Cap> changed;
     double changed_margin_m = 0;
+    // called once on the calling thread when the budget survey has made its estimate (and the
+    // budget holds), before the refinement goes on: false stops the build with Status::Stopped
+    // (a caller's memory or disk check takes the bake's own estimate instead of a second survey)
+    std::function<bool(std::uint64_t)> estimated;
     // estimate only: run the budget survey and stop (stats.estimate), at most survey_cap leaves
     bool survey_only = false;
     std::uint64_t survey_cap = 0;

@@ -13,6 +13,7 @@ Status EditSession::start(const Field& field, const BakeSettings& settings, std:
     if (st != Status::Ok) return st;
     settings_ = settings;
     settings_.progress = nullptr;
+    settings_.on_estimate = nullptr;
     field_ = std::make_shared<Field>(field);
     state_ = std::move(state);
     result_ = std::move(result);

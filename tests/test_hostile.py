@@ -28,12 +28,14 @@ import pytest
 from test_farm import without_timings
 
 from globemill import _atomic
+from globemill.bake import bake
 from globemill.cli import EXIT_BAD_INPUT, EXIT_IO, EXIT_OK, EXIT_REFUSED
 from globemill.cli import main as cli_main
 from globemill.farm import (
     LOCK_NAME,
     WORKERS_LOCK_NAME,
     estimate_bake,
+    estimate_from_triangles,
     farm,
 )
 from globemill.spec import load_spec
@@ -565,6 +567,59 @@ def test_a_bake_over_the_memory_limit_is_refused_before_it_starts(
     assert not list(out.glob("*.glb"))
     res = run("bake", str(refs["a"][0]), "-o", str(out), "--max-memory", "-3")
     assert res.returncode == EXIT_BAD_INPUT and "--max-memory" in res.stderr
+
+
+def test_a_bake_within_its_memory_takes_the_estimate_from_its_own_survey(
+    tmp_path: Path,
+    refs: dict[str, Any],
+    monkeypatch: pytest.MonkeyPatch,
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    # the budget survey is the refinement's first phase: when the spec's triangle budget fits
+    # in the memory limit, the CLI checks the bake's own estimate (on_estimate) and runs no
+    # second survey before it
+    from globemill import _core
+
+    farm_module = sys.modules["globemill.farm"]
+
+    calls: list[int] = []
+    real = _core.estimate_triangles
+
+    def counted(*a: Any, **k: Any) -> int:
+        calls.append(1)
+        return int(real(*a, **k))
+
+    monkeypatch.setattr(_core, "estimate_triangles", counted)
+    monkeypatch.setattr(farm_module, "LARGE_SECONDS", 0.0)  # every estimate is printed
+    spec_path = refs["a"][0]
+    spec = load_spec(spec_path)
+    code = cli_main(["bake", str(spec_path), "-o", str(tmp_path / "a"), "--max-memory", "1000"])
+    assert code == EXIT_OK
+    assert calls == []
+    seen: list[int] = []
+    bake(spec, on_estimate=seen.append)
+    assert len(seen) == 1 and calls == []
+    note = f"globemill: {estimate_from_triangles(spec, spec.tolerance_m, seen[0]).describe()}"
+    assert note in capsys.readouterr().err.splitlines()
+    # a limit below what the budget allows: the capped survey runs first and refuses (exit 5)
+    # before any bake; its estimate is the bake's
+    code = cli_main(["bake", str(spec_path), "-o", str(tmp_path / "b"), "--max-memory", "0.01"])
+    assert code == EXIT_REFUSED and calls == [1] and not (tmp_path / "b").exists()
+    assert estimate_bake(spec).triangles == seen[0]
+
+
+def test_an_exception_in_on_estimate_stops_the_bake(refs: dict[str, Any]) -> None:
+    spec = load_spec(refs["a"][0])
+
+    class Enough(Exception):
+        pass
+
+    def refuse(triangles: int) -> None:
+        raise Enough(triangles)
+
+    with pytest.raises(Enough) as info:
+        bake(spec, on_estimate=refuse)
+    assert info.value.args[0] == estimate_bake(spec).triangles
 
 
 def test_a_world_of_100000_features_shows_its_estimate_first(tmp_path: Path) -> None:

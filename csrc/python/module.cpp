@@ -372,9 +372,25 @@ void attach_progress(BakeSettings& s, ProgressFn& fn) {
     };
 }
 
-PyBake bake_py(const PyField& f, const py::dict& settings, ProgressFn progress) {
+using EstimateFn = std::function<void(std::uint64_t)>;
+
+PyBake bake_py(const PyField& f, const py::dict& settings, ProgressFn progress, EstimateFn on_estimate) {
     BakeSettings s = settings_from(settings);
     attach_progress(s, progress);
+    // the caller's check of the survey's estimate: an exception it raises stops the bake (no C++
+    // frame is unwound by it) and is raised again once the core has returned
+    std::unique_ptr<py::error_already_set> raised;
+    if (on_estimate)
+        s.on_estimate = [&on_estimate, &raised](std::uint64_t estimate) {
+            py::gil_scoped_acquire gil;
+            try {
+                on_estimate(estimate);
+                return true;
+            } catch (py::error_already_set& e) {
+                raised = std::make_unique<py::error_already_set>(std::move(e));
+                return false;
+            }
+        };
     auto r = std::make_shared<BakeResult>();
     std::string err;
     Status st;
@@ -382,6 +398,7 @@ PyBake bake_py(const PyField& f, const py::dict& settings, ProgressFn progress) 
         py::gil_scoped_release nogil;
         st = bake(f.field(), s, *r, err);
     }
+    if (raised) throw std::move(*raised);
     raise_status(st, err);
     return PyBake(std::move(r));
 }
@@ -567,6 +584,7 @@ PYBIND11_MODULE(_core, m) {
         "ValueError naming the setting and its range for a bad levels, ratio or chunk_level (None: not "
         "given), the very check the bake applies");
     m.def("bake", &bake_py, py::arg("field"), py::arg("settings"), py::arg("progress") = nullptr,
+          py::arg("on_estimate") = nullptr,
           "bake a world: every level, chunk, seam, attribute and collider, with the GIL released");
     py::class_<PyEditSession>(m, "EditSession")
         .def(py::init<const PyField&, const py::dict&>(), py::arg("field"), py::arg("settings"))

@@ -46,6 +46,7 @@ def bake(
     field: Field,
     settings: dict[str, Any],
     progress: Callable[[str, int, int], None] | None = None,
+    on_estimate: Callable[[int], None] | None = None,
 ) -> Bake: ...
 def surface_attributes(field: Field, directions: npt.ArrayLike) -> tuple[F64, F64, F64]: ...
 def assign_layers(

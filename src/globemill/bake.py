@@ -429,6 +429,7 @@ def bake(
     threads: int = 0,
     accept_over_tolerance: bool = False,
     progress: Progress | None = None,
+    on_estimate: Callable[[int], None] | None = None,
 ) -> BakeResult:
     """Mesh `spec` to within `tolerance_m` (default: the spec's) of the true surface, with every
     level of detail (tolerance_m * ratio^k), chunk, stitched seam and collider.
@@ -438,6 +439,9 @@ def bake(
 
     The result is deterministic: the same spec gives the same arrays whatever `threads` is.
     `progress(stage, done, total)` is called as the bake goes (see `Progress`).
+    `on_estimate(triangles)` is called once, on the calling thread, with the budget survey's
+    estimate of the finest level's triangles (the refinement's own first phase, so asking costs
+    nothing), before the refinement goes on: an exception it raises stops the bake and propagates.
     Raises ValueError for bad options or a feature too thin to mesh at the tolerance, and
     BakeError (a ValueError) when the bake cannot be done: a tolerance that would exceed
     `spec.max_triangles`, or a level measured beyond its tolerance (unless
@@ -456,7 +460,8 @@ def bake(
         accept_over_tolerance=accept_over_tolerance,
     )
     with named_features(spec), budget_named(spec):
-        return _wrap(spec, s, _core.bake(Field(spec)._core, s, _closing_refine(progress)))
+        core = _core.bake(Field(spec)._core, s, _closing_refine(progress), on_estimate)
+        return _wrap(spec, s, core)
 
 
 def _closing_refine(progress: Progress | None) -> Progress | None:

@@ -135,7 +135,7 @@ def _bake_spec(
     terminal."""
     from ._atomic import probe_folder
     from .bake import bake
-    from .farm import available_memory, check_memory, estimate_bake
+    from .farm import available_memory, check_memory, estimate_bake, estimate_from_triangles
     from .spec import load_spec
 
     overrides = lod_overrides(args)  # a bad flag is named before the spec is even read
@@ -151,21 +151,39 @@ def _bake_spec(
         raise ValueError(
             f"level: must be an integer in 0..{nlev - 1} ({where}), got {levels_needed}"
         )
+    # the estimate (printed when large, refused over the memory limit, the output folder's free
+    # space checked against it) is the bake's own budget survey, taken through on_estimate. only
+    # when the spec's triangle budget would allow a bake larger than the memory limit does a
+    # separate, capped survey run first, so that such a bake is refused before it starts
     est = None
     tol = spec.tolerance_m if args.tolerance_m is None else args.tolerance_m
-    if tol > 0:  # else the bake names the bad tolerance
-        est = estimate_bake(
-            spec,
-            tolerance_m=tol,
-            threads=max(0, args.threads),
-            chunk_level=overrides["chunk_level"],
-        )
-        if est.large and not args.quiet:
-            _note(est.describe())
-        limit = args.max_memory if args.max_memory is not None else available_memory()
-        check_memory(est, limit)
+    threads = max(0, args.threads)
+    limit = args.max_memory if args.max_memory is not None else available_memory()
+    if tol > 0 and limit is not None:  # else the bake names the bad tolerance
+        most = estimate_from_triangles(spec, tol, spec.max_triangles, threads=threads)
+        if most.memory_bytes > limit:
+            est = estimate_bake(
+                spec, tolerance_m=tol, threads=threads, chunk_level=overrides["chunk_level"]
+            )
+            if est.large and not args.quiet:
+                _note(est.describe())
+            check_memory(est, limit)
     if outdir is not None:
         probe_folder(outdir, est.output_bytes if est is not None else 0)
+
+    def on_estimate(triangles: int) -> None:
+        if est is not None:
+            return  # checked before the bake
+        e = estimate_from_triangles(spec, tol, triangles, threads=threads)
+        if e.large and not args.quiet:
+            if bar is not None:
+                bar.write(_printable(f"globemill: {e.describe()}", sys.stderr))
+            else:
+                _note(e.describe())
+        check_memory(e, limit)
+        if outdir is not None:
+            probe_folder(outdir, e.output_bytes)
+
     show = not args.quiet and sys.stderr.isatty()
     bar = None
     if show:
@@ -176,7 +194,7 @@ def _bake_spec(
     progress = bar
     ok = False
     try:
-        result = bake(spec, **bake_options(args), progress=progress)
+        result = bake(spec, **bake_options(args), progress=progress, on_estimate=on_estimate)
         ok = True
         return result
     finally:

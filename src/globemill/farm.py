@@ -403,7 +403,6 @@ def estimate_bake(
     tol = float(spec.tolerance_m if tolerance_m is None else tolerance_m)
     if not tol > 0:
         raise ValueError(f"tolerance_m: must be > 0, got {tol!r}")
-    nfeat = len(spec.features)
     tris = int(
         _core.estimate_triangles(
             Field(spec)._core,
@@ -414,7 +413,18 @@ def estimate_bake(
             threads=threads,
         )
     )
-    tris = min(tris, int(spec.max_triangles))  # the bake stops at its budget
+    return estimate_from_triangles(spec, tol, tris, threads=threads)
+
+
+def estimate_from_triangles(
+    spec: WorldSpec, tolerance_m: float, triangles: int, *, threads: int = 0
+) -> BakeEstimate:
+    """The memory, time and file size of a bake of `spec` at `tolerance_m` whose finest level
+    has about `triangles` (capped at the spec's budget, where the bake stops), as estimate_bake
+    gives them (for a count the caller has already, e.g. the bake's own survey)."""
+    tol = float(tolerance_m)
+    nfeat = len(spec.features)
+    tris = min(int(triangles), int(spec.max_triangles))  # the bake stops at its budget
     used = min(threads, _cores()) if threads > 0 else _cores()
     return BakeEstimate(
         world=spec.name,

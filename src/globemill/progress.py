@@ -80,5 +80,9 @@ class ProgressBar:
         self.bar.set_postfix_str(self.progress.text, refresh=False)
         self.bar.refresh()
 
+    def write(self, line: str) -> None:
+        """Print a line above the bar (the bar is drawn again below it)."""
+        self.bar.write(line, file=self.bar.fp)
+
     def close(self) -> None:
         self.bar.close()
