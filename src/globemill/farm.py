@@ -41,8 +41,10 @@
   counts finished worlds whole and running ones by their fraction, naming each running world's
   percentage and stage; ``on_progress`` gets the same as WorldProgress values.
 - Before the work: the output folder is probe-written (an unwritable one raises WriteError, and
-  each bake checks the free space against its estimated files before it starts), and each world's
-  time and memory are estimated from its spec (estimate_bake).
+  each bake checks the free space against its estimated files before it refines), and a world
+  whose triangle budget (`max_triangles`) could need more memory than the limit is estimated from
+  its spec (estimate_bake) and refused when over it; every other world takes its estimate from its
+  own bake's budget survey (`bake(on_estimate=)`), so no survey runs twice.
 - Ctrl-C (KeyboardInterrupt) stops cleanly: queued worlds are cancelled, local worker processes are
   terminated, finished worlds keep their outputs and cache records, temporary files of this run's
   worlds are removed, ``farm.json`` records the unfinished worlds as interrupted, and the
@@ -725,7 +727,15 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
 
         spec = parse_spec(task["spec"], source=task["source"])
         outdir = Path(task["outdir"])
-        probe_folder(outdir, int(task.get("need_bytes", 0)))  # a full disk before, not after
+        need = int(task.get("need_bytes", 0))
+        probe_folder(outdir, need)  # a full disk before, not after
+        tol = spec.tolerance_m if task["tolerance_m"] is None else task["tolerance_m"]
+
+        def on_estimate(triangles: int) -> None:
+            # no estimate before the bake: its own survey's, before the refinement goes on
+            if need == 0:
+                probe_folder(outdir, estimate_from_triangles(spec, tol, triangles).output_bytes)
+
         collision = bool(task["lod"]["collision"])
         progress = None
         if task.get("marker"):  # a local worker: beside its marker
@@ -739,6 +749,7 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
             **task["lod"],
             threads=task["threads"],
             progress=progress,
+            on_estimate=on_estimate,
         )
         with recorded() as sums:  # sizes and SHA-256 of the bytes as written
             paths = write_outputs(result, outdir, progress=progress)
@@ -1352,11 +1363,18 @@ def _farm_locked(
     several = backend == "dask" or min(jobs or _default_jobs(), len(pending)) > 1
     bake_threads = threads if threads is not None else (1 if several else 0)
 
-    # estimates first: a world that cannot fit is refused before anything bakes
+    # estimates first: a world that cannot fit is refused before anything bakes. a world whose
+    # triangle budget fits in the memory limit cannot exceed it: it runs no survey here, its bake
+    # checks the free space against its own survey's estimate (on_estimate, in _bake_task)
     estimates: dict[int, BakeEstimate] = {}
     accepted: list[tuple[int, WorldSpec, str]] = []
     for i, spec, digest in pending:
         try:
+            tol = spec.tolerance_m if tolerance_m is None else tolerance_m
+            most = estimate_from_triangles(spec, tol, spec.max_triangles, threads=bake_threads)
+            if limit is None or most.memory_bytes <= limit:
+                accepted.append((i, spec, digest))
+                continue
             est = estimate_bake(
                 spec, tolerance_m=tolerance_m, threads=bake_threads, chunk_level=lod["chunk_level"]
             )
