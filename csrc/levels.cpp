@@ -7,6 +7,7 @@
 #include "levels.hpp"
 
 #include <algorithm>
+#include <limits>
 
 #include "measure.hpp"
 
@@ -16,14 +17,13 @@ namespace {
 
 // add the nodes on the stack, and everything conforming bisection needs with them, to the split
 // set (every node taken off the stack, the starting ones too, is appended to `added` when given)
-void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& stack,
+void close_set(const LevelLinks& h, std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& stack,
                std::vector<std::uint32_t>* added = nullptr) {
     while (!stack.empty()) {
         const std::uint32_t x = stack.back();
         stack.pop_back();
         if (added) added->push_back(x);
-        const Node& n = h.nodes[x];
-        for (std::uint32_t y : {n.parent, n.pair}) {
+        for (std::uint32_t y : {h.parent[x], h.pair[x]}) {
             if (y != kNone && !in[y]) {
                 in[y] = 1;
                 stack.push_back(y);
@@ -35,19 +35,19 @@ void close_set(const Hierarchy& h, std::vector<std::uint8_t>& in, std::vector<st
 // the closure at tolerance eps, in one pass from the last node down (a parent comes before its
 // children, so it is reached after them); a pair already passed goes through close_set. 2 marks
 // nodes new to this level (the coarser level's set is closed already).
-void close_at(const Hierarchy& h, double eps, std::vector<std::uint8_t>& in) {
+void close_at(const LevelLinks& h, double eps, std::vector<std::uint8_t>& in) {
     std::vector<std::uint32_t> stack;
-    for (std::uint32_t i = static_cast<std::uint32_t>(h.nodes.size()); i-- > 0;) {
-        const Node& n = h.nodes[i];
+    for (std::uint32_t i = static_cast<std::uint32_t>(h.parent.size()); i-- > 0;) {
         if (!in[i]) {
-            if (n.child == kNone || !(n.level < h.min_level || n.tau > eps)) continue;
+            if (!(h.split_below[i] > eps)) continue;
             in[i] = 2;
         }
         if (in[i] != 2) continue;
-        if (n.parent != kNone && !in[n.parent]) in[n.parent] = 2;
-        if (n.pair != kNone && !in[n.pair]) {
-            in[n.pair] = 2;
-            if (n.pair > i) stack.push_back(n.pair);
+        const std::uint32_t parent = h.parent[i], pair = h.pair[i];
+        if (parent != kNone && !in[parent]) in[parent] = 2;
+        if (pair != kNone && !in[pair]) {
+            in[pair] = 2;
+            if (pair > i) stack.push_back(pair);
         }
     }
     close_set(h, in, stack);
@@ -55,11 +55,11 @@ void close_at(const Hierarchy& h, double eps, std::vector<std::uint8_t>& in) {
 }
 
 // the leaves of a split set, in node order
-void leaves_of(const Hierarchy& h, const std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& out) {
+void leaves_of(const LevelLinks& h, const std::vector<std::uint8_t>& in, std::vector<std::uint32_t>& out) {
     out.clear();
-    for (std::uint32_t i = 0; i < h.nodes.size(); ++i) {
-        const Node& n = h.nodes[i];
-        if (!in[i] && (n.parent == kNone || in[n.parent])) out.push_back(i);
+    for (std::uint32_t i = 0; i < h.parent.size(); ++i) {
+        const std::uint32_t parent = h.parent[i];
+        if (!in[i] && (parent == kNone || in[parent])) out.push_back(i);
     }
 }
 
@@ -87,16 +87,19 @@ Measured measured_at(const Hierarchy& h, const Node& t, int order, double spacin
 // measured once per order, in a bake and across the edits of a session. each value is a function
 // of the node and the order alone (err = max(m2s, s2m) exactly, float rounding being monotonic),
 // so which slot holds it does not matter and an edit that keeps a node keeps its numbers
+// (errs[k]: node ids[k]'s deviation at this level, measured now or before)
 void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& ids, int order,
-                   double spacing, int threads) {
+                   double spacing, int threads, std::vector<float>& errs) {
+    errs.resize(ids.size());
     parallel_for(ids.size(), threads, [&](std::size_t b, std::size_t e) {
         for (std::size_t k = b; k < e; ++k) {
             Node& t = h.nodes[ids[k]];
-            if (measured_at(h, t, order, spacing).err >= 0) continue;
+            if ((errs[k] = measured_at(h, t, order, spacing).err) >= 0) continue;
             const int need = level_order(h, t, order, spacing);
             double m2s, s2m;
             const double w =
                 triangle_deviation(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]), need, m2s, s2m);
+            errs[k] = static_cast<float>(w);
             if (t.err < 0) {
                 t.err = static_cast<float>(w);
                 t.err_order = static_cast<std::uint8_t>(need);
@@ -116,26 +119,27 @@ void measure_nodes(const Field& field, Hierarchy& h, const std::vector<std::uint
 }
 
 // verification: first every leaf, then the new leaves under the nodes each repair adds
-void verify_and_repair(const Field& field, Hierarchy& h, int verify_order, int threads,
-                       std::vector<std::uint8_t>& in, Level& lv) {
+void verify_and_repair(const Field& field, Hierarchy& h, const LevelLinks& links, int verify_order,
+                       int threads, std::vector<std::uint8_t>& in, Level& lv) {
     const double eps = lv.tolerance_m;
     std::vector<std::uint32_t> check, added, stack;
-    leaves_of(h, in, check);
+    std::vector<float> errs;
+    leaves_of(links, in, check);
     // the detail a level must resolve is what its own tolerance sees (docs/meshing.md)
     const double spacing = verify_spacing(field, eps);
     while (verify_order > 0 && !check.empty()) {
-        measure_nodes(field, h, check, verify_order, spacing, threads);
-        for (std::uint32_t id : check) {
+        measure_nodes(field, h, check, verify_order, spacing, threads, errs);
+        for (std::size_t k = 0; k < check.size(); ++k) {
+            const std::uint32_t id = check[k];
             const Node& t = h.nodes[id];
-            const float err = measured_at(h, t, verify_order, spacing).err;
-            if (err > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
+            if (errs[k] > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
                 in[id] = 1;
                 stack.push_back(id);
                 ++lv.repaired;
             }
         }
         added.clear();
-        close_set(h, in, stack, &added);
+        close_set(links, in, stack, &added);
         check.clear();
         for (std::uint32_t x : added) {
             const std::uint32_t c = h.nodes[x].child;
@@ -157,6 +161,8 @@ void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& lea
     for (std::uint32_t id : leaves) order[first[h.nodes[id].chunk]++] = id;
     lv.present.assign(h.dir.size(), 0);
     lv.triangles.reserve(order.size() * 3);
+    lv.chunk.reserve(order.size());
+    lv.errors.reserve(order.size());
     for (std::uint32_t id : order) {
         const Node& t = h.nodes[id];
         const Measured m = verify_order > 0 ? measured_at(h, t, verify_order, spacing)
@@ -173,12 +179,28 @@ void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& lea
 
 }  // namespace
 
-void cut_level(const Field& field, Hierarchy& h, int verify_order, int threads, std::vector<std::uint8_t>& split,
-               Level& lv) {
-    close_at(h, lv.tolerance_m, split);
-    verify_and_repair(field, h, verify_order, threads, split, lv);
+LevelLinks level_links(const Hierarchy& h) {
+    LevelLinks l;
+    const std::size_t n = h.nodes.size();
+    l.parent.resize(n);
+    l.pair.resize(n);
+    l.split_below.resize(n);
+    const double inf = std::numeric_limits<double>::infinity();
+    for (std::size_t i = 0; i < n; ++i) {
+        const Node& t = h.nodes[i];
+        l.parent[i] = t.parent;
+        l.pair[i] = t.pair;
+        l.split_below[i] = t.child == kNone ? -inf : (t.level < h.min_level ? inf : t.tau);
+    }
+    return l;
+}
+
+void cut_level(const Field& field, Hierarchy& h, const LevelLinks& links, int verify_order, int threads,
+               std::vector<std::uint8_t>& split, Level& lv) {
+    close_at(links, lv.tolerance_m, split);
+    verify_and_repair(field, h, links, verify_order, threads, split, lv);
     std::vector<std::uint32_t> leaves;
-    leaves_of(h, split, leaves);
+    leaves_of(links, split, leaves);
     collect_triangles(h, leaves, verify_order, verify_spacing(field, lv.tolerance_m), lv);
 }
 

@@ -40,12 +40,17 @@ Status extract_levels(const Field& field, Hierarchy& h, const std::vector<double
     levels.assign(L, Level{});
     // coarse to fine: each level starts from the coarser one's split set, so levels nest
     std::vector<std::uint8_t> split(h.nodes.size(), 0);
-    for (std::size_t li = L; li-- > 0;) {
-        const auto t = Clock::now();
-        levels[li].tolerance_m = tolerances[li];
-        cut_level(field, h, verify_order, threads, split, levels[li]);
-        levels[li].seconds += since(t);
-        report("levels", L - li, L);
+    {
+        const auto t0 = Clock::now();
+        const LevelLinks links = level_links(h);
+        levels[L - 1].seconds += since(t0);  // counted with the coarsest level, cut first
+        for (std::size_t li = L; li-- > 0;) {
+            const auto t = Clock::now();
+            levels[li].tolerance_m = tolerances[li];
+            cut_level(field, h, links, verify_order, threads, split, levels[li]);
+            levels[li].seconds += since(t);
+            report("levels", L - li, L);
+        }
     }
     for (std::size_t li = 0; li < L; ++li) {
         const auto t = Clock::now();
