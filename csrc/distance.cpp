@@ -2,6 +2,7 @@
 // closest point on a triangle: Ericson, "Real-Time Collision Detection" (2005), section 5.1.5.
 #include "distance.hpp"
 
+#include <algorithm>
 #include <cmath>
 
 namespace gm {
@@ -77,6 +78,77 @@ double project_distance(const Field& field, Vec3 p, const std::uint32_t* list, s
         u = normalize(u + s1 * e1 + s2 * e2);
     }
     return best;
+}
+
+double project_safeguarded(const Field& field, Vec3 p, double trust_m, int iterations, double xtol_m,
+                           const Vec3* start) {
+    const double R = field.radius();
+    Vec3 u = start ? normalize(*start) : normalize(p), g;
+    double H = field.eval(u, &g);
+    double d = norm((R + H) * u - p);
+    double trust = trust_m;
+    for (int it = 0; it < iterations && d > 0 && trust >= xtol_m; ++it) {
+        const double rho = R + H;
+        Vec3 a = std::fabs(u.x) < 0.9 ? Vec3{1, 0, 0} : Vec3{0, 1, 0};
+        const Vec3 e1 = normalize(a - dot(a, u) * u), e2 = cross(u, e1);
+        const Vec3 res = rho * u - p;
+        const Vec3 j1 = rho * e1 + dot(g, e1) * u, j2 = rho * e2 + dot(g, e2) * u;
+        const double a11 = dot(j1, j1), a12 = dot(j1, j2), a22 = dot(j2, j2);
+        const double b1 = -dot(j1, res), b2 = -dot(j2, res);
+        const double det = a11 * a22 - a12 * a12;
+        double s1, s2;
+        if (det > 1e-12 * a11 * a22) {
+            s1 = (b1 * a22 - b2 * a12) / det;
+            s2 = (a11 * b2 - a12 * b1) / det;
+        } else {  // a singular model: steepest descent instead
+            s1 = b1 / a11;
+            s2 = b2 / a22;
+        }
+        const double length = rho * std::sqrt(s1 * s1 + s2 * s2);
+        const double scale = std::min(1.0, trust / std::max(length, 1e-300));
+        const Vec3 un = normalize(u + (s1 * scale) * e1 + (s2 * scale) * e2);
+        Vec3 gn;
+        const double Hn = field.eval(un, &gn);
+        const double dn = norm((R + Hn) * un - p);
+        const double taken = length * scale;
+        if (dn < d) {
+            u = un;
+            H = Hn;
+            g = gn;
+            d = dn;
+            trust = 2 * taken;
+            if (taken < xtol_m) break;
+        } else {
+            trust = 0.5 * taken;
+        }
+    }
+    return d;
+}
+
+double cap_distance(const Field& field, Vec3 p, double upper, int grid) {
+    const double pn = norm(p);
+    if (!(pn > 0) || !(upper > 0) || grid < 2) return upper;
+    const Vec3 pu = (1.0 / pn) * p;
+    Vec3 a = std::fabs(pu.x) < 0.9 ? Vec3{1, 0, 0} : Vec3{0, 1, 0};
+    const Vec3 e1 = normalize(a - dot(a, pu) * pu), e2 = cross(pu, e1);
+    const double half = std::tan(std::asin(std::min(upper / pn, 0.99)));
+    const double R = field.radius();
+    double best = upper;
+    Vec3 best_u = pu;
+    for (int i = 0; i < grid; ++i)
+        for (int j = 0; j < grid; ++j) {
+            const double x = half * (-1.0 + 2.0 * i / (grid - 1)), y = half * (-1.0 + 2.0 * j / (grid - 1));
+            const Vec3 u = normalize(pu + x * e1 + y * e2);
+            const double d = norm((R + field.eval(u, nullptr)) * u - p);
+            if (d < best) {
+                best = d;
+                best_u = u;
+            }
+        }
+    // from the best node: the safeguarded projection of p, started there (a point on the ray
+    // through it at p's radius), with a trust radius of two grid steps
+    const double step = 2.0 * half * pn / (grid - 1);
+    return std::min(best, project_safeguarded(field, p, 2 * step, 20, 1e-6, &best_u));
 }
 
 }  // namespace gm

@@ -23,4 +23,20 @@ bool ray_hits_triangle(Vec3 u, Vec3 a, Vec3 b, Vec3 c, Vec3& p, double eps = 1e-
 double project_distance(const Field& field, Vec3 p, const std::uint32_t* list, std::size_t count,
                         int iterations);
 
+// distance from p to the surface by a safeguarded Gauss-Newton method on the direction (a trust
+// region, Nocedal & Wright, "Numerical Optimization", ch. 4 and 10), from p's own direction: a
+// step is taken only when the ground point comes closer, else the trust radius halves, so steep
+// flanks, sharp crests and steps only shrink the step. every iterate is a ground point, so the
+// result is an upper bound of the true distance (a local minimum, not always the global one).
+// `start`: the direction to start from instead.
+double project_safeguarded(const Field& field, Vec3 p, double trust_m, int iterations, double xtol_m,
+                           const Vec3* start = nullptr);
+
+// the nearest ground point to p lies within `upper` of it, so its direction lies in the cap of
+// angular radius asin(upper / |p|) around p/|p|: a grid x grid gnomonic grid of directions
+// over that cap, then the safeguarded projection from the best node (trust radius two grid
+// steps). min(upper, the distance found): an upper bound of the true distance that a local
+// projection's wrong basin (a wall beside a point that projects onto the ground) does not fool.
+double cap_distance(const Field& field, Vec3 p, double upper, int grid);
+
 }  // namespace gm

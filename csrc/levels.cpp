@@ -10,6 +10,7 @@
 #include <limits>
 
 #include "measure.hpp"
+#include "refine.hpp"
 
 namespace gm {
 
@@ -82,6 +83,10 @@ Measured measured_at(const Hierarchy& h, const Node& t, int order, double spacin
     return {};
 }
 
+float loose_err(const Hierarchy& h, const Node& t, int order, double spacing) {
+    return measured_at(h, t, order, spacing).err;
+}
+
 // measure the nodes not measured yet at this level's sampling. a node keeps up to 1 + kAltSlots
 // measurements (at as many sampling orders) so that one that is a leaf of several levels is
 // measured once per order, in a bake and across the edits of a session. each value is a function
@@ -132,7 +137,9 @@ void verify_and_repair(const Field& field, Hierarchy& h, const LevelLinks& links
         for (std::size_t k = 0; k < check.size(); ++k) {
             const std::uint32_t id = check[k];
             const Node& t = h.nodes[id];
-            if (errs[k] > kVerifyMargin * eps && t.child != kNone && !at_floor(h, t, eps)) {
+            const float err = errs[k];
+            if (err > kVerifyMargin * eps / kWallSlack && t.child != kNone && !at_floor(h, t, eps) &&
+                err > verify_limit(field, h, t, eps)) {
                 in[id] = 1;
                 stack.push_back(id);
                 ++lv.repaired;
@@ -153,8 +160,10 @@ void verify_and_repair(const Field& field, Hierarchy& h, const LevelLinks& links
 
 // the leaves as the level's triangles, grouped by chunk, in node order within a chunk (a
 // counting sort)
-void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& leaves, int verify_order, double spacing,
-                       Level& lv) {
+void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& leaves,
+                       const std::vector<std::uint8_t>& tight, int verify_order, double spacing, Level& lv) {
+    std::vector<std::uint8_t> is_tight(h.nodes.size(), 0);
+    for (std::size_t i = 0; i < leaves.size(); ++i) is_tight[leaves[i]] = tight.empty() ? 0 : tight[i];
     std::vector<std::uint32_t> first(static_cast<std::size_t>(h.chunks) + 1, 0), order(leaves.size());
     for (std::uint32_t id : leaves) ++first[h.nodes[id].chunk + 1];
     for (std::size_t c = 0; c < h.chunks; ++c) first[c + 1] += first[c];
@@ -165,8 +174,8 @@ void collect_triangles(const Hierarchy& h, const std::vector<std::uint32_t>& lea
     lv.errors.reserve(order.size());
     for (std::uint32_t id : order) {
         const Node& t = h.nodes[id];
-        const Measured m = verify_order > 0 ? measured_at(h, t, verify_order, spacing)
-                                            : Measured{t.err, t.m2s, t.s2m};
+        Measured m = verify_order > 0 ? measured_at(h, t, verify_order, spacing) : Measured{t.err, t.m2s, t.s2m};
+        if (is_tight[id]) m = {std::max(t.tight_m2s, t.tight_s2m), t.tight_m2s, t.tight_s2m};
         lv.triangles.insert(lv.triangles.end(), {t.v[0], t.v[1], t.v[2]});
         lv.chunk.push_back(t.chunk);
         lv.errors.push_back(m.err);
@@ -198,10 +207,32 @@ LevelLinks level_links(const Hierarchy& h) {
 void cut_level(const Field& field, Hierarchy& h, const LevelLinks& links, int verify_order, int threads,
                std::vector<std::uint8_t>& split, Level& lv) {
     close_at(links, lv.tolerance_m, split);
-    verify_and_repair(field, h, links, verify_order, threads, split, lv);
-    std::vector<std::uint32_t> leaves;
-    leaves_of(links, split, leaves);
-    collect_triangles(h, leaves, verify_order, verify_spacing(field, lv.tolerance_m), lv);
+    const double eps = lv.tolerance_m, spacing = verify_spacing(field, eps);
+    std::vector<std::uint32_t> leaves, stack;
+    std::vector<std::uint8_t> tight;
+    std::vector<float> loose;
+    for (;;) {
+        verify_and_repair(field, h, links, verify_order, threads, split, lv);
+        leaves_of(links, split, leaves);
+        loose.resize(leaves.size());
+        for (std::size_t i = 0; i < leaves.size(); ++i) loose[i] = loose_err(h, h.nodes[leaves[i]], verify_order, spacing);
+        if (verify_order > 0) publish_tight(field, h, leaves, loose, threads, tight);
+        else tight.assign(leaves.size(), 0);
+        // a leaf whose tight figure is beyond kTightLimit of the tolerance is split too, and
+        // the new leaves verified in turn
+        for (std::size_t i = 0; i < leaves.size(); ++i) {
+            const std::uint32_t id = leaves[i];
+            const Node& t = h.nodes[id];
+            if (!tight[i] || !(std::max(t.tight_m2s, t.tight_s2m) > kTightLimit * eps)) continue;
+            if (t.child == kNone || at_floor(h, t, eps)) continue;
+            split[id] = 1;
+            stack.push_back(id);
+            ++lv.repaired;
+        }
+        if (stack.empty()) break;
+        close_set(links, split, stack);
+    }
+    collect_triangles(h, leaves, tight, verify_order, spacing, lv);
 }
 
 }  // namespace gm

@@ -9,6 +9,7 @@
 #include "refine.hpp"
 
 #include "measure.hpp"
+#include "tight.hpp"
 
 #include <algorithm>
 #include <atomic>
@@ -140,7 +141,7 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     const Node& o = opt.previous->nodes[old];
     // the field is read inside the node's cap and, by projections onto the ground, up to about
     // its measured deviation beyond it
-    float err = std::max(0.0f, o.err);
+    float err = std::max({0.0f, o.err, o.tight_m2s, o.tight_s2m});
     for (int k = 0; k < kAltSlots; ++k)
         if (o.alt_order[k]) err = std::max({err, o.alt_m2s[k], o.alt_s2m[k]});
     const double reach = 2 * cap.angle + (opt.changed_margin_m + 2 * err + 2 * o.tau) / R;
@@ -150,6 +151,8 @@ void Refiner::adopt(std::uint32_t id, std::uint32_t old, const Cap& cap) {
     }
     reuse[id] = 1;
     if (!std::isnan(o.mid_r)) t.mid_r = o.mid_r;
+    t.tight_m2s = o.tight_m2s;
+    t.tight_s2m = o.tight_s2m;
     if (o.err >= 0) {
         t.err = o.err;
         t.err_order = o.err_order;
@@ -646,6 +649,10 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
     // on the slicing: each triangle is measured on its own)
     constexpr std::size_t kSlice = 1u << 15;
     std::uint64_t measured = 0, to_measure = check.size();
+    std::vector<std::uint32_t> leaves_now;
+    std::vector<float> loose;
+    std::vector<std::uint8_t> tight;
+    for (;;) {
     while (!check.empty()) {
         bad.assign(check.size(), 0);
         for (std::size_t s0 = 0; s0 < check.size(); s0 += kSlice) {
@@ -671,7 +678,7 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
                         t.m2s = static_cast<float>(m2s);
                         t.s2m = static_cast<float>(s2m);
                     }
-                    if (t.err > kVerifyMargin * tol && !at_floor(h, t, tol)) {
+                    if (t.err > kVerifyMargin * tol / kWallSlack && !at_floor(h, t, tol) && t.err > verify_limit(F, h, t, tol)) {
                         bad[i] = 1;
                         if (std::isnan(t.mid_r)) t.mid_r = midpoint_radius(t);
                     }
@@ -694,6 +701,33 @@ Status Refiner::verify(RefineStats& stats, std::string& error) {
         for (std::size_t i = first_new; i < tris.size(); ++i)
             if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
         to_measure += check.size();
+    }
+    // the leaves that can hold the largest deviation, measured tight: one beyond kTightLimit of
+    // the tolerance is split too, and the new leaves verified in turn
+    leaves_now.clear();
+    loose.clear();
+    for (std::size_t i = 0; i < tris.size(); ++i)
+        if (tris[i].child == kNone) {
+            leaves_now.push_back(static_cast<std::uint32_t>(i));
+            loose.push_back(tris[i].err);
+        }
+    publish_tight(F, h, leaves_now, loose, opt.threads, tight);
+    const std::size_t first_new = tris.size();
+    for (std::size_t i = 0; i < leaves_now.size(); ++i) {
+        const Node& t = tris[leaves_now[i]];
+        if (!tight[i] || !(std::max(t.tight_m2s, t.tight_s2m) > kTightLimit * tol) || at_floor(h, t, tol)) continue;
+        if (std::isnan(tris[leaves_now[i]].mid_r)) tris[leaves_now[i]].mid_r = midpoint_radius(tris[leaves_now[i]]);
+        split(leaves_now[i]);
+        ++stats.repaired;
+        if (leaves > opt.max_triangles) {
+            error = budget_message("tolerance_m=" + num_text(tol) + " (after verification) needs more than", leaves);
+            return Status::BudgetExceeded;
+        }
+    }
+    for (std::size_t i = first_new; i < tris.size(); ++i)
+        if (tris[i].child == kNone) check.push_back(static_cast<std::uint32_t>(i));
+    if (check.empty()) break;
+    to_measure += check.size();
     }
     return Status::Ok;
 }
@@ -802,6 +836,78 @@ Cap node_cap(const Hierarchy& h, const Node& t) {
 // only the footprint counts: across a vertical wall the 3d edges stay as tall as the wall.
 bool at_floor(const Hierarchy& h, const Node& t, double tol) {
     return t.level >= kMaxLevel || 2 * h.radius * node_cap(h, t).angle < tol / 8;
+}
+
+bool near_wall(const Field& field, Vec3 a, Vec3 b, Vec3 c) {
+    if (!field.has_steps()) return false;
+    const Vec3 m = (1.0 / 3.0) * (a + b + c);
+    const double r = std::max({norm(a - m), norm(b - m), norm(c - m)});
+    return field.wall_distance(m) <= 1.5 * r;
+}
+
+double verify_limit(const Field& field, const Hierarchy& h, const Node& t, double tol) {
+    const double limit = kVerifyMargin * tol;
+    return near_wall(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2])) ? limit / kWallSlack : limit;
+}
+
+void tight_of(const Field& field, const Hierarchy& h, Node& t) {
+    if (t.tight_m2s >= 0) return;
+    const Vec3 a = h.pos(t.v[0]), b = h.pos(t.v[1]), c = h.pos(t.v[2]);
+    double m2s, s2m;
+    tight_deviation(field, a, b, c, verify_spacing(field, h.tolerance), m2s, s2m, !near_wall(field, a, b, c));
+    t.tight_m2s = static_cast<float>(m2s);
+    t.tight_s2m = static_cast<float>(s2m);
+}
+
+// the published figures. the verification's grid falls short of a triangle's peak where the
+// distance has a kink between samples (a wall's top and foot, a crease, a blend changing sides);
+// tight_deviation searches it out, on the leaves that can hold the largest: by decreasing loose
+// figure times kGridSlack (kWallSlack beside a wall), in batches of kTightBatch (a fixed size:
+// which leaves are measured does not depend on the threads), until no leaf left could pass the
+// largest tight figure so far.
+double publish_tight(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& leaves,
+                     const std::vector<float>& loose, int threads, std::vector<std::uint8_t>& tight) {
+    tight.assign(leaves.size(), 0);
+    if (leaves.empty()) return 0;
+    float most = 0;
+    for (float x : loose) most = std::max(most, x);
+    // the leaves that could matter at all: the largest tight figure is about the largest loose
+    // one or more (less only where a loose figure's projection fell into the wrong basin: then
+    // the walk runs again over every leaf)
+    std::vector<std::pair<double, std::uint32_t>> pot;
+    std::vector<std::uint32_t> batch;
+    double best = 0;
+    for (double floor_pot : {0.9 * static_cast<double>(most), 0.0}) {
+        pot.clear();
+        for (std::size_t i = 0; i < leaves.size(); ++i) {
+            if (!(loose[i] * kWallSlack > floor_pot)) continue;
+            const Node& t = h.nodes[leaves[i]];
+            const bool wall = near_wall(field, h.pos(t.v[0]), h.pos(t.v[1]), h.pos(t.v[2]));
+            const double p = loose[i] * (wall ? kWallSlack : kGridSlack);
+            if (p > floor_pot) pot.push_back({p, static_cast<std::uint32_t>(i)});
+        }
+        std::sort(pot.begin(), pot.end(),
+                  [](const std::pair<double, std::uint32_t>& a, const std::pair<double, std::uint32_t>& b) {
+                      return a.first > b.first || (a.first == b.first && a.second < b.second);
+                  });
+        std::fill(tight.begin(), tight.end(), 0);
+        best = 0;
+        for (std::size_t next = 0; next < pot.size() && pot[next].first > best;) {
+            batch.clear();
+            while (next < pot.size() && batch.size() < kTightBatch && pot[next].first > best)
+                batch.push_back(pot[next++].second);
+            parallel_for(batch.size(), threads, [&](std::size_t b, std::size_t e) {
+                for (std::size_t k = b; k < e; ++k) tight_of(field, h, h.nodes[leaves[batch[k]]]);
+            }, 1);
+            for (std::uint32_t i : batch) {
+                const Node& t = h.nodes[leaves[i]];
+                tight[i] = 1;
+                best = std::max(best, static_cast<double>(std::max(t.tight_m2s, t.tight_s2m)));
+            }
+        }
+        if (best >= floor_pot) break;
+    }
+    return best;
 }
 
 Status build_hierarchy(const Field& field, const RefineOptions& options, Hierarchy& h,

@@ -15,6 +15,22 @@ constexpr std::uint32_t kNone = 0xFFFFFFFFu;
 // verification repairs triangles measured beyond this share of their tolerance: samples are
 // dense but the deviation can still peak between them
 constexpr double kVerifyMargin = 0.9;
+// beside a vertical wall the distance from the mesh to the ground has a kink at the wall's top
+// and foot, which a triangle can cross between samples anywhere: its peak lies between them and
+// the grid falls short of it by up to about a third (tight/grid at most 1.51 over the triangles
+// of examples/pebblemoor.toml at 1 m, 2 m and 4 m measured by tight_deviation, docs/meshing.md).
+// a triangle near a wall (near_wall) must measure within the margin divided by this
+constexpr double kWallSlack = 1.6;
+// a leaf of a level whose tight figure (tight_deviation) is beyond this share of the level's
+// tolerance is split as well: the tight figure is what the report publishes
+constexpr double kTightLimit = 0.97;
+// tight / grid over the triangles of examples/pebblemoor.toml at 1, 2 and 4 m away from walls:
+// 1.2 at the 99.9th percentile, 1.24 at most (docs/meshing.md). a leaf whose loose figure times
+// this is below the largest tight figure so far is not measured tight (the cost: about 1,800
+// leaves of the demo's 819,000 at 0.5 m); a rare leaf beyond the percentile can be missed
+constexpr double kGridSlack = 1.2;
+// leaves measured tight together (a fixed size: which are measured does not depend on threads)
+constexpr std::size_t kTightBatch = 64;
 
 struct Hierarchy;
 
@@ -93,6 +109,9 @@ struct Node {
     // follows it down to the finest tolerance, since it does not shrink with the node's area
     float tau_fine = 0;
     float alt_m2s[kAltSlots] = {}, alt_s2m[kAltSlots] = {};
+    // the tight figures once measured (tight_deviation; -1: not yet), for the leaves that can
+    // hold a level's largest deviation
+    float tight_m2s = -1, tight_s2m = -1;
 };
 
 // the whole bisection hierarchy; every level of detail is a set of its nodes
@@ -162,5 +181,25 @@ void edit_caps(const Field& before, const Field& after, double tolerance_m, std:
 // a node's footprint cap and the size floor shared by refinement and level extraction
 Cap node_cap(const Hierarchy& h, const Node& t);
 bool at_floor(const Hierarchy& h, const Node& t, double tolerance_m);
+
+// is a vertical wall near the triangle (a wall point within 1.5 times its bounding radius of its
+// centroid, Field::wall_distance)? a function of the corners and the field alone
+bool near_wall(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2);
+
+// the largest measured deviation verification accepts for node t at tolerance_m (beyond it the
+// node is split unless at the size floor): kVerifyMargin of it, divided by kWallSlack near a wall
+double verify_limit(const Field& field, const Hierarchy& h, const Node& t, double tolerance_m);
+
+// node t's tight figures (tight_deviation at the verification spacing of the hierarchy's own
+// tolerance; surface -> mesh not searched beside a wall), measured once and kept in the node:
+// a function of the node's corners and the field alone
+void tight_of(const Field& field, const Hierarchy& h, Node& t);
+
+// the leaves (node ids) that can hold the largest deviation, given each one's loose figure (the
+// verification grid's), measured by tight_of: by decreasing loose figure times kGridSlack
+// (kWallSlack beside a wall), in batches of kTightBatch, until no leaf left could pass the
+// largest tight figure so far. tight[i] marks the measured ones; returns the largest.
+double publish_tight(const Field& field, Hierarchy& h, const std::vector<std::uint32_t>& leaves,
+                     const std::vector<float>& loose, int threads, std::vector<std::uint8_t>& tight);
 
 }  // namespace gm

@@ -22,6 +22,7 @@
 #include "fetch_order.hpp"
 #include "refine.hpp"
 #include "session.hpp"
+#include "tight.hpp"
 
 namespace py = pybind11;
 using namespace gm;
@@ -440,6 +441,34 @@ private:
     EditSession s_;
 };
 
+// the tight figures of every triangle (tight.cpp), per triangle both ways
+py::dict measure_tight_py(const PyField& f, const Doubles& vertices, const Indices& triangles, double spacing_m,
+                          int threads) {
+    const double* v = rows3(vertices, "vertices");
+    if (triangles.ndim() != 2 || triangles.shape(1) != 3)
+        throw py::value_error("triangles must have shape (M, 3)");
+    if (!(spacing_m >= 0) || !std::isfinite(spacing_m)) throw py::value_error("spacing_m must be finite and >= 0");
+    std::size_t nv = static_cast<std::size_t>(vertices.shape(0));
+    std::size_t nt = static_cast<std::size_t>(triangles.shape(0));
+    const std::uint32_t* t = triangles.data();
+    for (std::size_t i = 0; i < nt * 3; ++i)
+        if (t[i] >= nv) throw py::value_error("triangles refer to a vertex index >= len(vertices)");
+    std::vector<double> m2s(nt), s2m(nt);
+    {
+        py::gil_scoped_release nogil;
+        auto corner = [&](std::size_t k) { return Vec3{v[3 * t[k]], v[3 * t[k] + 1], v[3 * t[k] + 2]}; };
+        parallel_for(nt, threads, [&](std::size_t b, std::size_t e) {
+            for (std::size_t i = b; i < e; ++i)
+                tight_deviation(f.field(), corner(3 * i), corner(3 * i + 1), corner(3 * i + 2), spacing_m, m2s[i],
+                                s2m[i]);
+        });
+    }
+    py::dict out;
+    out["mesh_to_surface"] = to_numpy(std::move(m2s), {static_cast<py::ssize_t>(nt)});
+    out["surface_to_mesh"] = to_numpy(std::move(s2m), {static_cast<py::ssize_t>(nt)});
+    return out;
+}
+
 py::dict measure_py(const PyField& f, const Doubles& vertices, const Indices& triangles, int order,
                     int threads) {
     const double* v = rows3(vertices, "vertices");
@@ -592,6 +621,8 @@ PYBIND11_MODULE(_core, m) {
         .def("result", &PyEditSession::result);
     m.def("measure", &measure_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
           py::arg("order") = 6, py::arg("threads") = 0);
+    m.def("measure_tight", &measure_tight_py, py::arg("field"), py::arg("vertices"), py::arg("triangles"),
+          py::arg("spacing_m") = 0.0, py::arg("threads") = 0);
     m.def(
         "estimate_triangles",
         [](const PyField& f, double tol, int offset, int chunk_level, std::uint64_t survey_cap, int threads) {
