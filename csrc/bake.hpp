@@ -152,7 +152,7 @@ struct ColliderResult {
     double max_error_m = 0, mesh_to_surface_m = 0, surface_to_mesh_m = 0;
     double min_angle_deg = 0;
     double min_angle_target_deg = 0;  // what the angle pass aimed for (0: no pass)
-    std::uint64_t angle_collapses = 0, angle_flips = 0, angle_stuck = 0;
+    std::uint64_t angle_collapses = 0, angle_flips = 0, angle_inserts = 0, angle_stuck = 0;
     double seconds = 0;
     std::vector<std::shared_ptr<const Collider>> chunks;
 };

@@ -99,19 +99,22 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
     // check's own sampling
     const double target = s.collider_min_angle_deg;
     const double mesh_tol = centered ? tol / 1.5 : tol;
-    AngleStats as = raise_min_angle(field, r.positions, lv.triangles, lv.chunk, target,
-                                    kColliderAngleMargin * mesh_tol, kMeasureOrder, s.threads);
-    const std::vector<double> P =
-        centered ? bias_vertices(field, r.positions, lv.triangles, tol / 3, s.threads) : r.positions;
+    // the collider's own vertices: the hierarchy's, then the Steiner points the pass adds
+    std::vector<double> ground = r.positions;
+    AngleStats as = raise_min_angle(field, ground, lv.triangles, lv.chunk, target, kColliderAngleMargin * mesh_tol,
+                                    kMeasureOrder, s.threads, s.collider_cap);
+    std::vector<double> P =
+        centered ? bias_vertices(field, ground, lv.triangles, tol / 3, s.threads) : std::move(ground);
     if (centered) {
         const AngleStats more = raise_min_angle(field, P, lv.triangles, lv.chunk, target, kColliderAngleMargin * tol,
-                                                kMeasureOrder, s.threads);
+                                                kMeasureOrder, s.threads, s.collider_cap);
         as.collapses += more.collapses;
         as.flips += more.flips;
+        as.inserts += more.inserts;
         as.stuck = more.stuck;
     }
     {
-        // the pass only removes triangles: recount the largest chunk
+        // the pass removes and adds triangles (within the cap): recount the largest chunk
         std::vector<std::uint64_t> counts(r.chunk_count, 0);
         for (std::uint32_t c : lv.chunk) ++counts[c];
         out.max_triangles_per_chunk = counts.empty() ? 0 : *std::max_element(counts.begin(), counts.end());
@@ -119,6 +122,7 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
     out.min_angle_target_deg = target;
     out.angle_collapses = as.collapses;
     out.angle_flips = as.flips;
+    out.angle_inserts = as.inserts;
     out.angle_stuck = as.stuck;
     const std::size_t NV = P.size() / 3, T = lv.chunk.size();
     const Deviation dev = measure_covered(field, P.data(), NV, lv.triangles.data(), T, kMeasureOrder, s.threads);

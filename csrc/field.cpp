@@ -884,7 +884,13 @@ double Field::reach_angle(std::size_t i) const {
 }
 
 double Field::wall_distance(Vec3 p) const {
+    Vec3 q;
+    return wall_point(p, q);
+}
+
+double Field::wall_point(Vec3 p, Vec3& q) const {
     double best = std::numeric_limits<double>::infinity();
+    q = p;
     const double R = radius_;
     Vec3 u = normalize(p);
     for (std::uint32_t fi : steps_) {
@@ -929,7 +935,11 @@ double Field::wall_distance(Vec3 p) const {
         double h_out = eval(w, cl, cc, nullptr, static_cast<int>(fi), 0.0);
         double lo = R + std::min(h_in, h_out), hi = R + std::max(h_in, h_out);
         double t = std::min(std::max(dot(p, w), lo), hi);
-        best = std::min(best, norm(p - t * w));
+        const double d = norm(p - t * w);
+        if (d < best) {
+            best = d;
+            q = t * w;
+        }
     }
     return best;
 }

@@ -362,11 +362,37 @@ def test_angle_pass_keeps_colliders_closed_and_on_the_surface(
     assert mesh.volume == pytest.approx(4 / 3 * np.pi * RADIUS_M**3, rel=0.01)
     # the independent measure of docs/lod.md agrees with the report (globemill check)
     fld = globemill.field(res.spec)
+    tol = res.report["collision"]["tolerance_m"]
+    on_walls = 0
     for c in res.colliders:
         g = fld.surface(c.positions)
         # vertices moved by the centered bias by at most a third of the tolerance, radially
         shift = np.abs(np.linalg.norm(c.positions, axis=1) - np.linalg.norm(g, axis=1))
-        assert shift.max() <= res.report["collision"]["tolerance_m"] / 3 + 1e-9
+        # ... but for the Steiner points on the vertical walls, partway up: within the tolerance
+        # (horizontally) of such a point the ground passes below and above the point's height,
+        # so a wall face, part of the surface, crosses that circle (intermediate value theorem)
+        far = np.flatnonzero(shift > tol / 3 + 1e-9)
+        on_walls += len(far)
+        for p in c.positions[far]:
+            h = _ground_heights_around(fld, p, tol, res.spec.radius_m)
+            r = float(np.linalg.norm(p))
+            assert h.min() - tol / 3 <= r <= h.max() + tol / 3, (c.chunk, r, h.min(), h.max())
+    # only the Steiner points are off the ground, and some are (the walls need them)
+    assert 0 < on_walls <= res.report["collision"]["angle_moves"]["steiner_points"]
+
+
+def _ground_heights_around(fld: globemill.Field, p: F64, d: float, radius_m: float) -> F64:
+    """(32,) radii of the ground at 32 points on the circle of d metres (along the sphere) around
+    the direction of p."""
+    u = p / np.linalg.norm(p)
+    a = np.array([1.0, 0.0, 0.0]) if abs(u[0]) < 0.9 else np.array([0.0, 1.0, 0.0])
+    e1 = np.cross(u, a)
+    e1 /= np.linalg.norm(e1)
+    e2 = np.cross(u, e1)
+    phi = np.linspace(0.0, 2 * np.pi, 32, endpoint=False)[:, None]
+    t = d / radius_m
+    dirs = np.cos(t) * u + np.sin(t) * (np.cos(phi) * e1 + np.sin(phi) * e2)
+    return np.linalg.norm(fld.surface(dirs), axis=1)
 
 
 def test_angle_pass_does_not_depend_on_the_thread_count(walled: dict[str, BakeResult]) -> None:
@@ -395,17 +421,19 @@ def test_demo_collider_angles_match_the_report(demo: BakeResult) -> None:
     assert np.degrees(worst) == pytest.approx(angles.min(), abs=1e-4)
     assert col["max_error_m"] <= col["tolerance_m"]
     # measured on this world (docs/lod.md): the plain cut had 0.90 degrees and 2093 triangles
-    # under 10 degrees; the pass leaves its ribbons on the 28 m vertical wall of Sheer Tor and
-    # the quarry, a few hundred triangles at most under 10 degrees
-    assert angles.min() > 0.90
-    assert (angles < 10).sum() < 300
+    # under 10 degrees; collapses and flips alone left 1.93 degrees and 201 under 10 degrees on
+    # the 28 m vertical walls; with the Steiner points on the wall faces 4.92 degrees and 66
+    assert angles.min() > 4.5
+    assert (angles < 10).sum() < 80
+    assert col["angle_moves"]["steiner_points"] > 0
 
 
 @pytest.mark.slow
 @pytest.mark.xfail(
     strict=True,
-    reason="not reached: a ribbon spanning a 28 m vertical wall is at most about twice the "
-    "collider tolerance wide under the core's measure (docs/lod.md, Collider angles)",
+    reason="not reached: the Steiner points on the 28 m vertical walls take the smallest angle "
+    "to about 5 degrees; the refinement stops where a point's triangles leave the tolerance or "
+    "no point raises the smallest angle it touches (docs/lod.md, Collider angles)",
 )
 def test_demo_collider_min_angle_is_at_least_10_degrees(demo: BakeResult) -> None:
     assert _collider_angles(demo).min() >= 10.0

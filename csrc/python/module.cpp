@@ -316,6 +316,7 @@ public:
         d["min_angle_target_deg"] = cr.min_angle_target_deg;
         d["angle_collapses"] = cr.angle_collapses;
         d["angle_flips"] = cr.angle_flips;
+        d["angle_inserts"] = cr.angle_inserts;
         d["angle_stuck"] = cr.angle_stuck;
         d["degenerate_triangles"] = cr.degenerate_triangles;
         d["seconds"] = cr.seconds;

@@ -364,6 +364,7 @@ def _wrap(
             "angle_moves": {
                 "collapses": int(col["angle_collapses"]),
                 "flips": int(col["angle_flips"]),
+                "steiner_points": int(col["angle_inserts"]),
                 "below_target": int(col["angle_stuck"]),
             },
             "degenerate_triangles": int(col["degenerate_triangles"]),
