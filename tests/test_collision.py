@@ -422,9 +422,11 @@ def test_demo_collider_angles_match_the_report(demo: BakeResult) -> None:
     assert col["max_error_m"] <= col["tolerance_m"]
     # measured on this world (docs/lod.md): the plain cut had 0.90 degrees and 2093 triangles
     # under 10 degrees; collapses and flips alone left 1.93 degrees and 201 under 10 degrees on
-    # the 28 m vertical walls; with the Steiner points on the wall faces 4.92 degrees and 66
-    assert angles.min() > 4.5
-    assert (angles < 10).sum() < 80
+    # the 28 m vertical walls; with the Steiner points on the wall faces 4.92 degrees and 66, and
+    # 2.91 degrees and 96 once the levels beside walls were held within tolerance (a different
+    # hierarchy under the collider)
+    assert angles.min() > 2.5
+    assert (angles < 10).sum() < 120
     assert col["angle_moves"]["steiner_points"] > 0
 
 
@@ -432,7 +434,7 @@ def test_demo_collider_angles_match_the_report(demo: BakeResult) -> None:
 @pytest.mark.xfail(
     strict=True,
     reason="not reached: the Steiner points on the 28 m vertical walls take the smallest angle "
-    "to about 5 degrees; the refinement stops where a point's triangles leave the tolerance or "
+    "to 3-5 degrees; the refinement stops where a point's triangles leave the tolerance or "
     "no point raises the smallest angle it touches (docs/lod.md, Collider angles)",
 )
 def test_demo_collider_min_angle_is_at_least_10_degrees(demo: BakeResult) -> None:
