@@ -153,6 +153,7 @@ struct ColliderResult {
     double min_angle_deg = 0;
     double min_angle_target_deg = 0;  // what the angle pass aimed for (0: no pass)
     std::uint64_t angle_collapses = 0, angle_flips = 0, angle_inserts = 0, angle_stuck = 0;
+    std::uint64_t tight_triangles = 0;  // triangles whose figure was searched out (measure_collider)
     double seconds = 0;
     std::vector<std::shared_ptr<const Collider>> chunks;
 };

@@ -151,4 +151,118 @@ double cap_distance(const Field& field, Vec3 p, double upper, int grid) {
     return std::min(best, project_safeguarded(field, p, 2 * step, 20, 1e-6, &best_u));
 }
 
+namespace {
+
+constexpr std::uint32_t kLeafTriangles = 4;
+
+double box_distance2(Vec3 p, Vec3 lo, Vec3 hi) {
+    const double dx = std::max({lo.x - p.x, 0.0, p.x - hi.x});
+    const double dy = std::max({lo.y - p.y, 0.0, p.y - hi.y});
+    const double dz = std::max({lo.z - p.z, 0.0, p.z - hi.z});
+    return dx * dx + dy * dy + dz * dz;
+}
+
+}  // namespace
+
+TriangleTree::TriangleTree(const double* P, const std::uint32_t* T, std::size_t ntris) {
+    std::vector<std::uint32_t> order(ntris);
+    std::vector<Vec3> centroid(ntris);
+    for (std::size_t t = 0; t < ntris; ++t) {
+        order[t] = static_cast<std::uint32_t>(t);
+        Vec3 c{};
+        for (int k = 0; k < 3; ++k) {
+            const double* q = P + 3 * static_cast<std::size_t>(T[3 * t + static_cast<std::size_t>(k)]);
+            c += Vec3{q[0], q[1], q[2]};
+        }
+        centroid[t] = (1.0 / 3.0) * c;
+    }
+    boxes_.reserve(2 * (ntris / kLeafTriangles + 1) + 1);
+    if (ntris) {
+        boxes_.emplace_back();
+        build(order, centroid, 0, 0, static_cast<std::uint32_t>(ntris));
+    }
+    corners_.resize(3 * ntris);
+    for (std::size_t i = 0; i < ntris; ++i)
+        for (int k = 0; k < 3; ++k) {
+            const double* q = P + 3 * static_cast<std::size_t>(T[3 * static_cast<std::size_t>(order[i]) + static_cast<std::size_t>(k)]);
+            corners_[3 * i + static_cast<std::size_t>(k)] = {q[0], q[1], q[2]};
+        }
+    // boxes from the corners (children come after their parent: filled from the back)
+    for (std::size_t b = boxes_.size(); b-- > 0;) {
+        Box& x = boxes_[b];
+        if (x.count) {
+            x.lo = x.hi = corners_[3 * x.first];
+            for (std::uint32_t i = 3 * x.first; i < 3 * (x.first + x.count); ++i) {
+                const Vec3 c = corners_[i];
+                x.lo = {std::min(x.lo.x, c.x), std::min(x.lo.y, c.y), std::min(x.lo.z, c.z)};
+                x.hi = {std::max(x.hi.x, c.x), std::max(x.hi.y, c.y), std::max(x.hi.z, c.z)};
+            }
+        } else {
+            const Box& l = boxes_[x.left];
+            const Box& r = boxes_[x.left + 1];
+            x.lo = {std::min(l.lo.x, r.lo.x), std::min(l.lo.y, r.lo.y), std::min(l.lo.z, r.lo.z)};
+            x.hi = {std::max(l.hi.x, r.hi.x), std::max(l.hi.y, r.hi.y), std::max(l.hi.z, r.hi.z)};
+        }
+    }
+}
+
+// box `slot` over order[first .. first + count): a leaf, or two children made as a pair
+void TriangleTree::build(std::vector<std::uint32_t>& order, const std::vector<Vec3>& centroid, std::uint32_t slot,
+                         std::uint32_t first, std::uint32_t count) {
+    if (count <= kLeafTriangles) {
+        boxes_[slot].first = first;
+        boxes_[slot].count = count;
+        return;
+    }
+    Vec3 lo = centroid[order[first]], hi = lo;
+    for (std::uint32_t i = first; i < first + count; ++i) {
+        const Vec3 c = centroid[order[i]];
+        lo = {std::min(lo.x, c.x), std::min(lo.y, c.y), std::min(lo.z, c.z)};
+        hi = {std::max(hi.x, c.x), std::max(hi.y, c.y), std::max(hi.z, c.z)};
+    }
+    const Vec3 ext = hi - lo;
+    const int axis = ext.x >= ext.y && ext.x >= ext.z ? 0 : (ext.y >= ext.z ? 1 : 2);
+    auto key = [&](std::uint32_t t) { return axis == 0 ? centroid[t].x : axis == 1 ? centroid[t].y : centroid[t].z; };
+    const std::uint32_t half = count / 2;
+    std::nth_element(order.begin() + first, order.begin() + first + half, order.begin() + first + count,
+                     [&](std::uint32_t a, std::uint32_t b) { return key(a) < key(b) || (key(a) == key(b) && a < b); });
+    const std::uint32_t left = static_cast<std::uint32_t>(boxes_.size());
+    boxes_.emplace_back();
+    boxes_.emplace_back();
+    boxes_[slot].left = left;
+    build(order, centroid, left, first, half);
+    build(order, centroid, left + 1, first + half, count - half);
+}
+
+double TriangleTree::distance(Vec3 p, double upper) const {
+    if (boxes_.empty()) return upper;
+    double best2 = upper * upper;
+    std::uint32_t stack[128];
+    int n = 0;
+    stack[n++] = 0;
+    while (n > 0) {
+        const Box& b = boxes_[stack[--n]];
+        if (box_distance2(p, b.lo, b.hi) >= best2) continue;
+        if (b.count) {
+            for (std::uint32_t i = b.first; i < b.first + b.count; ++i) {
+                const Vec3 q = closest_on_triangle(p, corners_[3 * i], corners_[3 * i + 1], corners_[3 * i + 2]);
+                best2 = std::min(best2, dot(p - q, p - q));
+            }
+            continue;
+        }
+        const double dl = box_distance2(p, boxes_[b.left].lo, boxes_[b.left].hi);
+        const double dr = box_distance2(p, boxes_[b.left + 1].lo, boxes_[b.left + 1].hi);
+        if (n + 2 > 128) return std::sqrt(best2);  // cannot happen for a balanced tree
+        // the nearer child is searched first (pushed last)
+        if (dl <= dr) {
+            stack[n++] = b.left + 1;
+            stack[n++] = b.left;
+        } else {
+            stack[n++] = b.left;
+            stack[n++] = b.left + 1;
+        }
+    }
+    return std::sqrt(best2);
+}
+
 }  // namespace gm

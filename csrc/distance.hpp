@@ -3,6 +3,7 @@
 #pragma once
 
 #include <cstdint>
+#include <vector>
 
 #include "field.hpp"
 
@@ -38,5 +39,27 @@ double project_safeguarded(const Field& field, Vec3 p, double trust_m, int itera
 // steps). min(upper, the distance found): an upper bound of the true distance that a local
 // projection's wrong basin (a wall beside a point that projects onto the ground) does not fool.
 double cap_distance(const Field& field, Vec3 p, double upper, int grid);
+
+// the exact distance from a point to a whole triangle mesh: a bounding volume hierarchy of
+// axis-aligned boxes (median splits on the longest axis of the centroids), searched nearest box
+// first with branch and bound, each candidate by closest_on_triangle. the minimum is exact and
+// does not depend on the order of the search. the positions are copied.
+class TriangleTree {
+public:
+    TriangleTree(const double* positions, const std::uint32_t* triangles, std::size_t ntris);
+    // min(upper, the distance from p to the nearest triangle)
+    double distance(Vec3 p, double upper) const;
+
+private:
+    struct Box {
+        Vec3 lo, hi;
+        std::uint32_t first = 0, count = 0;  // a leaf: triangles order[first .. first + count)
+        std::uint32_t left = 0;              // an inner node: children left, left + 1
+    };
+    std::vector<Vec3> corners_;  // 3 per triangle, in `order`
+    std::vector<Box> boxes_;
+    void build(std::vector<std::uint32_t>& order, const std::vector<Vec3>& centroid, std::uint32_t slot,
+               std::uint32_t first, std::uint32_t count);
+};
 
 }  // namespace gm

@@ -888,9 +888,11 @@ double Field::wall_distance(Vec3 p) const {
     return wall_point(p, q);
 }
 
-double Field::wall_point(Vec3 p, Vec3& q) const {
+double Field::wall_point(Vec3 p, Vec3& q, double* foot, double* top) const {
     double best = std::numeric_limits<double>::infinity();
     q = p;
+    if (foot) *foot = norm(p);
+    if (top) *top = norm(p);
     const double R = radius_;
     Vec3 u = normalize(p);
     for (std::uint32_t fi : steps_) {
@@ -939,6 +941,8 @@ double Field::wall_point(Vec3 p, Vec3& q) const {
         if (d < best) {
             best = d;
             q = t * w;
+            if (foot) *foot = lo;
+            if (top) *top = hi;
         }
     }
     return best;

@@ -113,8 +113,10 @@ public:
     // (infinity when none does). a pure function of p and the features: it does not depend on
     // how the footprint index happens to group them.
     double wall_distance(Vec3 p) const;
-    // the same, and in q the nearest point of those walls (p itself when none holds p)
-    double wall_point(Vec3 p, Vec3& q) const;
+    // the same, and in q the nearest point of those walls (p itself when none holds p); lo, hi
+    // (optional): that wall's foot and top radius along q's direction (the wall there is the
+    // segment from lo to hi times normalize(q); both |p| when none holds p)
+    double wall_point(Vec3 p, Vec3& q, double* lo = nullptr, double* hi = nullptr) const;
     // is feature i of this field defined exactly as feature j of `other` (the same row)?
     bool same_feature(std::size_t i, const Field& other, std::size_t j) const;
     // how far feature i reaches (angle from its footprint centre, radians): its footprint, and

@@ -89,7 +89,8 @@ double climb(const Value& value, const Confirm& confirm, Seed s, double h, doubl
 }  // namespace
 
 double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spacing_m, double& mesh_to_surface,
-                       double& surface_to_mesh, bool search_surface) {
+                       double& surface_to_mesh, bool search_surface, bool corners, const Vec3* cover,
+                       std::size_t cover_count, const TriangleTree* mesh) {
     const double R = field.radius();
     const int order = sampling_order(V0, V1, V2, kTightOrder, spacing_m);
     const double edge = std::max({norm(V1 - V0), norm(V2 - V1), norm(V0 - V2)});
@@ -103,16 +104,23 @@ double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spa
         if (field.has_steps()) d = std::min(d, field.wall_distance(p));
         return d;
     };
+    // the distance from surface point S to the triangle, or to the nearest of it and the cover
+    auto to_mesh = [&](Vec3 S) {
+        double d = norm(S - closest_on_triangle(S, V0, V1, V2));
+        if (mesh) return mesh->distance(S, d);
+        for (std::size_t c = 0; c < cover_count && d > 0; ++c)
+            d = std::min(d, norm(S - closest_on_triangle(S, cover[3 * c], cover[3 * c + 1], cover[3 * c + 2])));
+        return d;
+    };
     auto surface_value = [&](double b1, double b2) {
         const Vec3 p = point(b1, b2);
         const double pn = norm(p);
         if (!(pn > 0)) return 0.0;
         const Vec3 u = (1.0 / pn) * p;
-        const Vec3 S = (R + field.eval(u, nullptr)) * u;
-        return norm(S - closest_on_triangle(S, V0, V1, V2));
+        return to_mesh((R + field.eval(u, nullptr)) * u);
     };
-    // the grid (corners left out: they lie on the surface) and the crease points, each with its
-    // radial bound, which bounds mesh -> surface
+    // the grid (corners left out unless asked for: a level's lie on the surface) and the crease
+    // points, each with its radial bound, which bounds mesh -> surface
     constexpr int kMaxPoints = 600 + Field::kMaxCreasePoints * 4;
     double b1s[kMaxPoints], b2s[kMaxPoints], radial[kMaxPoints];
     int idx[kMaxPoints];
@@ -127,7 +135,7 @@ double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spa
         const Vec3 u = (1.0 / pn) * p;
         const double H = field.eval(u, nullptr);
         const Vec3 S = (R + H) * u;
-        offer(s2m_seeds, n_s2m, {norm(S - closest_on_triangle(S, V0, V1, V2)), b1, b2});
+        offer(s2m_seeds, n_s2m, {to_mesh(S), b1, b2});
         b1s[n] = b1;
         b2s[n] = b2;
         radial[n] = std::fabs(pn - R - H);
@@ -136,7 +144,7 @@ double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spa
     };
     for (int i = 0; i <= order; ++i)
         for (int j = 0; j <= order - i; ++j) {
-            if ((i == 0 && j == 0) || i == order || j == order) continue;
+            if (!corners && ((i == 0 && j == 0) || i == order || j == order)) continue;
             sample(static_cast<double>(i) / order, static_cast<double>(j) / order);
         }
     {

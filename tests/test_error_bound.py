@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from independent_error import feature_directions, measure, step_walls
+from independent_error import distance_to_mesh, feature_directions, measure, step_walls
 
 import globemill
 
@@ -184,3 +184,57 @@ def test_walled_world_holds_beside_vertical_walls() -> None:
     spec = globemill.load_spec(DATA / "bound_walls.toml")
     result = globemill.bake(spec, collision=False)
     _assert_certified(spec, result)
+
+
+def _collider_mesh(result: globemill.BakeResult) -> tuple[np.ndarray, np.ndarray]:
+    """Every chunk's collider as one mesh (border vertices repeated: distances do not care)."""
+    vs, ts, off = [], [], 0
+    for c in result.colliders:
+        vs.append(c.positions)
+        ts.append(c.triangles.reshape(-1, 3) + off)
+        off += len(c.positions)
+    return np.vstack(vs), np.vstack(ts)
+
+
+def _assert_collider_certified(spec: globemill.WorldSpec, result: globemill.BakeResult) -> None:
+    """The collider's published `max_error_m` at least the independent figure and at most 1.1
+    times it (issue 13, item 3). Independent figure: the dense search of `_dense_independent`,
+    and the vertical walls' faces sampled every 0.25 m (step_walls) against the whole collider
+    by exact closest points (distance_to_mesh): where a collider cuts a wall's corner, a point of
+    the wall's face is the surface point farthest from it."""
+    v, t = _collider_mesh(result)
+    dense = _dense_independent(spec, (v, t))["max"]
+    field = globemill.field(spec)
+    walls = step_walls(spec.core_features(), field, float(spec.radius_m))
+    face = 0.0
+    if walls is not None:
+        pts = walls.sample(0.25)
+        for i in range(0, len(pts), 200_000):
+            d, _ = distance_to_mesh(v, t, pts[i : i + 200_000])
+            face = max(face, float(d.max()))
+    independent = max(dense, face)
+    col = result.report["collision"]
+    reported = col["max_error_m"]
+    assert independent <= col["tolerance_m"], f"collider: {independent} beyond {col['tolerance_m']}"
+    assert reported >= independent, f"collider: reported {reported} below {independent}"
+    assert reported <= 1.1 * independent, f"collider: reported {reported} above 1.1 x {independent}"
+
+
+def test_walled_world_collider_figure_is_certified() -> None:
+    # regression (issue 13, item 3): on the sheer-walled world the collider (1.6 m) reported
+    # 1.303 m, where the independent search finds 1.129 m (a wall's face): surface -> mesh was
+    # taken to the nearest of a triangle and those around it, which beside a wall overstates
+    # (a sample at 1.89 m lies 0.38 m from the whole collider), while mesh -> surface, sampled
+    # on a fixed grid of order 4, said 1.031 m where the dense search finds 1.121 m
+    spec = globemill.load_spec(DATA / "bound_walls.toml")
+    result = globemill.bake(spec)
+    _assert_collider_certified(spec, result)
+
+
+@pytest.mark.slow
+def test_demo_world_collider_figure_is_certified() -> None:
+    # regression (issue 13, item 3): at 1 m the demo's collider (4 m) reported mesh -> surface
+    # 2.333 m where the dense search finds 2.529 m
+    spec = globemill.load_spec(DEMO)
+    result = globemill.bake(spec, tolerance_m=1.0, levels=1)
+    _assert_collider_certified(spec, result)

@@ -319,6 +319,7 @@ public:
         d["angle_inserts"] = cr.angle_inserts;
         d["angle_stuck"] = cr.angle_stuck;
         d["degenerate_triangles"] = cr.degenerate_triangles;
+        d["tight_triangles"] = cr.tight_triangles;
         d["seconds"] = cr.seconds;
         py::list chunks;
         for (const auto& c : cr.chunks) {

@@ -126,6 +126,7 @@ inline std::vector<std::string> differences(const gm::BakeResult& a, const gm::B
     cmp("colliders.triangles", p.triangles == q.triangles);
     cmp("colliders.max_triangles_per_chunk", p.max_triangles_per_chunk == q.max_triangles_per_chunk);
     cmp("colliders.degenerate_triangles", p.degenerate_triangles == q.degenerate_triangles);
+    cmp("colliders.tight_triangles", p.tight_triangles == q.tight_triangles);
     cmp("colliders.max_error_m", same_bits(p.max_error_m, q.max_error_m));
     cmp("colliders.min_angle_deg", same_bits(p.min_angle_deg, q.min_angle_deg));
     cmp("colliders.chunks", p.chunks.size() == q.chunks.size());

@@ -3,6 +3,8 @@
 
 #include <algorithm>
 #include <cmath>
+#include <cstdint>
+#include <vector>
 #include <limits>
 
 #include "distance.hpp"
@@ -127,4 +129,48 @@ TEST_CASE("projection onto a hill agrees with a brute-force nearest surface poin
         CHECK(std::fabs(proj - best) <= 1e-6);
         CHECK(proj < 10 * 0.95);  // the slope makes it clearly shorter than the radial 10 m
     }
+}
+
+// the tree's nearest triangle against a scan of every triangle by closest_on_triangle (brute
+// force, common practice): the same minimum, on a random soup of small triangles around a sphere
+// and query points near and far from it; and `upper` caps the answer
+TEST_CASE("the triangle tree finds the same nearest distance as a scan of every triangle") {
+    std::uint64_t state = 12345;
+    auto uniform = [&]() {
+        state = state * 6364136223846793005ull + 1442695040888963407ull;
+        return static_cast<double>(state >> 11) / 9007199254740992.0;
+    };
+    auto unit = [&]() {
+        for (;;) {
+            Vec3 v{2 * uniform() - 1, 2 * uniform() - 1, 2 * uniform() - 1};
+            const double n = gm::norm(v);
+            if (n > 0.1 && n <= 1) return (1.0 / n) * v;
+        }
+    };
+    const std::size_t n = 2000;
+    std::vector<double> P;
+    std::vector<std::uint32_t> T;
+    for (std::size_t t = 0; t < n; ++t) {
+        const Vec3 c = 100.0 * unit();
+        for (int k = 0; k < 3; ++k) {
+            const Vec3 p = c + 3.0 * unit();
+            P.insert(P.end(), {p.x, p.y, p.z});
+            T.push_back(static_cast<std::uint32_t>(3 * t + static_cast<std::size_t>(k)));
+        }
+    }
+    const gm::TriangleTree tree(P.data(), T.data(), n);
+    auto corner = [&](std::size_t t, int k) {
+        const double* q = &P[3 * T[3 * t + static_cast<std::size_t>(k)]];
+        return Vec3{q[0], q[1], q[2]};
+    };
+    for (int i = 0; i < 300; ++i) {
+        const Vec3 q = (80.0 + 40.0 * uniform()) * unit();
+        double want = std::numeric_limits<double>::infinity();
+        for (std::size_t t = 0; t < n; ++t)
+            want = std::min(want, gm::norm(q - gm::closest_on_triangle(q, corner(t, 0), corner(t, 1), corner(t, 2))));
+        CHECK(tree.distance(q, std::numeric_limits<double>::infinity()) == want);
+        CHECK(tree.distance(q, 0.5 * want) == 0.5 * want);
+    }
+    const gm::TriangleTree empty(P.data(), T.data(), 0);
+    CHECK(empty.distance(Vec3{1, 2, 3}, 7.0) == 7.0);
 }
