@@ -448,6 +448,45 @@ def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
     assert "from −2 m up to +1 m" in step  # the boundary as the spec has it, moved elsewhere
 
 
+def test_tutorial_step_5_edits_do_what_it_says(tmp_path: Path) -> None:
+    # the step's three edits of the demo spec, each made on a copy and run through
+    # `globemill spec validate`: both edges moved, only moor grass's, only shingle's
+    text = DEMO.read_text()
+    shingle, grass = "altitude_m = [-15.0, -2.0]", "altitude_m = [-2.0, 32.0]"
+    assert text.count(shingle) == 1 and text.count(grass) == 1
+    edits = {
+        "both": text.replace(shingle, "altitude_m = [-15.0, 1.0]").replace(
+            grass, "altitude_m = [1.0, 32.0]"
+        ),
+        "grass": text.replace(grass, "altitude_m = [1.0, 32.0]"),
+        "shingle": text.replace(shingle, "altitude_m = [-15.0, 1.0]"),
+    }
+    said = {}
+    for name, body in edits.items():
+        path = tmp_path / f"{name}.toml"
+        path.write_text(body)
+        res = run("spec", "validate", str(path))
+        assert res.returncode == 0, res.stderr
+        said[name] = res.stderr
+    step = (DEMO.parents[1] / "docs" / "tutorial.md").read_text().split("## 5.")[1]
+    step = " ".join(step.split("## 6.")[0].split())
+    # the gap: warned about with the share the tutorial quotes; the overlap and the full move:
+    # nothing to warn about
+    share = said["grass"].split("no rule covers ")[1].split("%")[0]
+    assert f"warns that no rule covers {share}% of the ground" in step
+    assert "no rule covers" not in said["both"] and "no rule covers" not in said["shingle"]
+    # first match wins: only shingle's edge moved lays out the ground as both edges moved
+    import globemill
+    from globemill.spec_warnings import layer_coverage
+
+    cov = {
+        name: layer_coverage(globemill.load_spec(tmp_path / f"{name}.toml"))["layers"]
+        for name in ("both", "shingle")
+    }
+    assert cov["shingle"] == cov["both"]
+    assert "the picture is the same as with both edges moved" in step
+
+
 def test_an_over_budget_bake_names_the_feature_and_key_behind_it(tmp_path: Path) -> None:
     # a broad hill and fine noise: the noise alone needs nearly every triangle
     spec = DEMO.parents[1] / "tests" / "data" / "over_budget_noise.toml"
