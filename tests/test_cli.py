@@ -437,6 +437,28 @@ def test_each_command_has_its_own_examples_and_they_parse() -> None:
             assert args.command == cmd
 
 
+def test_spec_examples_run_as_shown(tmp_path: Path) -> None:
+    import shlex
+    import shutil
+
+    from globemill.cli import EXAMPLES
+
+    # each example of `globemill spec` run in a copy of the checkout's examples/: all succeed
+    # (`format --check` exit 0: the shipped JSON is in the formatter's layout)
+    shutil.copytree(DEMO.parent, tmp_path / "examples")
+    for line in EXAMPLES["spec"]:
+        args = shlex.split(line)[1:]
+        res = subprocess.run(
+            [sys.executable, "-m", "globemill", *args],
+            capture_output=True,
+            text=True,
+            timeout=600,
+            cwd=tmp_path,
+        )
+        assert res.returncode == 0, (line, res.stderr)
+        assert line in run(*args[:2], "--help").stdout  # and its action's --help shows it
+
+
 def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
     import globemill
 
