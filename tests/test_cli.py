@@ -244,6 +244,13 @@ BAD_OPTIONS = {
     "farm levels not a number": (["farm", "--levels", "two"], "--levels"),
     "seams": (["bake", "--seams", "weld"], "--seams"),
     "threads": (["bake", "--threads", "-3"], "threads"),
+    # the core's range (csrc/bake.cpp, check_settings); the farm checks it before any work and
+    # says the same, rather than failing every world and writing farm.json
+    "threads 1025": (["bake", "--threads", "1025"], "threads: must be an integer in 0..1024"),
+    "farm threads 1025": (["farm", "--threads", "1025"], "threads: must be an integer in 0..1024"),
+    "tolerance -1": (["bake", "--tolerance-m", "-1"], "tolerance_m: must be > 0 and <="),
+    "farm tolerance -1": (["farm", "--tolerance-m", "-1"], "tolerance_m: must be > 0 and <="),
+    "farm tolerance nan": (["farm", "--tolerance-m", "nan"], "tolerance_m: must be > 0 and <="),
     "quantize share": (["bake", "--quantize-share", "2"], "--quantize-share"),
     "watch interval": (["bake", "--watch", "--interval", "0"], "--interval"),
     "watch rounds": (["bake", "--watch", "--rounds", "0"], "--rounds"),

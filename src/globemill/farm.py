@@ -59,6 +59,7 @@ import ctypes
 import glob
 import hashlib
 import json
+import math
 import multiprocessing
 import os
 import queue
@@ -1208,8 +1209,21 @@ def farm(
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     if jobs is not None and (not isinstance(jobs, int) or isinstance(jobs, bool) or jobs < 1):
         raise ValueError(f"jobs: must be an integer >= 1, got {jobs!r}")
-    if threads is not None and (not isinstance(threads, int) or threads < 0):
-        raise ValueError(f"threads: must be an integer >= 0 (0 = all cores), got {threads!r}")
+    # the bake's own ranges (csrc/bake.cpp, check_settings; the C ABI's gm_bake_settings), checked
+    # here before any work so that a value no world can bake with writes nothing, not a failed
+    # farm.json (tests/test_farm.py holds the two messages equal)
+    if threads is not None and (
+        not isinstance(threads, int) or isinstance(threads, bool) or not 0 <= threads <= 1024
+    ):
+        raise ValueError(f"threads: must be an integer in 0..1024 (0 = all cores), got {threads}")
+    if tolerance_m is not None and (
+        isinstance(tolerance_m, bool)
+        or not isinstance(tolerance_m, (int, float))
+        or not (math.isfinite(tolerance_m) and tolerance_m > 0)
+    ):
+        raise ValueError(
+            f"tolerance_m: must be > 0 and <= each world's radius_m/10, got {tolerance_m!r}"
+        )
     if max_memory_bytes is not None and not (
         isinstance(max_memory_bytes, int) and max_memory_bytes > 0
     ):
