@@ -172,6 +172,8 @@ def _bake_spec(
         probe_folder(outdir, est.output_bytes if est is not None else 0)
 
     def on_estimate(triangles: int) -> None:
+        if bar is not None:
+            bar.estimated(triangles)  # refinement's total is known from here on
         if est is not None:
             return  # checked before the bake
         e = estimate_from_triangles(spec, tol, triangles, threads=threads)

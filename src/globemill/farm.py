@@ -667,6 +667,7 @@ def _progress_sender(
             last[0] = f
             send(f, bp.text)
 
+    progress.estimated = bp.estimated  # type: ignore[attr-defined]  # the bake's on_estimate
     return progress
 
 
@@ -733,6 +734,8 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         tol = spec.tolerance_m if task["tolerance_m"] is None else task["tolerance_m"]
 
         def on_estimate(triangles: int) -> None:
+            if progress is not None:  # refinement's total is known from here on
+                progress.estimated(triangles)  # type: ignore[attr-defined]
             # no estimate before the bake: its own survey's, before the refinement goes on
             if need == 0:
                 probe_folder(outdir, estimate_from_triangles(spec, tol, triangles).output_bytes)
@@ -1294,15 +1297,9 @@ def _farm_locked(
     outcomes: list[WorldOutcome | None] = [None] * len(inputs)
     bar = None
     if progress:
-        from tqdm import tqdm
+        from .progress import stage_bar
 
-        bar = tqdm(
-            total=len(inputs),
-            unit="world",
-            desc="farm",
-            leave=False,
-            bar_format="{desc}: {n:.1f}/{total} worlds |{bar}| {postfix} [{elapsed}<{remaining}]",
-        )
+        bar = stage_bar(total=len(inputs), desc="farm", counts="{n:.1f}/{total} worlds ")
     finished = [0]
 
     def report(i: int, outcome: WorldOutcome) -> None:
@@ -1310,7 +1307,7 @@ def _farm_locked(
         finished[0] += 1
         if bar is not None:
             bar.n = finished[0]
-            bar.set_postfix_str(f"{outcome.world} {outcome.status}")
+            bar.set_stage(f"{outcome.world} {outcome.status}")
             bar.refresh()
         if on_world is not None:
             on_world(outcome)
@@ -1462,7 +1459,7 @@ def _farm_locked(
             f"{names_of[i]} {100 * f:.0f}% {text.split(' ')[0]}"
             for i, (f, text) in sorted(running.items())
         ]
-        bar.set_postfix_str(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
+        bar.set_stage(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
         bar.refresh()
 
     ticking = tick if bar is not None or on_progress is not None else None
