@@ -244,6 +244,13 @@ BAD_OPTIONS = {
     "farm levels not a number": (["farm", "--levels", "two"], "--levels"),
     "seams": (["bake", "--seams", "weld"], "--seams"),
     "threads": (["bake", "--threads", "-3"], "threads"),
+    # the core's range (csrc/bake.cpp, check_settings); the farm checks it before any work and
+    # says the same, rather than failing every world and writing farm.json
+    "threads 1025": (["bake", "--threads", "1025"], "threads: must be an integer in 0..1024"),
+    "farm threads 1025": (["farm", "--threads", "1025"], "threads: must be an integer in 0..1024"),
+    "tolerance -1": (["bake", "--tolerance-m", "-1"], "tolerance_m: must be > 0 and <="),
+    "farm tolerance -1": (["farm", "--tolerance-m", "-1"], "tolerance_m: must be > 0 and <="),
+    "farm tolerance nan": (["farm", "--tolerance-m", "nan"], "tolerance_m: must be > 0 and <="),
     "quantize share": (["bake", "--quantize-share", "2"], "--quantize-share"),
     "watch interval": (["bake", "--watch", "--interval", "0"], "--interval"),
     "watch rounds": (["bake", "--watch", "--rounds", "0"], "--rounds"),
@@ -437,6 +444,28 @@ def test_each_command_has_its_own_examples_and_they_parse() -> None:
             assert args.command == cmd
 
 
+def test_spec_examples_run_as_shown(tmp_path: Path) -> None:
+    import shlex
+    import shutil
+
+    from globemill.cli import EXAMPLES
+
+    # each example of `globemill spec` run in a copy of the checkout's examples/: all succeed
+    # (`format --check` exit 0: the shipped JSON is in the formatter's layout)
+    shutil.copytree(DEMO.parent, tmp_path / "examples")
+    for line in EXAMPLES["spec"]:
+        args = shlex.split(line)[1:]
+        res = subprocess.run(
+            [sys.executable, "-m", "globemill", *args],
+            capture_output=True,
+            text=True,
+            timeout=600,
+            cwd=tmp_path,
+        )
+        assert res.returncode == 0, (line, res.stderr)
+        assert line in run(*args[:2], "--help").stdout  # and its action's --help shows it
+
+
 def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
     import globemill
 
@@ -446,6 +475,45 @@ def test_tutorial_step_5_starts_from_the_demo_spec() -> None:
     tutorial = (DEMO.parents[1] / "docs" / "tutorial.md").read_text()
     step = tutorial.split("## 5.")[1].split("## 6.")[0]
     assert "from −2 m up to +1 m" in step  # the boundary as the spec has it, moved elsewhere
+
+
+def test_tutorial_step_5_edits_do_what_it_says(tmp_path: Path) -> None:
+    # the step's three edits of the demo spec, each made on a copy and run through
+    # `globemill spec validate`: both edges moved, only moor grass's, only shingle's
+    text = DEMO.read_text()
+    shingle, grass = "altitude_m = [-15.0, -2.0]", "altitude_m = [-2.0, 32.0]"
+    assert text.count(shingle) == 1 and text.count(grass) == 1
+    edits = {
+        "both": text.replace(shingle, "altitude_m = [-15.0, 1.0]").replace(
+            grass, "altitude_m = [1.0, 32.0]"
+        ),
+        "grass": text.replace(grass, "altitude_m = [1.0, 32.0]"),
+        "shingle": text.replace(shingle, "altitude_m = [-15.0, 1.0]"),
+    }
+    said = {}
+    for name, body in edits.items():
+        path = tmp_path / f"{name}.toml"
+        path.write_text(body)
+        res = run("spec", "validate", str(path))
+        assert res.returncode == 0, res.stderr
+        said[name] = res.stderr
+    step = (DEMO.parents[1] / "docs" / "tutorial.md").read_text().split("## 5.")[1]
+    step = " ".join(step.split("## 6.")[0].split())
+    # the gap: warned about with the share the tutorial quotes; the overlap and the full move:
+    # nothing to warn about
+    share = said["grass"].split("no rule covers ")[1].split("%")[0]
+    assert f"warns that no rule covers {share}% of the ground" in step
+    assert "no rule covers" not in said["both"] and "no rule covers" not in said["shingle"]
+    # first match wins: only shingle's edge moved lays out the ground as both edges moved
+    import globemill
+    from globemill.spec_warnings import layer_coverage
+
+    cov = {
+        name: layer_coverage(globemill.load_spec(tmp_path / f"{name}.toml"))["layers"]
+        for name in ("both", "shingle")
+    }
+    assert cov["shingle"] == cov["both"]
+    assert "the picture is the same as with both edges moved" in step
 
 
 def test_an_over_budget_bake_names_the_feature_and_key_behind_it(tmp_path: Path) -> None:

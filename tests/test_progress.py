@@ -10,7 +10,7 @@ import pytest
 
 import globemill
 from globemill.output import write_outputs
-from globemill.progress import ORDER, BakeProgress, ProgressBar
+from globemill.progress import ORDER, STAGES, BakeProgress, ProgressBar, bake_stages
 
 DEMO = Path(__file__).resolve().parents[1] / "examples" / "pebblemoor.toml"
 
@@ -45,6 +45,30 @@ def test_the_whole_only_moves_forward_to_one(reports: list[tuple[str, int, int]]
     assert max(b - a for a, b in zip(seen, seen[1:], strict=False)) < 0.6
 
 
+def test_refinement_is_not_shown_done_before_its_total_is_known() -> None:
+    # the core reports refine's leaves as their own total until the bake's budget survey has
+    # estimated it (on_estimate): until then the whole stays at 0, not at refine's full share
+    events: list[tuple[str, int, int]] = []
+    spec = globemill.load_spec(DEMO)
+    globemill.bake(
+        spec,
+        tolerance_m=4.0,
+        collision=False,
+        progress=lambda *a: events.append(a),
+        on_estimate=lambda n: events.append(("estimate", n, n)),
+    )
+    cut = events.index(next(e for e in events if e[0] == "estimate"))
+    before = [e for e in events[:cut] if e[0] == "refine"]
+    assert before and all(d == t for _, d, t in before)  # no total yet
+    p = BakeProgress(bake_stages(False))
+    assert all(p.update(*e) == 0.0 for e in before)
+    assert "estimating the total" in p.text and "/" not in p.text
+    p.estimated(events[cut][1])
+    after = [p.update(*e) for e in events[cut + 1 :] if e[0] == "refine"]
+    share = STAGES["refine"][0] / sum(STAGES[s][0] for s in bake_stages(False))
+    assert 0.0 < after[0] <= after[-1] == pytest.approx(share)
+
+
 def test_the_bar_shows_percent_stage_and_eta(reports: list[tuple[str, int, int]]) -> None:
     out = io.StringIO()
     bar = ProgressBar("pebblemoor", file=out)
@@ -55,6 +79,8 @@ def test_the_bar_shows_percent_stage_and_eta(reports: list[tuple[str, int, int]]
     bar.close()
     assert "100%" in text and "write" in text and "triangles measured" in text
     assert "<" in text  # elapsed<remaining
+    # the stage follows the bar as it is (tqdm's postfix would draw "|, refine ...")
+    assert "| refine " in text and "| verify " in text and "|, " not in text
 
 
 def test_progress_does_not_change_the_result() -> None:

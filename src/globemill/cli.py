@@ -68,7 +68,7 @@ EXAMPLES = {
     "spec": [
         "globemill spec validate examples/pebblemoor.toml",
         "globemill spec convert examples/pebblemoor.toml -o pebblemoor.json",
-        "globemill spec format examples/pebblemoor.toml --check",
+        "globemill spec format examples/pebblemoor.json --check",
     ],
     "schema": ["globemill schema > globemill.schema.json"],
 }
@@ -172,6 +172,8 @@ def _bake_spec(
         probe_folder(outdir, est.output_bytes if est is not None else 0)
 
     def on_estimate(triangles: int) -> None:
+        if bar is not None:
+            bar.estimated(triangles)  # refinement's total is known from here on
         if est is not None:
             return  # checked before the bake
         e = estimate_from_triangles(spec, tol, triangles, threads=threads)
@@ -720,20 +722,25 @@ def build_parser() -> argparse.ArgumentParser:
     sp = command("spec", "validate world spec files, convert them (TOML <-> JSON), format them")
     spsub = sp.add_subparsers(dest="spec_command", metavar="ACTION")
     spsub.required = True
-    sv = spsub.add_parser(
-        "validate", help="check specs (exit 2 naming every problem); print warnings"
-    )
+
+    def action(name: str, help: str) -> argparse.ArgumentParser:
+        # each action's --help ends with its own example from the spec command's list
+        mine = [line for line in EXAMPLES["spec"] if line.startswith(f"globemill spec {name} ")]
+        return spsub.add_parser(
+            name,
+            help=help,
+            epilog="examples:\n" + "".join(f"  {line}\n" for line in mine),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+
+    sv = action("validate", "check specs (exit 2 naming every problem); print warnings")
     sv.add_argument("specs", nargs="+", metavar="SPEC", help="world spec files")
     sv.set_defaults(func=_cmd_spec_validate)
-    sc = spsub.add_parser(
-        "convert", help="write a spec in the other format (by -o's suffix), keys in order"
-    )
+    sc = action("convert", "write a spec in the other format (by -o's suffix), keys in order")
     sc.add_argument("spec", help="world spec (.toml or .json)")
     sc.add_argument("-o", "--output", required=True, help="the new file (.toml or .json)")
     sc.set_defaults(func=_cmd_spec_convert)
-    sf = spsub.add_parser(
-        "format", help="rewrite specs in place with their keys in the documented order"
-    )
+    sf = action("format", "rewrite specs in place with their keys in the documented order")
     sf.add_argument("specs", nargs="+", metavar="SPEC", help="world spec files")
     sf.add_argument(
         "--check",

@@ -59,6 +59,7 @@ import ctypes
 import glob
 import hashlib
 import json
+import math
 import multiprocessing
 import os
 import queue
@@ -666,6 +667,7 @@ def _progress_sender(
             last[0] = f
             send(f, bp.text)
 
+    progress.estimated = bp.estimated  # type: ignore[attr-defined]  # the bake's on_estimate
     return progress
 
 
@@ -732,6 +734,8 @@ def _bake_task(task: dict[str, Any]) -> dict[str, Any]:
         tol = spec.tolerance_m if task["tolerance_m"] is None else task["tolerance_m"]
 
         def on_estimate(triangles: int) -> None:
+            if progress is not None:  # refinement's total is known from here on
+                progress.estimated(triangles)  # type: ignore[attr-defined]
             # no estimate before the bake: its own survey's, before the refinement goes on
             if need == 0:
                 probe_folder(outdir, estimate_from_triangles(spec, tol, triangles).output_bytes)
@@ -1208,8 +1212,21 @@ def farm(
     started = datetime.now(timezone.utc).isoformat(timespec="seconds")
     if jobs is not None and (not isinstance(jobs, int) or isinstance(jobs, bool) or jobs < 1):
         raise ValueError(f"jobs: must be an integer >= 1, got {jobs!r}")
-    if threads is not None and (not isinstance(threads, int) or threads < 0):
-        raise ValueError(f"threads: must be an integer >= 0 (0 = all cores), got {threads!r}")
+    # the bake's own ranges (csrc/bake.cpp, check_settings; the C ABI's gm_bake_settings), checked
+    # here before any work so that a value no world can bake with writes nothing, not a failed
+    # farm.json (tests/test_farm.py holds the two messages equal)
+    if threads is not None and (
+        not isinstance(threads, int) or isinstance(threads, bool) or not 0 <= threads <= 1024
+    ):
+        raise ValueError(f"threads: must be an integer in 0..1024 (0 = all cores), got {threads}")
+    if tolerance_m is not None and (
+        isinstance(tolerance_m, bool)
+        or not isinstance(tolerance_m, (int, float))
+        or not (math.isfinite(tolerance_m) and tolerance_m > 0)
+    ):
+        raise ValueError(
+            f"tolerance_m: must be > 0 and <= each world's radius_m/10, got {tolerance_m!r}"
+        )
     if max_memory_bytes is not None and not (
         isinstance(max_memory_bytes, int) and max_memory_bytes > 0
     ):
@@ -1280,15 +1297,9 @@ def _farm_locked(
     outcomes: list[WorldOutcome | None] = [None] * len(inputs)
     bar = None
     if progress:
-        from tqdm import tqdm
+        from .progress import stage_bar
 
-        bar = tqdm(
-            total=len(inputs),
-            unit="world",
-            desc="farm",
-            leave=False,
-            bar_format="{desc}: {n:.1f}/{total} worlds |{bar}| {postfix} [{elapsed}<{remaining}]",
-        )
+        bar = stage_bar(total=len(inputs), desc="farm", counts="{n:.1f}/{total} worlds ")
     finished = [0]
 
     def report(i: int, outcome: WorldOutcome) -> None:
@@ -1296,7 +1307,7 @@ def _farm_locked(
         finished[0] += 1
         if bar is not None:
             bar.n = finished[0]
-            bar.set_postfix_str(f"{outcome.world} {outcome.status}")
+            bar.set_stage(f"{outcome.world} {outcome.status}")
             bar.refresh()
         if on_world is not None:
             on_world(outcome)
@@ -1448,7 +1459,7 @@ def _farm_locked(
             f"{names_of[i]} {100 * f:.0f}% {text.split(' ')[0]}"
             for i, (f, text) in sorted(running.items())
         ]
-        bar.set_postfix_str(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
+        bar.set_stage(", ".join(shown[:4]) + (" ..." if len(shown) > 4 else ""))
         bar.refresh()
 
     ticking = tick if bar is not None or on_progress is not None else None
