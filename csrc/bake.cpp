@@ -348,13 +348,12 @@ Status bake(const Field& field, const BakeSettings& settings, BakeResult& r, std
 
     // 5. colliders
     if (settings.collision) {
-        progress(kStageColliders, 0, 1);
+        progress(kStageColliders, 0, kColliderSteps);
         ev = eval_tally();
-        st = make_colliders(field, h, r, error);
+        st = make_colliders(field, h, r, error, [&](std::uint64_t k, std::uint64_t n) { progress(kStageColliders, k, n); });
         if (st != Status::Ok) return st;
         r.evaluations.colliders = since(ev);
         r.seconds.colliders = r.colliders.seconds;
-        progress(kStageColliders, 1, 1);
     }
     r.seconds.total = since(t_start);
     r.evaluations.total = since(e_start);

@@ -68,7 +68,7 @@ struct BakeSettings {
     // called on the calling thread as the bake goes: (stage, done, total) with stage one of the
     // kStage* names, in order: refine (leaf triangles of about an estimate), verify (triangles
     // measured), levels and seams (levels done), chunks (levels whose chunk buffers are made),
-    // colliders (0 then 1)
+    // colliders (steps done of colliders.hpp's kColliderSteps: cut, angles, bias, angles, measure)
     std::function<void(const char*, std::uint64_t, std::uint64_t)> progress;
     // called once on the calling thread with the budget survey's triangle estimate, before the
     // refinement goes on; false stops the bake (Status::Stopped). Edits never call it.

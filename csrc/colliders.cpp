@@ -62,7 +62,11 @@ std::vector<double> bias_vertices(const Field& f, const std::vector<double>& V,
 
 }  // namespace
 
-Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::string& error) {
+Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::string& error,
+                      const std::function<void(std::uint64_t, std::uint64_t)>& step) {
+    auto done = [&](std::uint64_t k) {
+        if (step) step(k, kColliderSteps);
+    };
     const auto t0 = std::chrono::steady_clock::now();
     const BakeSettings& s = r.settings;
     ColliderResult& out = r.colliders;
@@ -93,6 +97,7 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
         tol *= 1.25;
     }
     Level& lv = cl[0];
+    done(1);
     // slivers out (collider_angles.cpp): first on the ground vertices within the meshing
     // tolerance, then once more on the final (biased) positions within the collider tolerance;
     // each new triangle is kept within a share of its budget, a margin for the independent
@@ -103,8 +108,10 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
     std::vector<double> ground = r.positions;
     AngleStats as = raise_min_angle(field, ground, lv.triangles, lv.chunk, target, kColliderAngleMargin * mesh_tol,
                                     kMeasureOrder, s.threads, s.collider_cap);
+    done(2);
     std::vector<double> P =
         centered ? bias_vertices(field, ground, lv.triangles, tol / 3, s.threads) : std::move(ground);
+    done(3);
     if (centered) {
         const AngleStats more = raise_min_angle(field, P, lv.triangles, lv.chunk, target, kColliderAngleMargin * tol,
                                                 kMeasureOrder, s.threads, s.collider_cap);
@@ -113,6 +120,7 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
         as.inserts += more.inserts;
         as.stuck = more.stuck;
     }
+    done(4);
     {
         // the pass removes and adds triangles (within the cap): recount the largest chunk
         std::vector<std::uint64_t> counts(r.chunk_count, 0);
@@ -135,6 +143,7 @@ Status make_colliders(const Field& field, Hierarchy& h, BakeResult& r, std::stri
     out.max_error_m = dev.max_m;
     out.mesh_to_surface_m = dev.mesh_to_surface_m;
     out.surface_to_mesh_m = dev.surface_to_mesh_m;
+    done(5);
     out.min_angle_deg = T ? 180.0 : 0.0;
     const double tiny = 1e-12 * s.radius_m * s.radius_m;
     for (std::size_t t = 0; t < T; ++t) {

@@ -33,8 +33,9 @@ NO_LAYER: int = _core.NO_LAYER
 Progress = Callable[[str, int, int], None]
 """progress(stage, done, total), called on the calling thread, stages in this order: "refine"
 (leaf triangles so far, of about total), "verify" (triangles measured), "levels" and "seams"
-(levels cut, levels stitched), "chunks" (levels whose chunk buffers are made), "colliders" (0 of 1,
-then 1 of 1); `output.write_outputs` adds "write" (chunk levels prepared, then the files).
+(levels cut, levels stitched), "chunks" (levels whose chunk buffers are made), "colliders" (steps
+done of 5: the cut, the angle pass, the bias, the angle pass again, the measure);
+`output.write_outputs` adds "write" (chunk levels prepared, then the files).
 `globemill.progress.BakeProgress` turns these into one fraction of the whole."""
 U32 = npt.NDArray[np.uint32]
 F64 = npt.NDArray[np.float64]

@@ -1,14 +1,15 @@
 """One progress figure for a whole bake, from the stages the core and the writer report.
 
 The core reports each stage in its own unit (refine: leaf triangles of about an estimate; verify:
-triangles measured; levels, seams, chunks: levels done; colliders: 0 then 1) and the writer
+triangles measured; levels, seams, chunks: levels done; colliders: steps done of 5) and the writer
 reports `write` (chunk levels put in GPU order, then the files). Each stage counts for the share
 of the whole it took on the demo world at its own 0.5 m (`python benchmarks/stages.py` times
 each stage from its first report to the next's; two runs on 2 cores, 2026-12-04, 13.5 s and
 23.4 s: refine 17.6-17.9 %, verify 31.5-35.0 %, levels 18.9-20.1 %, seams 1 %, chunks 0.2 %,
 colliders 23.5-27.0 %, write 2.2-3.9 %), so the total moves at a roughly even pace, and the
-time left is the time so far scaled by the share still to do. The colliders report only 0 and
-1 of 1, so the bar stands still through that stage (about a quarter of the demo's bake).
+time left is the time so far scaled by the share still to do. The colliders report their five
+steps (the cut at the collider tolerance, the angle pass, the bias, the angle pass again, the
+measure), so the bar moves through that stage too.
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ STAGES: dict[str, tuple[float, str]] = {
     "levels": (0.19, "levels cut"),
     "seams": (0.01, "levels stitched"),
     "chunks": (0.01, "levels in chunks"),
-    "colliders": (0.25, "colliders"),
+    "colliders": (0.25, "collider steps"),
     "write": (0.03, "chunk levels written"),
 }
 ORDER = list(STAGES)
