@@ -211,6 +211,31 @@ def test_lod_flags_override_the_spec_and_check_agrees(tmp_path: Path, small: Pat
     assert chk.returncode == 0, chk.stdout + chk.stderr
 
 
+def test_a_rebake_removes_the_outputs_of_the_previous_bake_it_does_not_write(
+    tmp_path: Path, small: Path
+) -> None:
+    out = tmp_path / "out"
+    first = run("bake", str(small), "-o", str(out), "-q", "--levels", "2", "--level-files")
+    assert first.returncode == 0, first.stderr
+    written = {"knoll.glb", "knoll.report.json", "knoll.collision.glb", "knoll.lod0.glb"}
+    assert written | {"knoll.lod1.glb"} == {p.name for p in out.iterdir()}
+    # files the bake did not write stay, whatever their names
+    for other in ("knoll.notes.txt", "other.glb", "knoll.lod7.glb"):
+        (out / other).write_text("not the bake's")
+    again = run("bake", str(small), "-o", str(out), "--levels", "2", "--no-collision")
+    assert again.returncode == 0, again.stderr
+    names = {p.name for p in out.iterdir()}
+    assert names == {"knoll.glb", "knoll.report.json", "knoll.notes.txt", "other.glb",
+                     "knoll.lod7.glb"}  # fmt: skip
+    rep = json.loads((out / "knoll.report.json").read_text())
+    assert sorted(rep["export"]["removed"]) == [
+        "knoll.collision.glb", "knoll.lod0.glb", "knoll.lod1.glb",
+    ]  # fmt: skip
+    assert "removed" in again.stdout and "knoll.collision.glb" in again.stdout
+    chk = run("check", str(small), str(out))
+    assert chk.returncode == 0, chk.stdout + chk.stderr
+
+
 def test_python_api_and_flags_give_the_same_bytes(tmp_path: Path, small: Path) -> None:
     import globemill
     from globemill.output import write_outputs

@@ -306,6 +306,8 @@ def _cmd_bake(args: argparse.Namespace) -> int:
         _out(summary_table(result.report))
         for p in paths.values():
             _out(f"  wrote {p}")
+        for n in result.report["export"].get("removed", []):
+            _out(f"  removed {Path(args.output) / n} (the previous bake's, not made this time)")
     return EXIT_OK
 
 

@@ -1,5 +1,7 @@
 """Turn a bake into files: `<name>.glb` (every level and chunk), `<name>.collision.glb`,
-`<name>.report.json` and, when asked, `<name>.lod<k>.obj|ply`, all written atomically.
+`<name>.report.json` and, when asked, `<name>.lod<k>.obj|ply`, all written atomically. Files
+the world's previous bake in that folder wrote (its report's `export.files`) that this one does
+not write are removed after it (a bake without colliders leaves no old `.collision.glb`).
 
 glTF layout (docs/gltf.md): one root node per chunk holding its finest level; the node's
 `MSFT_lod` extension lists the nodes of its coarser levels (finest to coarsest), with
@@ -337,6 +339,26 @@ def _concat(a: Any, b: Any) -> Any:
     return np.concatenate([a, b]).astype(np.uint32)
 
 
+def _previous_outputs(outdir: Path, name: str) -> list[Path]:
+    """The files the previous bake of world `name` wrote into `outdir`, as its report lists them
+    (plain file names of that world's outputs only; none when there is no readable report)."""
+    try:
+        report = json.loads((outdir / f"{name}.report.json").read_text(encoding="utf-8"))
+        names = list(report["export"]["files"])
+    except (OSError, ValueError, KeyError, TypeError):
+        return []
+    out = []
+    for n in names:
+        if (
+            isinstance(n, str)
+            and n == Path(n).name
+            and n.startswith(f"{name}.")
+            and n.endswith((".glb", ".obj", ".ply", ".json"))
+        ):
+            out.append(outdir / n)
+    return out
+
+
 def write_outputs(
     result: BakeResult,
     outdir: Path,
@@ -352,6 +374,8 @@ def write_outputs(
     options : the .glb layout (GlbOptions); with `level_files`, also OUTDIR/<name>.lod<k>.glb
         for every level k (paths key "glb_lod<k>").
     progress : called as the files are prepared and written (stage "write", see `prepare`).
+    Files the previous bake of this world in `outdir` wrote and this one does not are removed
+    once the new set is in place (the report's export entry names them: "removed").
     The report gains an "export" entry (also set in result.report): file sizes, the vertex cache
     miss ratio before and after ordering and, when asked, the quantization's errors.
     """
@@ -380,9 +404,14 @@ def write_outputs(
         "uv_attributes": opts.uv_attributes,
         "files": {p.name: len(data) for p, data in files.items()},
     }
+    stale = [p for p in _previous_outputs(outdir, name) if p not in files and p != paths["report"]]
+    if stale:
+        export["removed"] = [p.name for p in stale]
     result.report["export"] = export
     files[paths["report"]] = report_json({**result.report, **provenance(result.spec)})
     write_files_atomically(files)
+    for p in stale:
+        p.unlink(missing_ok=True)
     if progress is not None:
         done = sum(len(lv.chunks) for lv in result.levels) + 1
         progress("write", done, done)
