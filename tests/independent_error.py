@@ -344,8 +344,10 @@ class StepWalls:
     nearest point of the rounded rectangle in the local coordinates of docs/terrain.md). The
     segment at that rim direction ``u_r`` runs between the heights of ``H`` just inside and just
     outside the rim (``field`` evaluated 1 micrometre either side), so any blend mode and any
-    overlapping feature are taken as the field has them. The result is a distance to a true wall
-    point, so never below the true distance to the walls.
+    overlapping feature are taken as the field has them. Where another rim crosses this one the
+    span changes along the rim, so rim points up to the distance found away along it are taken
+    too, each with its own span. The result is a distance to a true wall point, so never below
+    the true distance to the walls.
     """
 
     field: Field
@@ -433,6 +435,21 @@ class StepWalls:
             t = np.clip(along[sel], lo, hi)
             d = np.linalg.norm(points[sel] - t[:, None] * rim[sel], axis=1)
             best[sel] = np.minimum(best[sel], d)
+            # where another feature's rim crosses this one, the segment's span changes along the
+            # rim: rim points up to the distance so far away along it, each with its own span,
+            # in rounds that narrow with the distance found
+            tang = np.cross(rim[sel], normal[sel])
+            for _ in range(3):
+                before = best[sel].copy()
+                for k in (*range(-8, 0), *range(1, 9)):
+                    shift = (before * (k / 8.0) / self.radius_m)[:, None]
+                    rim2, normal2 = self._rim(row, _normalize(rim[sel] + shift * tang))
+                    lo2, hi2 = self._span(rim2, normal2)
+                    t2 = np.clip(np.sum(points[sel] * rim2, axis=1), lo2, hi2)
+                    d2 = np.linalg.norm(points[sel] - t2[:, None] * rim2, axis=1)
+                    best[sel] = np.minimum(best[sel], d2)
+                if not np.any(best[sel] < 0.5 * before):
+                    break
         return best
 
     def sample(self, spacing_m: float) -> FloatArray:

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 from independent_error import distance_to_mesh, feature_directions, measure, step_walls
 
@@ -153,15 +153,18 @@ def _dense_independent(spec: globemill.WorldSpec, level_mesh: tuple) -> dict:
     )
 
 
-def _assert_certified(spec: globemill.WorldSpec, result: globemill.BakeResult) -> None:
+def _assert_certified(
+    spec: globemill.WorldSpec, result: globemill.BakeResult, tight: float = 1.1
+) -> None:
     """Every level within its tolerance by the dense independent search, and its published
-    `max_error_m` at least that search's value and at most 1.1 times it (issue 13, item 3)."""
+    `max_error_m` at least that search's value and at most `tight` times it (issue 13, item 3:
+    1.1)."""
     for k, lv in enumerate(result.report["lods"]):
         dense = _dense_independent(spec, result.mesh(k))["max"]
         reported = lv["max_error_m"]
         assert dense <= lv["tolerance_m"], f"level {k}: {dense} beyond {lv['tolerance_m']}"
         assert reported >= dense, f"level {k}: reported {reported} below the dense {dense}"
-        assert reported <= 1.1 * dense, f"level {k}: reported {reported} above 1.1 x {dense}"
+        assert reported <= tight * dense, f"level {k}: reported {reported} above {tight} x {dense}"
 
 
 @pytest.mark.slow
@@ -196,9 +199,11 @@ def _collider_mesh(result: globemill.BakeResult) -> tuple[np.ndarray, np.ndarray
     return np.vstack(vs), np.vstack(ts)
 
 
-def _assert_collider_certified(spec: globemill.WorldSpec, result: globemill.BakeResult) -> None:
-    """The collider's published `max_error_m` at least the independent figure and at most 1.1
-    times it (issue 13, item 3). Independent figure: the dense search of `_dense_independent`,
+def _assert_collider_certified(
+    spec: globemill.WorldSpec, result: globemill.BakeResult, tight: float = 1.1
+) -> None:
+    """The collider's published `max_error_m` at least the independent figure and at most `tight`
+    times it (issue 13, item 3: 1.1). Independent figure: the dense search of `_dense_independent`,
     and the vertical walls' faces sampled every 0.25 m (step_walls) against the whole collider
     by exact closest points (distance_to_mesh): where a collider cuts a wall's corner, a point of
     the wall's face is the surface point farthest from it."""
@@ -217,7 +222,9 @@ def _assert_collider_certified(spec: globemill.WorldSpec, result: globemill.Bake
     reported = col["max_error_m"]
     assert independent <= col["tolerance_m"], f"collider: {independent} beyond {col['tolerance_m']}"
     assert reported >= independent, f"collider: reported {reported} below {independent}"
-    assert reported <= 1.1 * independent, f"collider: reported {reported} above 1.1 x {independent}"
+    assert reported <= tight * independent, (
+        f"collider: reported {reported} above {tight} x {independent}"
+    )
 
 
 def test_walled_world_collider_figure_is_certified() -> None:
@@ -238,3 +245,116 @@ def test_demo_world_collider_figure_is_certified() -> None:
     spec = globemill.load_spec(DEMO)
     result = globemill.bake(spec, tolerance_m=1.0, levels=1)
     _assert_collider_certified(spec, result)
+
+
+# the icosahedron's vertices (lat, lon): the poles and two rings at +-atan(1/2) = 26.565 deg
+# (the regular icosahedron with a vertex at each pole, e.g. Coxeter, "Regular Polytopes" 3.7);
+# the base mesh's vertices and edges are where refinement's first triangles meet
+_ICO_LAT = float(np.degrees(np.arctan(0.5)))
+_PLACES = (
+    [(90.0, 0.0), (-90.0, 0.0)]
+    + [(_ICO_LAT, -180.0 + 72.0 * i) for i in range(5)]
+    + [(-_ICO_LAT, -144.0 + 72.0 * i) for i in range(5)]
+    + [(0.5 * _ICO_LAT, -144.0 + 72.0 * i) for i in range(5)]  # near edge midpoints
+    + [(0.0, 180.0), (0.0, -179.9), (60.0, 179.95)]  # over the antimeridian
+)
+
+
+@st.composite
+def crossed_worlds(draw: st.DrawFn) -> dict:
+    """Worlds whose features of every blend mode cross each other's footprints around one place:
+    an icosahedron vertex, near an edge, a pole, the antimeridian, or anywhere."""
+    if draw(st.booleans()):
+        lat0, lon0 = draw(st.sampled_from(_PLACES))
+    else:
+        lat0, lon0 = draw(st.floats(-89, 89)), draw(st.floats(-180, 180))
+    feats = []
+    for _ in range(draw(st.integers(2, 4))):
+        lat = max(-90.0, min(90.0, lat0 + draw(st.floats(-2, 2))))
+        lon = lon0 + draw(st.floats(-2, 2))
+        lon = (lon + 180.0) % 360.0 - 180.0
+        kind = draw(_kinds)
+        f: dict = {"kind": kind, "blend": draw(st.sampled_from(["add", "max", "min", "set"]))}
+        if kind == "hill":
+            f.update(lat_deg=lat, lon_deg=lon, sigma_m=draw(st.floats(8, 50)),
+                     amplitude_m=draw(st.sampled_from([-12.0, 8.0, 20.0])))  # fmt: skip
+        elif kind == "mesa":
+            f.update(lat_deg=lat, lon_deg=lon, height_m=draw(st.sampled_from([-8.0, 6.0, 12.0])),
+                     radius_m=draw(st.floats(10, 40)),
+                     wall_width_m=draw(st.sampled_from([0.0, 6.0])))  # fmt: skip
+        elif kind == "crater":
+            f.update(lat_deg=lat, lon_deg=lon, radius_m=draw(st.floats(10, 40)),
+                     depth_m=draw(st.floats(1, 8)), rim_height_m=draw(st.floats(0, 3)),
+                     rim_width_m=draw(st.floats(5, 15)))  # fmt: skip
+        elif kind == "block":
+            f.update(lat_deg=lat, lon_deg=lon, height_m=draw(st.sampled_from([-6.0, 5.0, 10.0])),
+                     half_x_m=draw(st.floats(8, 30)), half_y_m=draw(st.floats(8, 30)),
+                     bearing_deg=draw(st.floats(0, 180)), corner_radius_m=3.0,
+                     wall_width_m=draw(st.sampled_from([0.0, 4.0])))  # fmt: skip
+        else:
+            f.update(lat0_deg=lat, lon0_deg=lon,
+                     lat1_deg=max(-90.0, min(90.0, lat + draw(st.floats(-1.5, 1.5)))),
+                     lon1_deg=(lon + draw(st.floats(0.3, 1.5)) + 180.0) % 360.0 - 180.0,
+                     height_m=draw(st.sampled_from([-6.0, 9.0])),
+                     half_width_m=draw(st.floats(8, 25)),
+                     profile=draw(st.sampled_from(["round", "sharp"])))  # fmt: skip
+        feats.append(f)
+    return {
+        "name": "crossed",
+        "radius_m": 900.0,
+        "tolerance_m": 1.0,
+        "features": feats,
+        "lod": {"levels": 1, "chunk_level": 0},
+    }
+
+
+@pytest.mark.slow
+@settings(
+    max_examples=6,
+    deadline=None,
+    derandomize=True,
+    suppress_health_check=[HealthCheck.too_slow],
+    phases=[Phase.explicit, Phase.generate],  # a failing world is shown as drawn (no shrinking)
+)
+@given(crossed_worlds())
+def test_random_crossed_worlds_publish_a_certified_figure(data: dict) -> None:
+    # issue 13, tests: every blend mode across each other's footprints, sharp profiles, features
+    # on the icosahedron's vertices and edges, at the poles and over the antimeridian: the level's
+    # and the collider's published figure never below the dense independent search. Tightness is
+    # held to 1.25 times it here, not the issue's 1.1: where blend creases cross a sloped wall the
+    # published figure is up to 1.12 times the search (the strict xfail below); on six other
+    # drawn worlds it was 1.011-1.091 (levels) and 1.004-1.079 (colliders), 2026-12-04
+    spec = globemill.parse_spec(data)
+    result = globemill.bake(spec)
+    _assert_certified(spec, result, tight=1.25)
+    _assert_collider_certified(spec, result, tight=1.25)
+
+
+CROSSED_CREASES = {
+    "name": "crossed",
+    "radius_m": 900.0,
+    "tolerance_m": 1.0,
+    "features": [
+        {"kind": "mesa", "blend": "set", "lat_deg": -85.50569471020526,
+         "lon_deg": 179.33333333333337, "height_m": 12.0, "radius_m": 30.665320270723,
+         "wall_width_m": 6.0},
+        {"kind": "crater", "blend": "max", "lat_deg": -85.08116211765017,
+         "lon_deg": 177.149626683211, "radius_m": 39.99999999999999, "depth_m": 6.441035890790692,
+         "rim_height_m": 1.3273765356034808, "rim_width_m": 14.558885360518321},
+    ],
+    "lod": {"levels": 1, "chunk_level": 0},
+}  # fmt: skip
+
+
+@pytest.mark.slow
+@pytest.mark.xfail(
+    strict=True,
+    reason="not reached (issue 13, item 3): a sloped-walled mesa set over a max crater near the "
+    "south pole and the antimeridian publishes 0.9495 m where the dense search finds 0.8468 m "
+    "(1.12 x); whether the published figure overstates at the blend crease or the search falls "
+    "short of its peak is not yet measured",
+)
+def test_crossed_blend_creases_are_published_within_ten_percent() -> None:
+    # found by test_random_crossed_worlds_publish_a_certified_figure (2026-12-04)
+    spec = globemill.parse_spec(CROSSED_CREASES)
+    _assert_certified(spec, globemill.bake(spec, collision=False))
