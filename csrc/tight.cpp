@@ -23,6 +23,12 @@ constexpr int kSeeds = 2;
 constexpr int kMaxSteps = 60;
 // the search stops once its step (in metres) is this share of the value found
 constexpr double kStopShare = 2e-2;
+// with the whole mesh (an exact distance), surface -> mesh, which has no allowance for its last
+// step (the ground above a point moves faster than the point on steep ground), searches on until
+// the step is this share of the value. against one triangle it does not: there the value on a
+// steep flank overstates (the nearest mesh point lies on a neighbour) and a finer search would
+// only climb further up that overstatement
+constexpr double kWholeMeshStopShare = 2e-3;
 constexpr double kStopFloor = 1e-5;
 // projection steps per mesh point (Gauss-Newton, project_distance: it stops once converged)
 constexpr int kProjectIterations = 6;
@@ -57,9 +63,9 @@ void offer(Seed* seeds, int& n, Seed s) {
 // first (confirm(b1, b2, value) returns a value no larger)
 template <class Value, class Confirm>
 double climb(const Value& value, const Confirm& confirm, Seed s, double h, double edge_m, double& step_m,
-             double& at1, double& at2) {
+             double& at1, double& at2, double stop_share = kStopShare) {
     double v = s.v, b1 = s.b1, b2 = s.b2;
-    for (int it = 0; it < kMaxSteps && h * edge_m > std::max(kStopShare * v, kStopFloor); ++it) {
+    for (int it = 0; it < kMaxSteps && h * edge_m > std::max(stop_share * v, kStopFloor); ++it) {
         double best = v, n1 = b1, n2 = b2;
         for (const auto& d : kDirs) {
             const double c1 = b1 + h * d[0], c2 = b2 + h * d[1];
@@ -220,7 +226,8 @@ double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spa
             break;
         }
         double step = 0, b1 = 0, b2 = 0;
-        s2m = std::max(s2m, climb(surface_value, as_is, s2m_seeds[k], h, edge, step, b1, b2));
+        s2m = std::max(s2m, climb(surface_value, as_is, s2m_seeds[k], h, edge, step, b1, b2,
+                                  mesh ? kWholeMeshStopShare : kStopShare));
     }
     mesh_to_surface = m2s;
     surface_to_mesh = s2m;

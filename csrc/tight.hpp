@@ -14,7 +14,7 @@ constexpr int kTightOrder = 8;
 // barycentric grid of sampling_order(V0, V1, V2, kTightOrder, spacing_m) with the features'
 // crease points, then from its largest values (those within kTightSeedShare of the largest, at
 // most two per direction, each confirmed by cap_distance) a compass search on the triangle (Kolda, Lewis & Torczon, "Optimization
-// by direct search", SIAM Review 2003) whose step halves until it is a 50th of the value found.
+// by direct search", SIAM Review 2003) whose step halves until it is a 50th of the value found (a 500th for surface -> mesh to a whole mesh).
 // mesh -> surface by the radial bound, the projection and the walls (every value a
 // distance to an actual surface point), plus the last step: the distance to a set is
 // 1-Lipschitz, so within the last step of the peak found it is at most that much larger.
