@@ -416,8 +416,10 @@ MEETING_WALLS = {
     strict=True,
     raises=globemill.BakeError,
     reason="not reached (issue 13, items 1 and 2): where the vertical walls of a max mesa and a "
-    "set block meet on a hill, level 0 measures 4.755 m against 1 m at the refinement's size "
-    "floor, and the bake is refused (exit 3), not meshed; the same on the build of 2026-12-03",
+    "set block meet, the core's own wall distance (Field::wall_point: one span per rim point) "
+    "misses the wall's other half at the rims' crossing and reads 4.755 m on a sliver 0.036 m "
+    "from the walls, refines to its size floor and refuses the bake (exit 3), where the dense "
+    "independent search finds the level within 0.789 m of its 1 m",
 )
 def test_meeting_walls_of_max_and_set_features_mesh_within_tolerance() -> None:
     # found by test_random_crossed_worlds_publish_a_certified_figure (2026-12-04)
