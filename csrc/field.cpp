@@ -888,6 +888,44 @@ double Field::wall_distance(Vec3 p) const {
     return wall_point(p, q);
 }
 
+// the direction of step feature f's rim point nearest direction u (false: none, at a mesa's very
+// centre or on a block's far side)
+bool Field::rim_direction(const Feature& f, Vec3 u, Vec3& w) const {
+    const double R = radius_;
+    if (f.kind == Kind::Mesa) {
+        Vec3 t = u - dot(u, f.c) * f.c;
+        double tn = norm(t);
+        if (tn < 1e-15) return false;  // at the very centre the rim is far
+        double a = f.prm[1] / R;
+        w = std::cos(a) * f.c + (std::sin(a) / tn) * t;
+        return true;
+    }
+    if (dot(u, f.c) <= 0) return false;
+    Vec3 gx, gy;
+    double x = local_coord(u, f.ax, f.c, R, gx);
+    double y = local_coord(u, f.ay, f.c, R, gy);
+    double hx = f.prm[1], hy = f.prm[2], r = f.prm[3];
+    double sx = x < 0 ? -1.0 : 1.0, sy = y < 0 ? -1.0 : 1.0;
+    double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
+    double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
+    double out = std::sqrt(mx * mx + my * my);
+    double xs, ys;
+    if (out > 0) {
+        // closest point on the corner arc or straight side
+        double s = out - r;
+        xs = x - sx * s * mx / out;
+        ys = y - sy * s * my / out;
+    } else if (qx > qy) {
+        xs = sx * hx;
+        ys = y;
+    } else {
+        xs = x;
+        ys = sy * hy;
+    }
+    w = normalize(f.c + std::tan(xs / R) * f.ax + std::tan(ys / R) * f.ay);
+    return true;
+}
+
 double Field::wall_point(Vec3 p, Vec3& q, double* foot, double* top) const {
     double best = std::numeric_limits<double>::infinity();
     q = p;
@@ -899,50 +937,57 @@ double Field::wall_point(Vec3 p, Vec3& q, double* foot, double* top) const {
         const Feature& f = features_[fi];
         if (f.cap_angle < kPi && angle(u, f.cap_c) > reach_angle(fi)) continue;
         Vec3 w;  // direction of the closest rim point
-        if (f.kind == Kind::Mesa) {
-            Vec3 t = u - dot(u, f.c) * f.c;
-            double tn = norm(t);
-            if (tn < 1e-15) continue;  // at the very centre the rim is far
-            double a = f.prm[1] / R;
-            w = std::cos(a) * f.c + (std::sin(a) / tn) * t;
-        } else {
-            if (dot(u, f.c) <= 0) continue;
-            Vec3 gx, gy;
-            double x = local_coord(u, f.ax, f.c, R, gx);
-            double y = local_coord(u, f.ay, f.c, R, gy);
-            double hx = f.prm[1], hy = f.prm[2], r = f.prm[3];
-            double sx = x < 0 ? -1.0 : 1.0, sy = y < 0 ? -1.0 : 1.0;
-            double qx = std::fabs(x) - (hx - r), qy = std::fabs(y) - (hy - r);
-            double mx = std::max(qx, 0.0), my = std::max(qy, 0.0);
-            double out = std::sqrt(mx * mx + my * my);
-            double xs, ys;
-            if (out > 0) {
-                // closest point on the corner arc or straight side
-                double s = out - r;
-                xs = x - sx * s * mx / out;
-                ys = y - sy * s * my / out;
-            } else if (qx > qy) {
-                xs = sx * hx;
-                ys = y;
-            } else {
-                xs = x;
-                ys = sy * hy;
+        if (!rim_direction(f, u, w)) continue;
+        // the wall segment at rim direction x and p's distance to it
+        auto segment = [&](Vec3 x, double& lo, double& hi) {
+            const std::uint32_t* cl;
+            std::size_t cc;
+            candidates(x, cl, cc);
+            double h_in = eval(x, cl, cc, nullptr, static_cast<int>(fi), 1.0);
+            double h_out = eval(x, cl, cc, nullptr, static_cast<int>(fi), 0.0);
+            lo = R + std::min(h_in, h_out);
+            hi = R + std::max(h_in, h_out);
+            return norm(p - std::min(std::max(dot(p, x), lo), hi) * x);
+        };
+        auto take = [&](Vec3 x, double d, double lo, double hi) {
+            if (d < best) {
+                best = d;
+                q = std::min(std::max(dot(p, x), lo), hi) * x;
+                if (foot) *foot = lo;
+                if (top) *top = hi;
             }
-            w = normalize(f.c + std::tan(xs / R) * f.ax + std::tan(ys / R) * f.ay);
-        }
-        const std::uint32_t* cl;
-        std::size_t cc;
-        candidates(w, cl, cc);
-        double h_in = eval(w, cl, cc, nullptr, static_cast<int>(fi), 1.0);
-        double h_out = eval(w, cl, cc, nullptr, static_cast<int>(fi), 0.0);
-        double lo = R + std::min(h_in, h_out), hi = R + std::max(h_in, h_out);
-        double t = std::min(std::max(dot(p, w), lo), hi);
-        const double d = norm(p - t * w);
-        if (d < best) {
-            best = d;
-            q = t * w;
-            if (foot) *foot = lo;
-            if (top) *top = hi;
+        };
+        double lo, hi;
+        double d = segment(w, lo, hi);
+        take(w, d, lo, hi);
+        // where another step feature's rim crosses this one, the segment's span changes along the
+        // rim (one side of the crossing inside the other feature, the other side outside): rim
+        // points up to the distance found away along the rim, each with its own span, in rounds
+        // that narrow with it. only where another step feature reaches the rim point: a function
+        // of the features near p alone
+        bool crossed = false;
+        for (std::uint32_t fj : steps_)
+            if (fj != fi && (features_[fj].cap_angle >= kPi || angle(w, features_[fj].cap_c) <= reach_angle(fj))) {
+                crossed = true;
+                break;
+            }
+        if (!crossed) continue;
+        Vec3 along = cross(w, tangent(u - w, w));
+        if (!(norm(along) > 1e-15)) along = cross(w, tangent(f.c, w));
+        if (!(norm(along) > 1e-15)) continue;
+        along = normalize(along);
+        double reach = d;
+        for (int round = 0; round < kCrossRounds; ++round) {
+            const double before = reach;
+            for (int k = -kCrossSteps; k <= kCrossSteps; ++k) {
+                if (k == 0) continue;
+                Vec3 x;
+                if (!rim_direction(f, normalize(w + (before * k / (kCrossSteps * R)) * along), x)) continue;
+                const double dx = segment(x, lo, hi);
+                take(x, dx, lo, hi);
+                reach = std::min(reach, dx);
+            }
+            if (!(reach < 0.5 * before)) break;
         }
     }
     return best;

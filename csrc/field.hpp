@@ -117,6 +117,10 @@ public:
     // (optional): that wall's foot and top radius along q's direction (the wall there is the
     // segment from lo to hi times normalize(q); both |p| when none holds p)
     double wall_point(Vec3 p, Vec3& q, double* lo = nullptr, double* hi = nullptr) const;
+    // where another step feature's rim crosses a rim, wall_point also takes the rim points up to
+    // the distance found away along it (kCrossSteps each way), in up to kCrossRounds rounds
+    static constexpr int kCrossSteps = 8;
+    static constexpr int kCrossRounds = 3;
     // is feature i of this field defined exactly as feature j of `other` (the same row)?
     bool same_feature(std::size_t i, const Field& other, std::size_t j) const;
     // how far feature i reaches (angle from its footprint centre, radians): its footprint, and
@@ -149,6 +153,7 @@ public:
 
 private:
     void contribution(const Feature& f, Vec3 u, bool want_grad, Contribution& out) const;
+    bool rim_direction(const Feature& f, Vec3 u, Vec3& w) const;
     double noise(const Feature& f, Vec3 u, Vec3* grad) const;
     void build_index();
     void widen_blend_amplitudes();  // amp_m of max/min/set features (see field.cpp)

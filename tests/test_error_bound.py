@@ -355,7 +355,6 @@ def test_random_crossed_worlds_publish_a_certified_figure(data: dict) -> None:
     # and the collider's published figure never below the dense independent search and at most
     # 1.1 times it. A world the refinement cannot mesh within its tolerance (its size floor
     # reached) must be refused, naming the level and the figure, with nothing published
-    # (test_meeting_walls_of_max_and_set_features_mesh_within_tolerance records one)
     spec = globemill.parse_spec(data)
     try:
         result = globemill.bake(spec)
@@ -412,16 +411,12 @@ MEETING_WALLS = {
 }  # fmt: skip
 
 
-@pytest.mark.xfail(
-    strict=True,
-    raises=globemill.BakeError,
-    reason="not reached (issue 13, items 1 and 2): where the vertical walls of a max mesa and a "
-    "set block meet, the core's own wall distance (Field::wall_point: one span per rim point) "
-    "misses the wall's other half at the rims' crossing and reads 4.755 m on a sliver 0.036 m "
-    "from the walls, refines to its size floor and refuses the bake (exit 3), where the dense "
-    "independent search finds the level within 0.789 m of its 1 m",
-)
 def test_meeting_walls_of_max_and_set_features_mesh_within_tolerance() -> None:
-    # found by test_random_crossed_worlds_publish_a_certified_figure (2026-12-04)
+    # regression (issue 13, items 1 and 2), found by
+    # test_random_crossed_worlds_publish_a_certified_figure (2026-12-04): where the vertical
+    # walls of a max mesa and a set block meet, the core's wall distance took one span per rim
+    # point and missed the wall's other half at the rims' crossing: it read 4.755 m on a sliver
+    # 0.036 m from the walls, refined to its size floor and refused the bake (exit 3), where the
+    # dense independent search found that level within 0.789 m of its 1 m
     spec = globemill.parse_spec(MEETING_WALLS)
     _assert_certified(spec, globemill.bake(spec, collision=False))
