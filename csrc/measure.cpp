@@ -184,15 +184,6 @@ Deviation covered(const Field& field, const double* P, const std::uint32_t* T, s
 
 }  // namespace
 
-Deviation measure_covered(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
-                          std::size_t ntris, int order, int threads, double spacing_m) {
-    order = std::max(order, 1);
-    std::vector<std::uint64_t> off;
-    std::vector<std::uint32_t> ring;
-    vertex_rings(T, nverts, ntris, off, ring);
-    return covered(field, P, T, ntris, order, threads, spacing_m, off, ring, nullptr, nullptr);
-}
-
 Deviation measure_collider(const Field& field, const double* P, std::size_t nverts, const std::uint32_t* T,
                            std::size_t ntris, int order, double spacing_m, int threads, std::uint64_t* tight) {
     order = std::max(order, 1);
@@ -249,17 +240,16 @@ Deviation measure_collider(const Field& field, const double* P, std::size_t nver
                 for (std::size_t k = b; k < e; ++k) {
                     const std::size_t t = batch[k];
                     tight_deviation(field, corner_of(P, T, t, 0), corner_of(P, T, t, 1), corner_of(P, T, t, 2),
-                                    spacing_m, tight_m2s[t], tight_s2m[t], true, true, nullptr, 0, &tree);
+                                    spacing_m, tight_m2s[t], tight_s2m[t], true, true, &tree);
                 }
             }, 1);
             for (std::uint32_t t : batch) best = std::max(best, found[t]);
             searched += batch.size();
         }
     }
-    for (std::size_t t = 0; t < ntris; ++t) best_m2s = std::max(best_m2s, tight_m2s[t]);
+    // every searched figure is in its direction's best: each batch raised it
     dev.mesh_to_surface_m = best_m2s;
     dev.surface_to_mesh_m = best_s2m;
-    for (std::size_t t = 0; t < ntris; ++t) dev.surface_to_mesh_m = std::max(dev.surface_to_mesh_m, tight_s2m[t]);
     if (field.has_steps()) {
         // the vertical walls are surface too: where a collider cuts a wall's corner, points of
         // the wall's face are farther from it than any ground point above it. every grid point

@@ -39,16 +39,8 @@ Deviation measure(const Field& field, const double* positions, std::size_t nvert
                   const std::uint32_t* triangles, std::size_t ntris, int order, int threads,
                   double* per_triangle);
 
-// the same, but surface -> mesh of each triangle's samples is taken to the nearest of the
-// triangle and every triangle sharing a vertex with it (the colliders' measure: a sample on a
-// triangle spanning a vertical wall has its ground point on the wall's top or foot, which the
-// neighbour along the wall holds). corners sampled too; samples at most spacing_m apart (0: no
-// bound, sampling_order)
-Deviation measure_covered(const Field& field, const double* positions, std::size_t nverts,
-                          const std::uint32_t* triangles, std::size_t ntris, int order, int threads,
-                          double spacing_m = 0);
-
-// the colliders' published measure: measure_covered at `spacing_m`, then the tight search
+// the colliders' published measure: a grid at `spacing_m` (corners sampled, surface -> mesh to
+// the nearest of each triangle and every triangle sharing a vertex with it), then the tight search
 // (tight_deviation, corners sampled, surface -> mesh by the exact distance to the whole collider,
 // TriangleTree) on the triangles that can hold each direction's largest figure, chosen as
 // publish_tight chooses a level's leaves: by decreasing covered figure times kGridSlack

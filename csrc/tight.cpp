@@ -95,8 +95,7 @@ double climb(const Value& value, const Confirm& confirm, Seed s, double h, doubl
 }  // namespace
 
 double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spacing_m, double& mesh_to_surface,
-                       double& surface_to_mesh, bool search_surface, bool corners, const Vec3* cover,
-                       std::size_t cover_count, const TriangleTree* mesh) {
+                       double& surface_to_mesh, bool search_surface, bool corners, const TriangleTree* mesh) {
     const double R = field.radius();
     const int order = sampling_order(V0, V1, V2, kTightOrder, spacing_m);
     const double edge = std::max({norm(V1 - V0), norm(V2 - V1), norm(V0 - V2)});
@@ -110,13 +109,10 @@ double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spa
         if (field.has_steps()) d = std::min(d, field.wall_distance(p));
         return d;
     };
-    // the distance from surface point S to the triangle, or to the nearest of it and the cover
+    // the distance from surface point S to the triangle, or to the whole mesh when given
     auto to_mesh = [&](Vec3 S) {
-        double d = norm(S - closest_on_triangle(S, V0, V1, V2));
-        if (mesh) return mesh->distance(S, d);
-        for (std::size_t c = 0; c < cover_count && d > 0; ++c)
-            d = std::min(d, norm(S - closest_on_triangle(S, cover[3 * c], cover[3 * c + 1], cover[3 * c + 2])));
-        return d;
+        const double d = norm(S - closest_on_triangle(S, V0, V1, V2));
+        return mesh ? mesh->distance(S, d) : d;
     };
     auto surface_value = [&](double b1, double b2) {
         const Vec3 p = point(b1, b2);

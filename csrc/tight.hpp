@@ -23,13 +23,11 @@ constexpr int kTightOrder = 8;
 // when search_surface (else the grid's largest: beside a vertical wall the ground point above a
 // point may be nearer another triangle, and a search would find the wall top against this one).
 // corners: sample the corners too (a collider's corners are moved off the ground by its bias).
-// cover (cover_count triangles, 3 corners each): surface -> mesh is the distance to the nearest of
-// the triangle and these (the triangles around it, as measure_covered takes them); mesh: to the
-// whole mesh (exact, TriangleTree) instead.
-// a function of the corners, spacing_m, search_surface, corners, cover and mesh alone.
+// mesh (optional): surface -> mesh is the exact distance to this whole mesh (TriangleTree), not
+// to the triangle alone.
+// a function of the corners, spacing_m, search_surface, corners and mesh alone.
 double tight_deviation(const Field& field, Vec3 V0, Vec3 V1, Vec3 V2, double spacing_m, double& mesh_to_surface,
                        double& surface_to_mesh, bool search_surface = true, bool corners = false,
-                       const Vec3* cover = nullptr, std::size_t cover_count = 0,
                        const TriangleTree* mesh = nullptr);
 
 }  // namespace gm
